@@ -1,0 +1,108 @@
+"""The command line: ``planview check PATH|-`` and ``planview demo``.
+
+Exit codes of ``check``: 0 no origin at or above ``--fail-at``; 1 at least one (for CI
+gating); 2 unreadable input, with a one-line message on stderr and no traceback.
+"""
+
+from __future__ import annotations
+
+import argparse
+import sys
+from pathlib import Path
+
+from .errors import PlanviewError
+
+
+def _parser() -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(prog="planview", description=__doc__.splitlines()[0])
+    sub = parser.add_subparsers(dest="command", required=True)
+    check = sub.add_parser("check", help="check one plan: a path, or - for standard input")
+    check.add_argument("path", help="a plan file, or - to read standard input")
+    check.add_argument("--engine", help="force the engine (default: detected)")
+    check.add_argument("--format", dest="fmt", help="force the format (default: detected)")
+    check.add_argument("--threshold", type=float, default=10.0,
+                       help="own q-error that makes a node an origin (default 10)")
+    check.add_argument("--fail-at", type=float, default=10.0,
+                       help="exit 1 when an origin's q-error is at least this (default 10)")
+    check.add_argument("--json", action="store_true", help="print the JSON report")
+    check.add_argument("--html", metavar="OUT", help="also write the self-contained review page")
+    check.add_argument("--markdown", metavar="OUT", help="also write the ticket body")
+    check.add_argument("--width", type=int, help="terminal width for the table")
+    demo = sub.add_parser("demo", help="review every bundled plan (no server needed)")
+    demo.add_argument("--out", default="planview-demo", help="folder for the HTML and Markdown")
+    demo.add_argument("--plans", help="folder of plans (default: the bundled plans/)")
+    return parser
+
+
+def main(argv: list[str] | None = None) -> int:
+    args = _parser().parse_args(argv)
+    try:
+        if args.command == "check":
+            return _check(args)
+        return _demo(args)
+    except PlanviewError as exc:
+        print(f"planview: {exc}", file=sys.stderr)
+        return 2
+    except KeyboardInterrupt:
+        return 130
+    except BrokenPipeError:
+        return 0
+
+
+def _check(args) -> int:
+    from .plan import load
+
+    plan = load(args.path, engine=args.engine, fmt=args.fmt, threshold=args.threshold)
+    if args.json:
+        sys.stdout.write(plan.to_json() + "\n")
+    else:
+        sys.stdout.write(plan.to_text(width=args.width, color=sys.stdout.isatty()))
+    if args.html:
+        plan.to_html(args.html)
+    if args.markdown:
+        plan.to_markdown(args.markdown)
+    worst = max((f.own_q_error for f in plan.findings), default=1.0)
+    return 1 if plan.findings and worst >= args.fail_at else 0
+
+
+def bundled_plans_dir() -> Path:
+    here = Path(__file__).resolve().parent
+    for candidate in (here.parent / "plans", here / "plans"):
+        if candidate.is_dir():
+            return candidate
+    raise PlanviewError("the bundled plans/ folder was not found; pass --plans")
+
+
+def _demo(args) -> int:
+    from .errors import PlanParseError
+    from .plan import load
+
+    root = Path(args.plans) if args.plans else bundled_plans_dir()
+    out = Path(args.out)
+    out.mkdir(parents=True, exist_ok=True)
+    files = sorted(p for p in root.rglob("*") if p.is_file() and p.suffix in (".txt", ".json", ".xml", ".yaml")
+                   and not p.name.startswith("README"))
+    total_findings = 0
+    for path in files:
+        rel = path.relative_to(root)
+        try:
+            plan = load(path)
+        except PlanParseError as exc:
+            print(f"{rel}: unreadable: {exc}")
+            continue
+        stem = str(rel).replace("/", "__")
+        try:
+            plan.to_html(out / f"{stem}.html")
+            plan.to_markdown(out / f"{stem}.md")
+        except ImportError:
+            pass
+        total_findings += len(plan.findings)
+        causes = ", ".join(f"#{f.node} {f.cause or 'origin'} x{f.own_q_error:,.0f}" for f in plan.findings)
+        print(f"{rel}: {plan.engine} {plan.format}, {len(plan.nodes)} operators, "
+              f"{len(plan.findings)} origin(s){': ' + causes if causes else ''}")
+    print(f"reviewed {len(files)} plans, {total_findings} origins; pages in {out}/")
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())

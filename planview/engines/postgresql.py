@@ -1,0 +1,1035 @@
+"""PostgreSQL: EXPLAIN output in TEXT, JSON, XML and YAML (versions 12 to 18).
+
+JSON, XML and YAML are first turned into the same dicts, keyed as the JSON format spells
+them; the text format is read line by line into those same dicts. One builder then makes
+the `PlanNode`s, so the four formats cannot drift apart.
+"""
+
+from __future__ import annotations
+
+import json
+import re
+from typing import Any
+
+from ..errors import PlanParseError
+from ..model import Condition, ParsedPlan, PlanNode, Statement
+from ..source import MAX_DEPTH
+
+NAME = "postgresql"
+FORMATS = ("text", "json", "xml", "yaml")
+SQL_DIALECT = "postgres"
+
+# ---------------------------------------------------------------------------------------
+# Tables: the engine's vocabulary
+# ---------------------------------------------------------------------------------------
+
+CONDITION_KEYS = {
+    "Filter": "filter",
+    "Index Cond": "index_cond",
+    "Recheck Cond": "recheck_cond",
+    "Join Filter": "join_filter",
+    "Hash Cond": "hash_cond",
+    "Merge Cond": "merge_cond",
+    "One-Time Filter": "one_time_filter",
+    "TID Cond": "tid_cond",
+    "Run Condition": "run_condition",
+    "Order By": "order_by",
+    "Conflict Filter": "conflict_filter",
+}
+ROWS_REMOVED_PREFIX = "Rows Removed by "
+
+BUFFER_KEYS = {
+    ("shared", "hit"): "Shared Hit Blocks",
+    ("shared", "read"): "Shared Read Blocks",
+    ("shared", "dirtied"): "Shared Dirtied Blocks",
+    ("shared", "written"): "Shared Written Blocks",
+    ("local", "hit"): "Local Hit Blocks",
+    ("local", "read"): "Local Read Blocks",
+    ("local", "dirtied"): "Local Dirtied Blocks",
+    ("local", "written"): "Local Written Blocks",
+    ("temp", "read"): "Temp Read Blocks",
+    ("temp", "written"): "Temp Written Blocks",
+}
+BUFFER_NAMES = set(BUFFER_KEYS.values())
+
+NUMERIC_KEYS = {
+    "Plan Rows", "Actual Rows", "Actual Loops", "Startup Cost", "Total Cost", "Plan Width",
+    "Actual Startup Time", "Actual Total Time", "Workers Planned", "Workers Launched",
+    "Planning Time", "Execution Time", "Total Runtime", "Worker Number", "Index Searches",
+    *BUFFER_NAMES,
+}
+BOOL_KEYS = {"Parallel Aware", "Async Capable", "Single Copy", "Inner Unique", "Disabled"}
+
+# Keys that become PlanNode fields; every other key goes to `extra`.
+FIELD_KEYS = {
+    "Node Type", "Strategy", "Partial Mode", "Join Type", "Operation", "Parallel Aware",
+    "Scan Direction", "Relation Name", "Schema", "Alias", "Index Name", "CTE Name",
+    "Function Name", "Parent Relationship", "Subplan Name", "Plan Rows", "Actual Rows",
+    "Actual Loops", "Startup Cost", "Total Cost", "Plan Width", "Actual Startup Time",
+    "Actual Total Time", "Workers Planned", "Workers Launched", "Workers", "Plans",
+    *CONDITION_KEYS, *BUFFER_NAMES,
+}
+
+# How each node type's own error is separated from what its inputs carry in
+# (see planview.check.RULES). This table is the one the README reproduces.
+INPUT_RULES = {
+    # scans read a relation: their error is their own
+    "Seq Scan": "source", "Index Scan": "source", "Index Only Scan": "source",
+    "Bitmap Index Scan": "source", "Tid Scan": "source", "Tid Range Scan": "source",
+    "Sample Scan": "source", "Function Scan": "source", "Table Function Scan": "source",
+    "Values Scan": "source", "Foreign Scan": "source", "Named Tuplestore Scan": "source",
+    "WorkTable Scan": "source", "Custom Scan": "source",
+    # grouping estimates a number of groups: their own
+    "Aggregate": "source", "Group": "source", "Unique": "source", "SetOp": "source",
+    # joins: minus both inputs (semi/anti: minus the outer input only; see input_rule)
+    "Nested Loop": "join", "Hash Join": "join", "Merge Join": "join",
+    # pass rows through (perhaps with a filter): minus the child
+    "Hash": "pass", "Sort": "pass", "Incremental Sort": "pass", "Materialize": "pass",
+    "Memoize": "pass", "Gather": "pass", "Gather Merge": "pass", "Limit": "pass",
+    "LockRows": "pass", "Subquery Scan": "pass", "Result": "pass", "ProjectSet": "pass",
+    "WindowAgg": "pass", "ModifyTable": "pass",
+    # a heap scan driven by a bitmap: minus its bitmap child
+    "Bitmap Heap Scan": "bitmap_heap",
+    # several inputs concatenated: against the sum of the children
+    "Append": "sum", "Merge Append": "sum", "Recursive Union": "sum",
+    # bitmap combinations: PostgreSQL does not count their rows
+    "BitmapAnd": "uncounted", "BitmapOr": "uncounted",
+    # a CTE Scan re-reads its CTE: minus the CTE's own error
+    "CTE Scan": "cte",
+}
+
+AGG_STRATEGY = {"Aggregate": "Plain", "GroupAggregate": "Sorted", "HashAggregate": "Hashed",
+                "MixedAggregate": "Mixed"}
+AGG_LABEL = {v: k for k, v in AGG_STRATEGY.items()}
+SETOP_STRATEGY = {"SetOp": "Sorted", "HashSetOp": "Hashed"}
+JOIN_TYPES = ("Left", "Right", "Full", "Semi", "Anti", "Right Semi", "Right Anti")
+MODIFY_OPS = ("Insert", "Update", "Delete", "Merge")
+STATEMENT_TEXT_KEYS = ("Planning Time", "Execution Time", "Total runtime", "Planning",
+                       "JIT", "Settings", "Query Identifier", "Serialization", "Trigger",
+                       "Memory")
+# Node types whose text label carries " on <target>" after the name.
+SCAN_TYPES = {
+    "Seq Scan", "Index Scan", "Index Only Scan", "Bitmap Index Scan", "Bitmap Heap Scan",
+    "Tid Scan", "Tid Range Scan", "Sample Scan", "Function Scan", "Table Function Scan",
+    "Values Scan", "CTE Scan", "Named Tuplestore Scan", "WorkTable Scan", "Foreign Scan",
+    "Subquery Scan", "Custom Scan",
+}
+KNOWN_TYPES = set(INPUT_RULES)
+# Text prefixes the label may start with, longest first.
+TEXT_TYPES = sorted(
+    KNOWN_TYPES | set(AGG_STRATEGY) | set(SETOP_STRATEGY) | {"Parallel Hash"},
+    key=len, reverse=True,
+)
+
+
+def input_rule(node: PlanNode, nodes: list[PlanNode]) -> str:
+    rule = INPUT_RULES.get(node.operator, "pass" if node.children else "source")
+    if rule == "join":
+        if node.join_type in ("Semi", "Anti"):
+            return "semi_outer"
+        if node.join_type in ("Right Semi", "Right Anti"):
+            return "semi_inner"
+    if rule == "pass" and not [c for c in node.children if nodes[c].is_input_edge]:
+        return "source"
+    return rule
+
+
+# ---------------------------------------------------------------------------------------
+# Detection and the paste
+# ---------------------------------------------------------------------------------------
+
+_PSQL_HEADER = re.compile(r"^\s*QUERY PLAN\s*$")
+_PSQL_RULE = re.compile(r"^\s*-{3,}\s*$")
+_PSQL_FOOTER = re.compile(r"^\s*\(\d+ rows?\)\s*$")
+_PSQL_PLUS = re.compile(r"\s*\+$")
+_TEXT_NODE_HINT = re.compile(
+    r"\(cost=\d[\d.]*\.\.\d[\d.]* rows=\d+ width=\d+\)|\(actual (time=[\d.]+\.\.[\d.]+ )?rows=[\d.]+ loops=\d+\)|\(never executed\)"
+)
+
+
+def clean_paste(text: str) -> tuple[list[str], list[int]]:
+    """The plan's lines without psql's decorations, and each kept line's original number.
+
+    psql's aligned display adds a centred ``QUERY PLAN`` header, a dashed rule, a leading
+    space, a ``+`` at the end of each continued line and a ``(N rows)`` footer.
+    """
+    lines: list[str] = []
+    numbers: list[int] = []
+    for number, raw in enumerate(text.splitlines(), 1):
+        if _PSQL_HEADER.match(raw) or _PSQL_RULE.match(raw) or _PSQL_FOOTER.match(raw):
+            continue
+        line = _PSQL_PLUS.sub("", raw) if raw.endswith("+") else raw.rstrip()
+        lines.append(line)
+        numbers.append(number)
+    while lines and not lines[-1].strip():
+        lines.pop()
+        numbers.pop()
+    indents = [len(x) - len(x.lstrip(" ")) for x in lines if x.strip()]
+    cut = min(indents, default=0)
+    if cut:
+        lines = [x[cut:] for x in lines]
+    return lines, numbers
+
+
+def detect(text: str) -> tuple[str, float] | None:
+    head = text[:20000]
+    body = "\n".join(clean_paste(head)[0]).lstrip()
+    if body.startswith(("[", "{")) and ('"Node Type"' in body or '"Plan"' in body):
+        return "json", 0.95
+    if "<explain" in body and "postgresql.org/2009/explain" in body:
+        return "xml", 0.99
+    if re.match(r"^- (Plan|Query Text):", body) or re.match(r"^(Plan|Query Text):\s*$", body.split("\n", 1)[0]):
+        if "Node Type:" in body:
+            return "yaml", 0.95
+    if _TEXT_NODE_HINT.search(body):
+        first = body.split("\n", 1)[0]
+        if "width=" in body or not first.startswith("->"):
+            return "text", 0.9 if "width=" in body else 0.6
+    return None
+
+
+def parse(text: str, fmt: str) -> ParsedPlan:
+    lines, numbers = clean_paste(text)
+    if not any(x.strip() for x in lines):
+        raise PlanParseError("the input is empty", engine=NAME, fmt=fmt, line=1)
+    if fmt == "text":
+        statements = _read_text(lines, numbers)
+    elif fmt == "json":
+        statements = _read_json("\n".join(lines), numbers)
+    elif fmt == "yaml":
+        statements = _read_yaml("\n".join(lines), numbers)
+    elif fmt == "xml":
+        statements = _read_xml("\n".join(lines), numbers)
+    else:
+        raise PlanParseError(f"unknown format {fmt!r}; PostgreSQL formats: {', '.join(FORMATS)}")
+    return _build(statements, fmt)
+
+
+# ---------------------------------------------------------------------------------------
+# JSON, YAML, XML into dicts
+# ---------------------------------------------------------------------------------------
+
+def _read_json(text: str, numbers: list[int]) -> list[dict]:
+    decoder = json.JSONDecoder()
+    docs: list[Any] = []
+    pos = 0
+    length = len(text)
+    while True:
+        while pos < length and text[pos] in " \t\r\n,":
+            pos += 1
+        if pos >= length:
+            break
+        try:
+            doc, pos = decoder.raw_decode(text, pos)
+        except json.JSONDecodeError as exc:
+            line = numbers[min(exc.lineno, len(numbers)) - 1] if numbers else exc.lineno
+            raise PlanParseError(f"invalid JSON: {exc.msg} (column {exc.colno})",
+                                 line=line, engine=NAME, fmt="json") from None
+        except RecursionError:
+            raise PlanParseError(f"JSON nested too deeply (over {MAX_DEPTH} levels); refused",
+                                 engine=NAME, fmt="json") from None
+        docs.append(doc)
+    statements: list[dict] = []
+    for doc_no, doc in enumerate(docs):
+        items = doc if isinstance(doc, list) else [doc]
+        for item_no, item in enumerate(items):
+            where = f"[{item_no}]" if len(docs) == 1 else f"document {doc_no + 1}[{item_no}]"
+            if not isinstance(item, dict) or "Plan" not in item:
+                raise PlanParseError("expected an object with a \"Plan\" key", key=where,
+                                     engine=NAME, fmt="json")
+            item["__path__"] = where
+            statements.append(item)
+    return statements
+
+
+def _read_yaml(text: str, numbers: list[int]) -> list[dict]:
+    import yaml
+
+    loader = getattr(yaml, "CSafeLoader", yaml.SafeLoader)
+    try:
+        docs = list(yaml.load_all(text, Loader=loader))
+    except yaml.YAMLError as exc:
+        mark = getattr(exc, "problem_mark", None)
+        line = None
+        if mark is not None:
+            line = numbers[min(mark.line, len(numbers) - 1)] if numbers else mark.line + 1
+        problem = getattr(exc, "problem", None) or str(exc).splitlines()[0]
+        raise PlanParseError(f"invalid YAML: {problem}", line=line, engine=NAME, fmt="yaml") from None
+    except RecursionError:
+        raise PlanParseError("YAML nested too deeply; refused", engine=NAME, fmt="yaml") from None
+    statements: list[dict] = []
+    for doc in docs:
+        if doc is None:
+            continue
+        items = doc if isinstance(doc, list) else [doc]
+        for item_no, item in enumerate(items):
+            if not isinstance(item, dict) or "Plan" not in item:
+                raise PlanParseError("expected a mapping with a \"Plan\" key", key=f"[{item_no}]",
+                                     engine=NAME, fmt="yaml")
+            item["__path__"] = f"[{len(statements)}]"
+            statements.append(item)
+    return statements
+
+
+_XML_KEY_FIXES = {"One-Time-Filter": "One-Time Filter", "Pre-sorted-Groups": "Pre-sorted Groups",
+                  "Full-sort-Groups": "Full-sort Groups"}
+_XML_LIST_TAGS = {"Plans", "Output", "Sort-Key", "Group-Key", "Grouping-Sets", "Group-Keys",
+                  "Hash-Keys", "Workers", "Triggers", "Presorted-Key", "Partial-Sort-Key",
+                  "Sort-Methods-Used", "Cache-Key", "Relations"}
+
+
+def _xml_key(tag: str) -> str:
+    return _XML_KEY_FIXES.get(tag, tag.replace("-", " "))
+
+
+def _read_xml(text: str, numbers: list[int]) -> list[dict]:
+    from lxml import etree
+
+    if re.search(r"<!(DOCTYPE|ENTITY)", text, re.IGNORECASE):
+        raise PlanParseError("XML with a DOCTYPE or ENTITY declaration is refused (entities are "
+                             "never expanded)", line=_line_of(text, re.search(r"<!(DOCTYPE|ENTITY)", text, re.I).start(), numbers),
+                             engine=NAME, fmt="xml")
+    body = re.sub(r"<\?xml[^>]*\?>", "", text)
+    parser = etree.XMLParser(resolve_entities=False, no_network=True, load_dtd=False,
+                             dtd_validation=False, huge_tree=False, remove_comments=True)
+    try:
+        root = etree.fromstring(f"<planview-paste>{body}</planview-paste>".encode(), parser)
+    except etree.XMLSyntaxError as exc:
+        line = exc.lineno if exc.lineno else None
+        if line is not None and numbers:
+            line = numbers[min(line, len(numbers)) - 1]
+        raise PlanParseError(f"invalid XML: {exc.msg}", line=line, engine=NAME, fmt="xml") from None
+    statements: list[dict] = []
+    for explain in root:
+        if not isinstance(explain.tag, str) or etree.QName(explain).localname != "explain":
+            raise PlanParseError("expected <explain> elements", line=_src_line(explain, numbers),
+                                 engine=NAME, fmt="xml")
+        for query in explain:
+            if not isinstance(query.tag, str):
+                continue
+            if etree.QName(query).localname != "Query":
+                raise PlanParseError(f"expected <Query>, found <{etree.QName(query).localname}>",
+                                     line=_src_line(query, numbers), engine=NAME, fmt="xml")
+            item = _xml_to_dict(query, numbers)
+            if not isinstance(item, dict) or "Plan" not in item:
+                raise PlanParseError("<Query> without <Plan>", line=_src_line(query, numbers),
+                                     engine=NAME, fmt="xml")
+            item["__path__"] = f"Query[{len(statements)}]"
+            statements.append(item)
+    if not statements:
+        raise PlanParseError("no <explain><Query> found", engine=NAME, fmt="xml")
+    return statements
+
+
+def _line_of(text: str, offset: int, numbers: list[int]) -> int:
+    line = text.count("\n", 0, offset)
+    return numbers[line] if line < len(numbers) else line + 1
+
+
+def _src_line(element, numbers: list[int]) -> int | None:
+    line = getattr(element, "sourceline", None)
+    if line and numbers:
+        return numbers[min(line, len(numbers)) - 1]
+    return line
+
+
+def _xml_to_dict(top, numbers: list[int]) -> Any:
+    """Element to dict/list/str without recursion (an explicit stack)."""
+    from lxml import etree
+
+    def convert_leaf(element) -> Any:
+        return (element.text or "").strip()
+
+    result: dict = {}
+    stack: list[tuple[Any, Any]] = [(top, result)]
+    while stack:
+        element, target = stack.pop()
+        for child in element:
+            if not isinstance(child.tag, str):
+                continue
+            tag = etree.QName(child).localname
+            key = _xml_key(tag)
+            kids = [c for c in child if isinstance(c.tag, str)]
+            if tag in _XML_LIST_TAGS or (kids and len(kids) > 1 and len({c.tag for c in kids}) == 1
+                                         and etree.QName(kids[0]).localname in ("Item", "Plan", "Worker", "Trigger")):
+                items: list[Any] = []
+                for kid in kids:
+                    if [c for c in kid if isinstance(c.tag, str)]:
+                        sub: dict = {}
+                        items.append(sub)
+                        stack.append((kid, sub))
+                    else:
+                        items.append(convert_leaf(kid))
+                value: Any = items
+            elif kids:
+                sub = {}
+                value = sub
+                stack.append((child, sub))
+            else:
+                value = convert_leaf(child)
+            if isinstance(target, dict):
+                target[key] = value
+    # sort out ordering: the stack reversed child order of Plans lists? No: lists are filled
+    # in document order above; only nested dicts are filled later, in place.
+    return result
+
+
+# ---------------------------------------------------------------------------------------
+# The text format into the same dicts
+# ---------------------------------------------------------------------------------------
+
+_NODE_LINE = re.compile(
+    r"^(?P<label>.*?)"
+    r"(?:  \(cost=(?P<sc>[\d.]+)\.\.(?P<tc>[\d.]+) rows=(?P<rows>\d+) width=(?P<width>\d+)\))?"
+    r"(?: ?\((?:actual (?:time=(?P<ast>[\d.]+)\.\.(?P<att>[\d.]+) )?rows=(?P<ar>[\d.]+) loops=(?P<loops>\d+)"
+    r"|(?P<never>never executed))\))?$"
+)
+_HEADER_LINE = re.compile(r"^(?:(?P<init>InitPlan \d+)(?: \(returns .*\))?|(?P<sub>SubPlan \d+)|CTE (?P<cte>.+))$")
+_WORKER_LINE = re.compile(r"^Worker (?P<n>\d+):\s+(?P<rest>.*)$")
+_ACTUAL_PART = re.compile(
+    r"actual (?:time=(?P<ast>[\d.]+)\.\.(?P<att>[\d.]+) )?rows=(?P<ar>[\d.]+) loops=(?P<loops>\d+)")
+_IDENT = r'(?:"(?:[^"]|"")+"|[^\s"]+)'
+_TARGET = re.compile(rf"^(?P<name>{_IDENT}(?:\.{_IDENT})*)(?: (?P<alias>{_IDENT}))?$")
+
+
+class _Frame:
+    __slots__ = ("node", "detail_col", "header", "owner", "last_key", "worker")
+
+    def __init__(self, node, detail_col, header=None, owner=None):
+        self.node = node
+        self.detail_col = detail_col
+        self.header = header
+        self.owner = owner
+        self.last_key = None
+        self.worker = None
+
+
+def _read_text(lines: list[str], numbers: list[int]) -> list[dict]:
+    statements: list[dict] = []
+    stmt: dict | None = None
+    stack: list[_Frame] = []
+    stmt_last_key: str | None = None
+    for index, line in enumerate(lines):
+        if not line.strip():
+            continue
+        lineno = numbers[index]
+        col = len(line) - len(line.lstrip(" "))
+        content = line[col:]
+        if content.startswith("->"):
+            if stmt is None or not stack:
+                raise PlanParseError("a child operator ('->') before any root operator", line=lineno,
+                                     engine=NAME, fmt="text")
+            label_col = col + len(content) - len(content[2:].lstrip(" "))
+            while stack and stack[-1].detail_col > col:
+                stack.pop()
+            if not stack:
+                raise PlanParseError("child operator is indented less than its parent",
+                                     line=lineno, engine=NAME, fmt="text")
+            top = stack[-1]
+            node = _text_node(content[2:].lstrip(" "), lineno)
+            if top.header is not None:
+                kind, name = top.header
+                node["Parent Relationship"] = kind
+                node["Subplan Name"] = name
+                parent = top.owner
+                stack.pop()
+            else:
+                parent = top.node
+            parent.setdefault("Plans", []).append(node)
+            if len(stack) >= MAX_DEPTH:
+                raise PlanParseError(f"plan deeper than {MAX_DEPTH} levels; refused", line=lineno,
+                                     engine=NAME, fmt="text")
+            stack.append(_Frame(node, label_col + 2))
+            continue
+        if col == 0:
+            key = content.split(":", 1)[0]
+            is_statement_key = stmt is not None and (
+                key in STATEMENT_TEXT_KEYS or key.startswith("Trigger ")
+            )
+            if is_statement_key:
+                stack = []
+                stmt_last_key = _statement_text_line(stmt, content, lineno)
+                continue
+            if stmt is not None and stack and not _NODE_LINE.match(content).group("rows") \
+                    and not _NODE_LINE.match(content).group("ar") and ":" in content:
+                # a detail line pushed to column 0 (unusual, but seen in hand-edited pastes)
+                _detail_line(stack[0], content, lineno)
+                continue
+            stmt = {"Plan": _text_node(content, lineno), "__path__": f"statement {len(statements) + 1}",
+                    "__line__": lineno}
+            statements.append(stmt)
+            stack = [_Frame(stmt["Plan"], 2)]
+            stmt_last_key = None
+            continue
+        if stmt is None:
+            raise PlanParseError("indented line before any operator", line=lineno, engine=NAME,
+                                 fmt="text")
+        if not stack:
+            # indented lines under a statement-level key (Planning:, JIT:, ...)
+            _statement_sub_line(stmt, stmt_last_key, content)
+            continue
+        while len(stack) > 1 and stack[-1].detail_col > col:
+            stack.pop()
+        top = stack[-1]
+        header = _HEADER_LINE.match(content)
+        if header and col == top.detail_col and _next_is_arrow(lines, index, col):
+            if header.group("init"):
+                kind, name = "InitPlan", content
+            elif header.group("sub"):
+                kind, name = "SubPlan", content
+            else:
+                kind, name = "InitPlan", content
+            owner = top.node if top.header is None else top.owner
+            stack.append(_Frame(None, col + 2, header=(kind, name), owner=owner))
+            continue
+        if top.header is not None:
+            raise PlanParseError(f"expected an operator ('->') under {top.header[1]!r}",
+                                 line=lineno, engine=NAME, fmt="text")
+        if col > top.detail_col:
+            _nested_detail_line(top, content, lineno)
+        else:
+            _detail_line(top, content, lineno)
+    if not statements:
+        raise PlanParseError("no operator line found", line=numbers[0] if numbers else 1,
+                             engine=NAME, fmt="text")
+    return statements
+
+
+def _next_is_arrow(lines: list[str], index: int, col: int) -> bool:
+    for line in lines[index + 1:]:
+        if line.strip():
+            stripped = line.lstrip(" ")
+            return stripped.startswith("->") and len(line) - len(stripped) > col
+    return False
+
+
+def _text_node(text: str, lineno: int) -> dict:
+    match = _NODE_LINE.match(text)
+    if match is None or not match.group("label").strip():
+        raise PlanParseError(f"cannot read operator line {text[:80]!r}", line=lineno,
+                             engine=NAME, fmt="text")
+    node: dict[str, Any] = {"__line__": lineno}
+    label = match.group("label").strip()
+    node.update(_label_to_keys(label, lineno))
+    node["__label__"] = label
+    if match.group("rows") is not None:
+        node["Startup Cost"] = float(match.group("sc"))
+        node["Total Cost"] = float(match.group("tc"))
+        node["Plan Rows"] = float(match.group("rows"))
+        node["Plan Width"] = float(match.group("width"))
+    if match.group("never"):
+        node["Actual Rows"] = 0.0
+        node["Actual Loops"] = 0.0
+        node["__never__"] = True
+    elif match.group("ar") is not None:
+        node["Actual Rows"] = float(match.group("ar"))
+        node["Actual Loops"] = float(match.group("loops"))
+        if "." in match.group("ar"):
+            node["__decimal_rows__"] = True
+        if match.group("ast") is not None:
+            node["Actual Startup Time"] = float(match.group("ast"))
+            node["Actual Total Time"] = float(match.group("att"))
+    return node
+
+
+def _unquote(name: str) -> str:
+    if len(name) >= 2 and name[0] == '"' and name[-1] == '"':
+        return name[1:-1].replace('""', '"')
+    return name
+
+
+def _split_qualified(name: str) -> list[str]:
+    return [_unquote(p) for p in re.findall(_IDENT, name)] if name else []
+
+
+def _label_to_keys(label: str, lineno: int) -> dict[str, Any]:
+    """The JSON keys a text label stands for ("Parallel Hash Left Join" -> Hash Join, Left)."""
+    keys: dict[str, Any] = {}
+    rest = label
+    if rest.startswith("Async "):
+        keys["Async Capable"] = True
+        rest = rest[len("Async "):]
+    keys["Parallel Aware"] = False
+    if rest.startswith("Parallel "):
+        keys["Parallel Aware"] = True
+        rest = rest[len("Parallel "):]
+    for mode in ("Partial ", "Finalize "):
+        if rest.startswith(mode):
+            keys["Partial Mode"] = mode.strip()
+            rest = rest[len(mode):]
+            break
+    for op in MODIFY_OPS:
+        if rest.startswith(op + " on "):
+            keys["Node Type"] = "ModifyTable"
+            keys["Operation"] = op
+            _target(keys, rest[len(op) + 4:], "relation")
+            return keys
+    join = re.match(r"^(Nested Loop|Hash|Merge)(?: (Left|Right Semi|Right Anti|Right|Full|Semi|Anti))?(?: Join)?$", rest)
+    if join and (join.group(1) == "Nested Loop" or rest.endswith("Join")):
+        keys["Node Type"] = "Nested Loop" if join.group(1) == "Nested Loop" else f"{join.group(1)} Join"
+        keys["Join Type"] = join.group(2) or "Inner"
+        return keys
+    for name in TEXT_TYPES:
+        if rest == name or rest.startswith(name + " "):
+            tail = rest[len(name):].strip()
+            break
+    else:
+        keys["Node Type"] = rest
+        return keys
+    if name in AGG_STRATEGY:
+        keys["Node Type"] = "Aggregate"
+        keys["Strategy"] = AGG_STRATEGY[name]
+        keys.setdefault("Partial Mode", "Simple")
+        return keys
+    if name in SETOP_STRATEGY:
+        keys["Node Type"] = "SetOp"
+        keys["Strategy"] = SETOP_STRATEGY[name]
+        if tail:
+            keys["Command"] = tail
+        return keys
+    if name == "Parallel Hash":  # "Parallel" was already stripped; kept for completeness
+        name = "Hash"
+    keys["Node Type"] = name
+    if name == "Custom Scan" and tail.startswith("("):
+        provider, _, tail = tail[1:].partition(")")
+        keys["Custom Plan Provider"] = provider
+        tail = tail.strip()
+    if name in SCAN_TYPES and tail:
+        if tail.startswith("Backward"):
+            keys["Scan Direction"] = "Backward"
+            tail = tail[len("Backward"):].strip()
+        elif name in ("Index Scan", "Index Only Scan"):
+            keys["Scan Direction"] = "Forward"
+        if tail.startswith("using "):
+            index_part, sep, tail = tail[len("using "):].partition(" on ")
+            keys["Index Name"] = _unquote(index_part)
+            if not sep:
+                tail = ""
+        elif tail.startswith("on "):
+            tail = tail[3:]
+        if name == "Bitmap Index Scan":
+            keys["Index Name"] = _unquote(tail)
+        elif tail:
+            kind = {"Function Scan": "function", "CTE Scan": "cte", "Subquery Scan": "alias",
+                    "WorkTable Scan": "cte", "Named Tuplestore Scan": "tuplestore",
+                    "Values Scan": "alias", "Table Function Scan": "alias"}.get(name, "relation")
+            _target(keys, tail, kind)
+    elif name in ("Index Scan", "Index Only Scan"):
+        keys["Scan Direction"] = "Forward"
+    return keys
+
+
+def _target(keys: dict, text: str, kind: str) -> None:
+    match = _TARGET.match(text)
+    if not match:
+        keys["Relation Name" if kind == "relation" else "__target__"] = text
+        return
+    parts = _split_qualified(match.group("name"))
+    alias = _unquote(match.group("alias")) if match.group("alias") else None
+    if kind == "alias":
+        keys["Alias"] = parts[-1]
+        return
+    if kind == "tuplestore":
+        keys["Tuplestore Name"] = parts[-1]
+        keys["Alias"] = alias or parts[-1]
+        return
+    if kind == "cte":
+        keys["CTE Name"] = parts[-1]
+        keys["Alias"] = alias or parts[-1]
+        return
+    if kind == "function":
+        keys["Function Name"] = parts[-1]
+        if len(parts) > 1:
+            keys["Schema"] = parts[-2]
+        keys["Alias"] = alias or parts[-1]
+        return
+    keys["Relation Name"] = parts[-1]
+    if len(parts) > 1:
+        keys["Schema"] = parts[-2]
+    keys["Alias"] = alias or parts[-1]
+
+
+def _parse_buffers(value: str, into: dict) -> None:
+    for part in value.split(","):
+        words = part.split()
+        if not words:
+            continue
+        area = words[0]
+        for item in words[1:]:
+            kind, _, count = item.partition("=")
+            key = BUFFER_KEYS.get((area, kind))
+            if key and count.isdigit():
+                into[key] = float(count)
+
+
+def _detail_line(frame: _Frame, content: str, lineno: int) -> None:
+    node = frame.node
+    frame.worker = None
+    worker = _WORKER_LINE.match(content)
+    if worker:
+        entry: dict[str, Any] = {"Worker Number": float(worker.group("n"))}
+        actual = _ACTUAL_PART.search(worker.group("rest"))
+        if actual:
+            entry["Actual Rows"] = float(actual.group("ar"))
+            entry["Actual Loops"] = float(actual.group("loops"))
+            if actual.group("ast"):
+                entry["Actual Startup Time"] = float(actual.group("ast"))
+                entry["Actual Total Time"] = float(actual.group("att"))
+        elif worker.group("rest").strip() != "never executed":
+            entry["__text__"] = worker.group("rest")
+        node.setdefault("Workers", []).append(entry)
+        frame.worker = entry
+        frame.last_key = "Workers"
+        return
+    key, sep, value = content.partition(": ")
+    if not sep:
+        key, value = content.rstrip(":"), ""
+    key = key.strip()
+    value = value.strip()
+    frame.last_key = key
+    if key == "Buffers":
+        _parse_buffers(value, node)
+    elif key.startswith(ROWS_REMOVED_PREFIX) or key in ("Workers Planned", "Workers Launched",
+                                                         "Index Searches"):
+        try:
+            node[key] = float(value)
+        except ValueError:
+            raise PlanParseError(f"{key} is not a number: {value!r}", line=lineno, engine=NAME,
+                                 fmt="text") from None
+    elif key in node and key in CONDITION_KEYS:
+        node[key] = f"{node[key]} AND {value}"
+    else:
+        node[key] = value
+
+
+def _nested_detail_line(frame: _Frame, content: str, lineno: int) -> None:
+    """A line indented under a detail line: a worker's figures, or a wrapped value."""
+    if frame.worker is not None:
+        key, _, value = content.partition(": ")
+        if key.strip() == "Buffers":
+            _parse_buffers(value, frame.worker)
+        else:
+            frame.worker[key.strip()] = value.strip()
+        return
+    key = frame.last_key or "Details"
+    previous = frame.node.get(key)
+    frame.node[key] = f"{previous}\n{content}" if isinstance(previous, str) and previous else content
+
+
+def _statement_text_line(stmt: dict, content: str, lineno: int) -> str:
+    key, _, value = content.partition(":")
+    key = key.strip()
+    value = value.strip()
+    if key in ("Planning Time", "Execution Time", "Total runtime"):
+        number = value.removesuffix("ms").strip()
+        try:
+            stmt["Execution Time" if key == "Total runtime" else key] = float(number)
+        except ValueError:
+            raise PlanParseError(f"{key} is not a number: {value!r}", line=lineno, engine=NAME,
+                                 fmt="text") from None
+    elif key.startswith("Trigger"):
+        stmt.setdefault("Triggers", []).append({"Trigger Name": key[len("Trigger "):], "Text": value})
+    elif key == "Settings":
+        stmt["Settings"] = dict(
+            (k.strip(), v.strip().strip("'")) for k, _, v in
+            (item.partition("=") for item in re.split(r", (?=[a-z_.]+ = )", value)) if k.strip()
+        )
+    else:
+        stmt[key] = value if value else {}
+    return key
+
+
+def _statement_sub_line(stmt: dict, key: str | None, content: str) -> None:
+    if key is None:
+        return
+    target = stmt.get(key)
+    if not isinstance(target, dict):
+        target = {}
+        stmt[key] = target
+    sub_key, _, value = content.partition(":")
+    if sub_key.strip() == "Buffers":
+        _parse_buffers(value.strip(), target)
+    else:
+        target[sub_key.strip()] = value.strip()
+
+
+# ---------------------------------------------------------------------------------------
+# Dicts into PlanNodes (one builder for all four formats)
+# ---------------------------------------------------------------------------------------
+
+def _num(value: Any, key: str, path: str, fmt: str, line: int | None) -> float | None:
+    if value is None:
+        return None
+    if isinstance(value, bool):
+        raise PlanParseError(f"expected a number, got {value!r}", key=f"{path}.\"{key}\"",
+                             line=line, engine=NAME, fmt=fmt)
+    if isinstance(value, (int, float)):
+        number = float(value)
+    elif isinstance(value, str):
+        try:
+            number = float(value.strip())
+        except ValueError:
+            raise PlanParseError(f"expected a number, got {value!r}", key=f"{path}.\"{key}\"",
+                                 line=line, engine=NAME, fmt=fmt) from None
+    else:
+        raise PlanParseError(f"expected a number, got {type(value).__name__}",
+                             key=f"{path}.\"{key}\"", line=line, engine=NAME, fmt=fmt)
+    if number != number or number in (float("inf"), float("-inf")):
+        raise PlanParseError(f"expected a finite number, got {value!r}", key=f"{path}.\"{key}\"",
+                             line=line, engine=NAME, fmt=fmt)
+    if number < 0 and key not in ("Startup Cost", "Total Cost"):
+        raise PlanParseError(f"negative count {value!r}", key=f"{path}.\"{key}\"", line=line,
+                             engine=NAME, fmt=fmt)
+    return number
+
+
+def _bool(value: Any, key: str, path: str, fmt: str, line: int | None) -> bool | None:
+    if value is None or isinstance(value, bool):
+        return value
+    if isinstance(value, str) and value.strip().lower() in ("true", "false"):
+        return value.strip().lower() == "true"
+    raise PlanParseError(f"expected true or false, got {value!r}", key=f"{path}.\"{key}\"",
+                         line=line, engine=NAME, fmt=fmt)
+
+
+def _text(value: Any, key: str, path: str, fmt: str, line: int | None) -> str | None:
+    if value is None:
+        return None
+    if isinstance(value, (str, int, float)) and not isinstance(value, bool):
+        return str(value)
+    raise PlanParseError(f"expected text, got {type(value).__name__}", key=f"{path}.\"{key}\"",
+                         line=line, engine=NAME, fmt=fmt)
+
+
+def compose_label(node: PlanNode) -> str:
+    """The label the text format prints for a node, rebuilt from its keys."""
+    op = node.operator
+    name = op
+    if op == "Aggregate":
+        name = AGG_LABEL.get(node.strategy or "Plain", "Aggregate")
+    elif op == "SetOp":
+        name = "HashSetOp" if node.strategy == "Hashed" else "SetOp"
+        if node.extra.get("Command"):
+            name += f" {node.extra['Command']}"
+    elif op in ("Nested Loop", "Hash Join", "Merge Join"):
+        base = op.removesuffix(" Join")
+        jt = node.join_type or "Inner"
+        if jt == "Inner":
+            name = "Nested Loop" if op == "Nested Loop" else op
+        else:
+            name = f"{base} {jt} Join"
+    elif op == "ModifyTable":
+        name = f"{node.operation or 'Modify'} on"
+    if node.partial_mode in ("Partial", "Finalize"):
+        name = f"{node.partial_mode} {name}"
+    if node.parallel_aware:
+        name = f"Parallel {name}"
+    if node.extra.get("Async Capable") is True:
+        name = f"Async {name}"
+    if op == "Custom Scan" and node.extra.get("Custom Plan Provider"):
+        name += f" ({node.extra['Custom Plan Provider']})"
+
+    def quote(ident: str | None) -> str:
+        if ident is None:
+            return ""
+        if re.fullmatch(r"[a-z_][a-z0-9_$]*", ident):
+            return ident
+        return '"' + ident.replace('"', '""') + '"'
+
+    def target(obj: str | None) -> str:
+        qualified = f"{quote(node.schema)}.{quote(obj)}" if node.schema else quote(obj)
+        if node.alias and node.alias != obj:
+            return f"{qualified} {quote(node.alias)}"
+        return qualified
+
+    if op in ("Index Scan", "Index Only Scan"):
+        if node.scan_direction == "Backward":
+            name += " Backward"
+        if node.index:
+            name += f" using {quote(node.index)}"
+    if op == "Bitmap Index Scan" and node.index:
+        return f"{name} on {quote(node.index)}"
+    if op == "ModifyTable":
+        return f"{name} {target(node.relation)}"
+    if node.relation:
+        return f"{name} on {target(node.relation)}"
+    if op == "Function Scan" and node.function_name:
+        return f"{name} on {target(node.function_name)}"
+    if op in ("CTE Scan", "WorkTable Scan") and node.cte_name:
+        text = f"{name} on {quote(node.cte_name)}"
+        if node.alias and node.alias != node.cte_name:
+            text += f" {quote(node.alias)}"
+        return text
+    if op in ("Subquery Scan", "Values Scan", "Table Function Scan") and node.alias:
+        return f"{name} on {quote(node.alias)}"
+    if op == "Named Tuplestore Scan" and node.extra.get("Tuplestore Name"):
+        return f"{name} on {quote(node.extra['Tuplestore Name'])}"
+    return name
+
+
+def _build(statements: list[dict], fmt: str) -> ParsedPlan:
+    nodes: list[PlanNode] = []
+    stmts: list[Statement] = []
+    version: str | None = None
+    has_actuals = False
+    decimal_rows = False
+    for stmt_no, stmt in enumerate(statements):
+        path = stmt.pop("__path__", f"[{stmt_no}]")
+        stmt_line = stmt.pop("__line__", None)
+        plan = stmt.get("Plan")
+        if not isinstance(plan, dict):
+            raise PlanParseError("\"Plan\" is not an object", key=f"{path}.Plan", line=stmt_line,
+                                 engine=NAME, fmt=fmt)
+        root_id = len(nodes)
+        # iterative pre-order: (dict, parent id, depth, key path, position among siblings)
+        todo: list[tuple[dict, int | None, int, str, int]] = [(plan, None, 0, f"{path}.Plan", 0)]
+        while todo:
+            raw, parent, depth, key_path, position = todo.pop()
+            if depth > MAX_DEPTH:
+                raise PlanParseError(f"plan deeper than {MAX_DEPTH} levels; refused", key=key_path,
+                                     engine=NAME, fmt=fmt)
+            node = _node_from_dict(raw, len(nodes), parent, depth, stmt_no, key_path, fmt)
+            if parent is not None:
+                nodes[parent].children.append(node.id)
+                if node.parent_relationship is None:
+                    node.parent_relationship = _text_relationship(nodes[parent], position)
+            nodes.append(node)
+            if node.actual_rows is not None:
+                has_actuals = True
+            decimal_rows = decimal_rows or bool(raw.get("__decimal_rows__"))
+            kids = raw.get("Plans") or []
+            if not isinstance(kids, list):
+                raise PlanParseError("\"Plans\" is not a list", key=f"{key_path}.Plans",
+                                     engine=NAME, fmt=fmt, line=raw.get("__line__"))
+            for i in range(len(kids) - 1, -1, -1):
+                if not isinstance(kids[i], dict):
+                    raise PlanParseError("a plan is not an object", key=f"{key_path}.Plans[{i}]",
+                                         engine=NAME, fmt=fmt)
+                todo.append((kids[i], node.id, depth + 1, f"{key_path}.Plans[{i}]", i))
+        if fmt == "text":
+            _fix_text_relationships(nodes, root_id)
+        statement = Statement(root=root_id)
+        line = stmt_line
+        statement.planning_ms = _num(stmt.get("Planning Time"), "Planning Time", path, fmt, line)
+        statement.execution_ms = _num(stmt.get("Execution Time", stmt.get("Total Runtime")),
+                                      "Execution Time", path, fmt, line)
+        statement.query_text = stmt.get("Query Text") if isinstance(stmt.get("Query Text"), str) else None
+        triggers = stmt.get("Triggers")
+        statement.triggers = [t for t in triggers if isinstance(t, dict)] if isinstance(triggers, list) else []
+        settings = stmt.get("Settings")
+        statement.settings = dict(settings) if isinstance(settings, dict) else {}
+        statement.extra = {k: v for k, v in stmt.items()
+                           if k not in ("Plan", "Planning Time", "Execution Time", "Query Text",
+                                        "Triggers", "Settings", "Total Runtime")}
+        stmts.append(statement)
+    notes = []
+    if decimal_rows:
+        version = "18"
+    if not has_actuals:
+        notes.append("no actuals: this is EXPLAIN without ANALYZE, so estimates cannot be checked")
+    return ParsedPlan(engine=NAME, format=fmt, nodes=nodes, statements=stmts,
+                      engine_version=version, has_actuals=has_actuals, notes=notes)
+
+
+def _text_relationship(parent: PlanNode, position: int) -> str:
+    if parent.operator in ("Append", "Merge Append", "BitmapAnd", "BitmapOr", "Custom Scan"):
+        return "Member"
+    if parent.operator == "Subquery Scan":
+        return "Subquery"
+    return "__ordinal__"
+
+
+def _fix_text_relationships(nodes: list[PlanNode], root_id: int) -> None:
+    """Text does not print Outer/Inner: the first input child is Outer, the second Inner."""
+    for node in nodes[root_id:]:
+        ordinal = [c for c in node.children if nodes[c].parent_relationship == "__ordinal__"]
+        for i, child in enumerate(ordinal):
+            nodes[child].parent_relationship = "Outer" if i == 0 else "Inner"
+
+
+def _node_from_dict(raw: dict, node_id: int, parent: int | None, depth: int, stmt_no: int,
+                    path: str, fmt: str) -> PlanNode:
+    line = raw.get("__line__")
+    node_type = raw.get("Node Type")
+    if not isinstance(node_type, str) or not node_type:
+        raise PlanParseError("missing or invalid \"Node Type\"", key=f"{path}.\"Node Type\"",
+                             line=line, engine=NAME, fmt=fmt)
+    node = PlanNode(id=node_id, parent=parent, operator=node_type, label="", statement=stmt_no,
+                    depth=depth)
+    node.strategy = _text(raw.get("Strategy"), "Strategy", path, fmt, line)
+    node.partial_mode = _text(raw.get("Partial Mode"), "Partial Mode", path, fmt, line)
+    node.join_type = _text(raw.get("Join Type"), "Join Type", path, fmt, line)
+    node.operation = _text(raw.get("Operation"), "Operation", path, fmt, line)
+    node.parallel_aware = _bool(raw.get("Parallel Aware"), "Parallel Aware", path, fmt, line)
+    node.scan_direction = _text(raw.get("Scan Direction"), "Scan Direction", path, fmt, line)
+    node.relation = _text(raw.get("Relation Name"), "Relation Name", path, fmt, line)
+    node.schema = _text(raw.get("Schema"), "Schema", path, fmt, line)
+    node.alias = _text(raw.get("Alias"), "Alias", path, fmt, line)
+    node.index = _text(raw.get("Index Name"), "Index Name", path, fmt, line)
+    node.cte_name = _text(raw.get("CTE Name"), "CTE Name", path, fmt, line)
+    node.function_name = _text(raw.get("Function Name"), "Function Name", path, fmt, line)
+    node.parent_relationship = _text(raw.get("Parent Relationship"), "Parent Relationship", path,
+                                     fmt, line)
+    node.subplan_name = _text(raw.get("Subplan Name"), "Subplan Name", path, fmt, line)
+    if node.operator in ("Nested Loop", "Hash Join", "Merge Join") and node.join_type is None:
+        node.join_type = "Inner"
+    if node.operator == "Aggregate" and node.partial_mode is None:
+        node.partial_mode = "Simple"
+    node.est_rows = _num(raw.get("Plan Rows"), "Plan Rows", path, fmt, line)
+    node.startup_cost = _num(raw.get("Startup Cost"), "Startup Cost", path, fmt, line)
+    node.total_cost = _num(raw.get("Total Cost"), "Total Cost", path, fmt, line)
+    node.width = _num(raw.get("Plan Width"), "Plan Width", path, fmt, line)
+    loops = _num(raw.get("Actual Loops"), "Actual Loops", path, fmt, line)
+    rows = _num(raw.get("Actual Rows"), "Actual Rows", path, fmt, line)
+    if loops is not None or rows is not None:
+        node.starts = loops if loops is not None else 1.0
+        node.executed = bool(node.starts) and not raw.get("__never__")
+        node.actual_rows = rows if node.executed else None
+        if node.executed:
+            node.actual_startup_ms = _num(raw.get("Actual Startup Time"), "Actual Startup Time",
+                                          path, fmt, line)
+            node.actual_total_ms = _num(raw.get("Actual Total Time"), "Actual Total Time", path,
+                                        fmt, line)
+    planned = _num(raw.get("Workers Planned"), "Workers Planned", path, fmt, line)
+    launched = _num(raw.get("Workers Launched"), "Workers Launched", path, fmt, line)
+    node.workers_planned = int(planned) if planned is not None else None
+    node.workers_launched = int(launched) if launched is not None else None
+    for key, kind in CONDITION_KEYS.items():
+        value = raw.get(key)
+        if value is None or value == "":
+            continue
+        text = _text(value, key, path, fmt, line)
+        node.conditions.append(Condition(kind=kind, text=text, key=key))
+    for key, value in raw.items():
+        if key.startswith(ROWS_REMOVED_PREFIX):
+            count = _num(value, key, path, fmt, line)
+            if count:
+                node.rows_removed[key[len(ROWS_REMOVED_PREFIX):]] = count
+    for key in BUFFER_NAMES:
+        count = _num(raw.get(key), key, path, fmt, line)
+        if count:
+            node.buffers[key] = count
+    workers = raw.get("Workers")
+    if isinstance(workers, list):
+        for i, worker in enumerate(workers):
+            if not isinstance(worker, dict):
+                continue
+            wpath = f"{path}.Workers[{i}]"
+            entry = {
+                "worker": int(_num(worker.get("Worker Number"), "Worker Number", wpath, fmt, line) or 0),
+                "actual_rows": _num(worker.get("Actual Rows"), "Actual Rows", wpath, fmt, line),
+                "loops": _num(worker.get("Actual Loops"), "Actual Loops", wpath, fmt, line),
+            }
+            node.workers.append(entry)
+    for key, value in raw.items():
+        if key in FIELD_KEYS or key.startswith("__") or key.startswith(ROWS_REMOVED_PREFIX):
+            continue
+        node.extra[key] = value
+    if node.extra.get("Async Capable") in ("false", False):
+        node.extra["Async Capable"] = False
+    if node.extra.get("Async Capable") == "true":
+        node.extra["Async Capable"] = True
+    if node.parallel_aware is None:
+        node.parallel_aware = False
+    node.label = raw.get("__label__") or compose_label(node)
+    return node

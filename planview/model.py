@@ -1,0 +1,145 @@
+"""The one normalised operator tree that every engine's parser produces.
+
+Every engine module turns its output into `PlanNode`s; everything after parsing (the
+check, the diagnosis, the widget, the exports) reads only these types. Engine-specific
+keys that have no field here are kept, unchanged, in `PlanNode.extra`.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from typing import Any
+
+
+@dataclass
+class Condition:
+    """One condition the engine printed on a node.
+
+    `kind` is normalised (``filter``, ``index_cond``, ``recheck_cond``, ``join_filter``,
+    ``hash_cond``, ``merge_cond``, ``one_time_filter``, ``tid_cond``, ``run_condition``, ...);
+    `key` is the engine's own spelling (``"Index Cond"``).
+    """
+
+    kind: str
+    text: str
+    key: str = ""
+
+
+@dataclass
+class PlanNode:
+    """One operator. Row counts are *per start*, exactly as the engine printed them.
+
+    The check fills the fields from `est_total` on; a parser leaves them at their defaults.
+    """
+
+    id: int
+    parent: int | None
+    operator: str
+    label: str
+    children: list[int] = field(default_factory=list)
+    statement: int = 0
+    depth: int = 0
+    # names
+    relation: str | None = None
+    alias: str | None = None
+    schema: str | None = None
+    index: str | None = None
+    function_name: str | None = None
+    cte_name: str | None = None
+    subplan_name: str | None = None
+    parent_relationship: str | None = None
+    # details of the operator
+    join_type: str | None = None
+    strategy: str | None = None
+    partial_mode: str | None = None
+    parallel_aware: bool | None = None
+    operation: str | None = None
+    scan_direction: str | None = None
+    conditions: list[Condition] = field(default_factory=list)
+    rows_removed: dict[str, float] = field(default_factory=dict)
+    # the numbers
+    est_rows: float | None = None
+    actual_rows: float | None = None
+    starts: float | None = None
+    executed: bool | None = None
+    startup_cost: float | None = None
+    total_cost: float | None = None
+    width: float | None = None
+    actual_startup_ms: float | None = None
+    actual_total_ms: float | None = None
+    workers_planned: int | None = None
+    workers_launched: int | None = None
+    buffers: dict[str, float] = field(default_factory=dict)
+    workers: list[dict[str, Any]] = field(default_factory=list)
+    extra: dict[str, Any] = field(default_factory=dict)
+    # filled by planview.check
+    est_total: float | None = None
+    actual_total: float | None = None
+    q_error: float | None = None
+    log10_ratio: float | None = None
+    own_log10_ratio: float | None = None
+    judged: bool = False
+    not_judged_reason: str | None = None
+    origin: bool = False
+    inherits_from: list[int] = field(default_factory=list)
+    own_rule: str | None = None
+    derived: list[str] = field(default_factory=list)
+
+    def condition_texts(self, *kinds: str) -> list[str]:
+        """The texts of this node's conditions of the given kinds (all kinds if none given)."""
+        return [c.text for c in self.conditions if not kinds or c.kind in kinds]
+
+    @property
+    def is_input_edge(self) -> bool:
+        """True when this node feeds rows to its parent (not an InitPlan or SubPlan)."""
+        return self.parent_relationship not in ("InitPlan", "SubPlan")
+
+
+@dataclass
+class Statement:
+    """One statement of a paste: its root node and the statement-level figures."""
+
+    root: int
+    planning_ms: float | None = None
+    execution_ms: float | None = None
+    query_text: str | None = None
+    triggers: list[dict[str, Any]] = field(default_factory=list)
+    settings: dict[str, Any] = field(default_factory=dict)
+    extra: dict[str, Any] = field(default_factory=dict)
+
+
+@dataclass
+class ParsedPlan:
+    """What an engine module returns: nodes in pre-order (a forest, one tree a statement)."""
+
+    engine: str
+    format: str
+    nodes: list[PlanNode]
+    statements: list[Statement]
+    engine_version: str | None = None
+    has_actuals: bool = True
+    notes: list[str] = field(default_factory=list)
+
+
+@dataclass
+class Finding:
+    """One origin of a misestimate: where it was introduced, and what probably caused it.
+
+    The check creates one per origin with the numbers; the diagnosis fills `cause`, `also`,
+    `confidence`, `evidence`, `fix`, `caution` and `impact`.
+    """
+
+    node: int
+    q_error: float
+    own_q_error: float
+    direction: str
+    cause: str | None = None
+    also: list[str] = field(default_factory=list)
+    confidence: float | None = None
+    confidence_reason: str | None = None
+    evidence: dict[str, Any] = field(default_factory=dict)
+    summary: str = ""
+    fix: str | None = None
+    caution: str | None = None
+    impact: dict[str, Any] = field(default_factory=dict)
+    rank: int = 0

@@ -1,0 +1,143 @@
+"""`Plan`: a parsed, checked and diagnosed plan, and `load`, the one way to get one."""
+
+from __future__ import annotations
+
+import json
+import os
+from typing import Any
+
+from . import engines
+from .check import CheckOptions, check
+from .errors import PlanParseError
+from .model import Finding, ParsedPlan, PlanNode, Statement
+from .source import read_text
+
+
+class Plan:
+    """A plan with every node checked and every origin diagnosed.
+
+    Every view (the terminal table, the JSON report, the DataFrame, the widget, the HTML and
+    Markdown exports) is made from `report()`, so none of them re-derives a number.
+    """
+
+    def __init__(self, parsed: ParsedPlan, engine_module, options: CheckOptions, source: str = ""):
+        self.engine = parsed.engine
+        self.format = parsed.format
+        self.engine_version = parsed.engine_version
+        self.has_actuals = parsed.has_actuals
+        self.notes = list(parsed.notes)
+        self.nodes: list[PlanNode] = parsed.nodes
+        self.statements: list[Statement] = parsed.statements
+        self.options = options
+        self.source = source
+        self._engine_module = engine_module
+        self.findings: list[Finding] = check(parsed, engine_module.input_rule, options)
+        from .diagnose import diagnose
+
+        diagnose(self)
+        self._report: dict[str, Any] | None = None
+
+    # -- views ------------------------------------------------------------------------
+    @property
+    def origins(self) -> list[PlanNode]:
+        return [self.nodes[f.node] for f in self.findings]
+
+    @property
+    def sql_dialect(self) -> str | None:
+        return getattr(self._engine_module, "SQL_DIALECT", None)
+
+    def report(self) -> dict[str, Any]:
+        """The JSON report (stable keys; later versions add keys, never remove them)."""
+        if self._report is None:
+            from .report import build_report
+
+            self._report = build_report(self)
+        return self._report
+
+    def to_json(self, indent: int | None = 2) -> str:
+        return json.dumps(self.report(), indent=indent, ensure_ascii=False, allow_nan=False)
+
+    def to_frame(self):
+        """A pandas DataFrame, one row a node, with every number of the check."""
+        import pandas as pd
+
+        rows = []
+        for node in self.report()["nodes"]:
+            row = {k: v for k, v in node.items() if not isinstance(v, (list, dict))}
+            row["conditions"] = "; ".join(f"{c['kind']}: {c['text']}" for c in node["conditions"])
+            row["inherits_from"] = ",".join(str(i) for i in node["inherits_from"])
+            rows.append(row)
+        frame = pd.DataFrame(rows)
+        return frame.set_index("id") if not frame.empty else frame
+
+    def to_text(self, width: int | None = None, color: bool = False) -> str:
+        from .textreport import render
+
+        return render(self, width=width, color=color)
+
+    def to_markdown(self, path: str | os.PathLike | None = None) -> str:
+        from .export.markdown import render_markdown
+
+        text = render_markdown(self)
+        if path is not None:
+            with open(path, "w", encoding="utf-8") as handle:
+                handle.write(text)
+        return text
+
+    def to_html(self, path: str | os.PathLike | None = None) -> str:
+        from .export.html import render_html
+
+        page = render_html(self)
+        if path is not None:
+            with open(path, "w", encoding="utf-8") as handle:
+                handle.write(page)
+        return page
+
+    def worst_q_error(self) -> float:
+        return max((f.own_q_error for f in self.findings), default=1.0)
+
+    def __repr__(self) -> str:
+        return (f"<Plan {self.engine} {self.format}: {len(self.nodes)} nodes, "
+                f"{len(self.findings)} origin(s)>")
+
+    def _repr_html_(self) -> str:
+        from .export.html import render_static_tree
+
+        return render_static_tree(self)
+
+    def _repr_mimebundle_(self, include=None, exclude=None):
+        try:
+            from .widget import PlanWidget
+
+            widget = PlanWidget(self)
+            bundle = widget._repr_mimebundle_(include=include, exclude=exclude)
+        except Exception:  # no widget front end or widget libs: fall back to static HTML
+            bundle = None
+        data = {"text/plain": repr(self), "text/html": self._repr_html_()}
+        if isinstance(bundle, tuple):
+            bundle = bundle[0]
+        if isinstance(bundle, dict):
+            data.update(bundle)
+        return data
+
+
+def load(source: str | bytes | os.PathLike, *, engine: str | None = None, fmt: str | None = None,
+         threshold: float = 10.0) -> Plan:
+    """Read a plan (text, bytes or a path), detect its engine and format, check it.
+
+    Raises `PlanParseError`, naming the line or key at fault, for anything unreadable.
+    """
+    if not (isinstance(threshold, (int, float)) and threshold > 1):
+        raise PlanParseError(f"threshold must be a q-error above 1, got {threshold!r}")
+    text = read_text(source)
+    module, found_fmt = engines.detect(text, engine=engine, fmt=fmt)
+    try:
+        parsed = module.parse(text, found_fmt)
+    except PlanParseError:
+        raise
+    except RecursionError:
+        raise PlanParseError("plan nested too deeply to read; refused", engine=module.NAME,
+                             fmt=found_fmt) from None
+    if not parsed.nodes:
+        raise PlanParseError("no operator found", engine=module.NAME, fmt=found_fmt)
+    return Plan(parsed, module, CheckOptions(threshold=float(threshold)), source=text)

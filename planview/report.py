@@ -1,0 +1,104 @@
+"""The report: one walk over a checked plan, the data every view and export is made from."""
+
+from __future__ import annotations
+
+import math
+from typing import Any
+
+REPORT_VERSION = 1
+
+
+def _clean(value: Any) -> Any:
+    """JSON-safe: finite floats rounded for reading, everything else as it is."""
+    if isinstance(value, float):
+        if not math.isfinite(value):
+            return None
+        return round(value, 6)
+    return value
+
+
+def node_record(node) -> dict[str, Any]:
+    return {
+        "id": node.id,
+        "parent": node.parent,
+        "children": list(node.children),
+        "statement": node.statement,
+        "depth": node.depth,
+        "operator": node.operator,
+        "label": node.label,
+        "relation": node.relation,
+        "alias": node.alias,
+        "schema": node.schema,
+        "index": node.index,
+        "function_name": node.function_name,
+        "cte_name": node.cte_name,
+        "subplan_name": node.subplan_name,
+        "parent_relationship": node.parent_relationship,
+        "join_type": node.join_type,
+        "strategy": node.strategy,
+        "partial_mode": node.partial_mode,
+        "parallel_aware": node.parallel_aware,
+        "operation": node.operation,
+        "conditions": [{"kind": c.kind, "key": c.key, "text": c.text} for c in node.conditions],
+        "rows_removed": {k: _clean(v) for k, v in node.rows_removed.items()},
+        "est_rows": _clean(node.est_rows),
+        "actual_rows": _clean(node.actual_rows),
+        "starts": _clean(node.starts),
+        "est_total": _clean(node.est_total),
+        "actual_total": _clean(node.actual_total),
+        "q_error": _clean(node.q_error),
+        "log10_ratio": _clean(node.log10_ratio),
+        "own_log10_ratio": _clean(node.own_log10_ratio),
+        "own_rule": node.own_rule,
+        "executed": node.executed,
+        "judged": node.judged,
+        "not_judged_reason": node.not_judged_reason,
+        "origin": node.origin,
+        "inherits_from": list(node.inherits_from),
+        "derived": list(node.derived),
+        "startup_cost": _clean(node.startup_cost),
+        "total_cost": _clean(node.total_cost),
+        "actual_startup_ms": _clean(node.actual_startup_ms),
+        "actual_total_ms": _clean(node.actual_total_ms),
+        "workers_planned": node.workers_planned,
+        "workers_launched": node.workers_launched,
+        "buffers": {k: _clean(v) for k, v in node.buffers.items()},
+    }
+
+
+def finding_record(finding) -> dict[str, Any]:
+    return {
+        "node": finding.node,
+        "rank": finding.rank,
+        "q_error": _clean(finding.q_error),
+        "own_q_error": _clean(finding.own_q_error),
+        "direction": finding.direction,
+        "cause": finding.cause,
+        "also": list(finding.also),
+        "confidence": _clean(finding.confidence),
+        "confidence_reason": finding.confidence_reason,
+        "summary": finding.summary,
+        "evidence": finding.evidence,
+        "fix": finding.fix,
+        "caution": finding.caution,
+        "impact": finding.impact,
+    }
+
+
+def build_report(plan) -> dict[str, Any]:
+    return {
+        "report_version": REPORT_VERSION,
+        "engine": plan.engine,
+        "format": plan.format,
+        "engine_version": plan.engine_version,
+        "has_actuals": plan.has_actuals,
+        "threshold": plan.options.threshold,
+        "notes": list(plan.notes),
+        "statements": [
+            {"root": s.root, "planning_ms": _clean(s.planning_ms),
+             "execution_ms": _clean(s.execution_ms), "query_text": s.query_text}
+            for s in plan.statements
+        ],
+        "nodes": [node_record(n) for n in plan.nodes],
+        "findings": [finding_record(f) for f in plan.findings],
+    }

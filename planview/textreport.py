@@ -1,0 +1,87 @@
+"""The terminal table: the tree with its numbers, origins marked, and the findings below."""
+
+from __future__ import annotations
+
+import shutil
+
+
+def _num(value) -> str:
+    if value is None:
+        return "-"
+    if abs(value) >= 1e7:
+        return f"{value:.3g}"
+    if float(value).is_integer():
+        return f"{value:,.0f}"
+    return f"{value:,.2f}"
+
+
+def _mark(node: dict, by_id: dict) -> str:
+    if node["origin"]:
+        return "<< origin"
+    if node["inherits_from"]:
+        return "inherits #" + ",#".join(str(i) for i in node["inherits_from"][:3])
+    if not node["judged"]:
+        return f"({node['not_judged_reason']})" if node["not_judged_reason"] else ""
+    return ""
+
+
+def _direction(node: dict) -> str:
+    ratio = node["log10_ratio"]
+    if ratio is None:
+        return ""
+    if abs(ratio) < 1e-9:
+        return "="
+    return "under" if ratio > 0 else "over"
+
+
+def render(plan, width: int | None = None, color: bool = False) -> str:
+    report = plan.report()
+    width = width or shutil.get_terminal_size((120, 24)).columns
+    nodes = report["nodes"]
+    by_id = {n["id"]: n for n in nodes}
+    label_width = max(24, min(60, width - 68))
+    lines = [
+        f"planview: {report['engine']} ({report['format']}"
+        + (f", version {report['engine_version']}" if report["engine_version"] else "")
+        + f"), {len(nodes)} operators, {len(report['findings'])} origin(s) at q >= {report['threshold']:g}",
+    ]
+    lines += [f"note: {note}" for note in report["notes"]]
+    header = f"{'#':>4}  {'operator':<{label_width}} {'est total':>11} {'actual':>11} {'starts':>8} {'q-error':>9} {'dir':<5}  mark"
+    lines += [header, "-" * min(width, len(header) + 20)]
+    for node in nodes:
+        prefix = "  " * node["depth"]
+        rel = node["parent_relationship"]
+        if rel in ("InitPlan", "SubPlan") and node["subplan_name"]:
+            prefix += f"[{node['subplan_name']}] "
+        label = (prefix + node["label"])
+        if len(label) > label_width:
+            label = label[: label_width - 1] + "~"
+        q = node["q_error"]
+        q_text = "-" if q is None else (f"{q:,.1f}" if q < 1000 else f"{q:.2e}")
+        row = (f"{node['id']:>4}  {label:<{label_width}} {_num(node['est_total']):>11} "
+               f"{_num(node['actual_total']):>11} {_num(node['starts']):>8} {q_text:>9} "
+               f"{_direction(node):<5}  {_mark(node, by_id)}")
+        if color and node["origin"]:
+            row = f"\x1b[1m{row}\x1b[0m"
+        lines.append(row.rstrip())
+    if report["findings"]:
+        lines += ["", "Origins (where an error was introduced), most impact first:"]
+    for finding in report["findings"]:
+        node = by_id[finding["node"]]
+        lines.append(
+            f"{finding['rank']}. #{node['id']} {node['label']}: {finding['direction']}estimated "
+            f"x{finding['own_q_error']:,.1f} here (x{finding['q_error']:,.1f} in all)"
+        )
+        if finding["cause"]:
+            confidence = finding["confidence"]
+            lines.append(f"   cause: {finding['cause']}"
+                         + (f" (confidence {confidence:.2f})" if confidence is not None else "")
+                         + (f"; also: {', '.join(finding['also'])}" if finding["also"] else ""))
+        if finding["summary"]:
+            lines.append(f"   {finding['summary']}")
+        if finding["fix"]:
+            lines.append("   fix:")
+            lines += [f"     {line}" for line in finding["fix"].splitlines()]
+        if finding["caution"]:
+            lines.append(f"   caution: {finding['caution']}")
+    return "\n".join(lines) + "\n"
