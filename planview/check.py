@@ -34,11 +34,6 @@ RULES = {
     "uncounted": "not judged: the engine does not count this node's rows (BitmapAnd, BitmapOr)",
 }
 
-# Node types that read all their input before they emit a row: a consumer that stops early
-# does not cut their input short. Everything else streams, and passes the early stop down.
-BLOCKING = {"Sort", "Hash", "Incremental Sort", "SetOp"}
-
-
 @dataclass
 class CheckOptions:
     threshold: float = 10.0
@@ -46,35 +41,59 @@ class CheckOptions:
     magnitude, "the same order of magnitude" rule)."""
 
 
-def parallel_divisor(workers: int, leader_participates: bool = True) -> float:
-    """PostgreSQL's divisor for per-process estimates (get_parallel_divisor, costsize.c)."""
-    divisor = float(workers)
-    if leader_participates:
-        leader = 1.0 - 0.3 * workers
-        if leader > 0:
-            divisor += leader
-    return divisor or 1.0
-
-
 def log_ratio(est_total: float, actual_total: float) -> float:
     return math.log10(max(actual_total, 1.0) / max(est_total, 1.0))
 
 
-def check(parsed: ParsedPlan, input_rule, options: CheckOptions | None = None) -> list[Finding]:
-    """Fill the check fields of every node and return one finding per origin."""
+@dataclass
+class Role:
+    """What an engine module says about one node, so the check needs no operator names.
+
+    - `rule`: how its own error is separated from its inputs' (a key of `RULES`);
+    - `blocking`: it reads all its input before it emits (Sort, Hash, hashed grouping), so a
+      consumer that stops early does not cut its input short;
+    - `limit`: it stops asking for rows once it has enough (Limit, Top-N);
+    - `complete_inputs`: inputs that run to the end even when this node is cut short (the
+      inner side of a nested loop, the build side of a hash join);
+    - `stops_inputs`: inputs it always stops reading early, with the reason (the inner side of
+      a nested-loop semi join, an EXISTS sub-plan);
+    - `overestimate_unjudged`: inputs whose overestimate cannot be told from an early stop
+      (both sides of a merge join);
+    - `partial`: its estimate is per parallel process, with this divisor (None: not partial);
+    - `preserved`: for an outer join, which input it emits whole (``outer``, ``inner``, ``both``);
+    - `reads`: the id of a node whose output this one re-reads (a CTE Scan's CTE).
+    """
+
+    rule: str = "source"
+    blocking: bool = False
+    limit: bool = False
+    complete_inputs: tuple[int, ...] = ()
+    stops_inputs: dict[int, str] | None = None
+    overestimate_unjudged: tuple[int, ...] = ()
+    partial: float | None = None
+    preserved: str | None = None
+    reads: int | None = None
+
+
+def check(parsed: ParsedPlan, engine, options: CheckOptions | None = None) -> list[Finding]:
+    """Fill the check fields of every node and return one finding per origin.
+
+    `engine` is the engine module: its `role(node, nodes, parsed)` describes each node and
+    its optional `repair(parsed)` fixes figures the engine printed too coarsely.
+    """
     options = options or CheckOptions()
     nodes = parsed.nodes
     threshold = math.log10(options.threshold)
-    leader = {s.root: str(s.settings.get("parallel_leader_participation", "on")).lower() != "off"
-              for s in parsed.statements}
-    _totals(nodes, leader)
-    _bounds_from_parents(nodes, parsed.engine_version)
-    _judge(nodes, input_rule)
+    roles = [engine.role(node, nodes, parsed) for node in nodes]
+    _totals(nodes, roles)
+    if hasattr(engine, "repair"):
+        engine.repair(parsed)
+    _judge(nodes, roles)
     for node in nodes:
         if node.est_total is not None and node.actual_total is not None:
             node.log10_ratio = log_ratio(node.est_total, node.actual_total)
             node.q_error = 10 ** abs(node.log10_ratio)
-    _own_errors(nodes, input_rule)
+    _own_errors(nodes, roles)
     findings: list[Finding] = []
     for node in nodes:
         if not node.judged or node.own_log10_ratio is None:
@@ -87,45 +106,19 @@ def check(parsed: ParsedPlan, input_rule, options: CheckOptions | None = None) -
                 node=node.id, q_error=round(node.q_error, 6), own_q_error=round(10 ** abs(own), 6),
                 direction="under" if own > 0 else "over",
             ))
-    _inheritance(nodes, threshold)
+    _inheritance(nodes, roles, threshold)
     return findings
 
 
-def _is_partial(node: PlanNode, nodes: list[PlanNode]) -> bool:
-    if node.parallel_aware:
-        return True
-    inputs = [nodes[c] for c in node.children if nodes[c].is_input_edge]
-    if node.operator in ("Gather", "Gather Merge") or not inputs:
-        return False
-    return bool(inputs[0].extra.get("__partial__"))
-
-
-def _totals(nodes: list[PlanNode], leader: dict[int, bool]) -> None:
-    gather_workers: dict[int, tuple[int, bool]] = {}
-    stmt_root: dict[int, int] = {}
-    for node in nodes:
-        if node.parent is None:
-            stmt_root[node.statement] = node.id
-        parent = nodes[node.parent] if node.parent is not None else None
-        if parent is not None and parent.operator in ("Gather", "Gather Merge") and parent.workers_planned:
-            gather_workers[node.id] = (parent.workers_planned, leader.get(stmt_root[node.statement], True))
-        elif parent is not None and parent.id in gather_workers:
-            gather_workers[node.id] = gather_workers[parent.id]
-    for node in reversed(nodes):
-        partial = node.id in gather_workers and _is_partial(node, nodes)
-        if partial:
-            node.extra["__partial__"] = True
-    for node in nodes:
-        partial = bool(node.extra.pop("__partial__", False))
+def _totals(nodes: list[PlanNode], roles: list[Role]) -> None:
+    for node, role in zip(nodes, roles):
         if node.est_rows is None:
             continue
-        if partial:
-            workers, participates = gather_workers[node.id]
-            divisor = parallel_divisor(workers, participates)
-            node.est_total = node.est_rows * divisor
+        if role.partial:
+            node.est_total = node.est_rows * role.partial
             node.derived.append(
-                f"parallel: estimate is per process; total = {_fmt(node.est_rows)} x divisor "
-                f"{divisor:g} ({workers} workers{' + leader' if participates else ''})"
+                f"parallel: the estimate is per process; total = {_fmt(node.est_rows)} x the "
+                f"parallel divisor {role.partial:g}"
             )
         elif node.starts is not None and node.executed:
             node.est_total = node.est_rows * node.starts
@@ -135,127 +128,57 @@ def _totals(nodes: list[PlanNode], leader: dict[int, bool]) -> None:
             node.actual_total = node.actual_rows * node.starts
 
 
-def _bounds_from_parents(nodes: list[PlanNode], version: str | None) -> None:
-    """Repair figures the engine printed too coarsely, and say so in `derived`.
-
-    - Per-start actual rows printed as integers (PostgreSQL 17 and earlier) hide averages
-      below 0.5: ``rows=0 loops=29780`` may be 6,000 rows. The inner side of an inner nested
-      loop must have returned at least the rows the join emitted plus those its join filter
-      removed, so the total is raised to that bound (within what the rounding allows).
-    - The planner clamps a printed estimate to at least one row; for the inner side of an
-      inner nested loop without a join filter, the join's estimate over the outer estimate
-      gives the real per-start figure.
-    """
-    integer_rows = version != "18"
-    for node in nodes:
-        if node.operator != "Nested Loop" or node.join_type != "Inner" or not node.executed:
-            continue
-        inputs = [nodes[c] for c in node.children if nodes[c].is_input_edge]
-        if len(inputs) != 2:
-            continue
-        outer, inner = inputs
-        if integer_rows and inner.executed and inner.starts and inner.starts > 1 \
-                and node.actual_total is not None and inner.actual_rows is not None \
-                and float(inner.actual_rows).is_integer():
-            removed = node.rows_removed.get("Join Filter", 0.0) * (node.starts or 1)
-            bound = node.actual_total + removed
-            high = (inner.actual_rows + 0.5) * inner.starts
-            low = max(0.0, (inner.actual_rows - 0.5) * inner.starts)
-            inner.extra["actual_total_range"] = [low, high]
-            if bound > inner.actual_total:
-                inner.actual_total = min(bound, high)
-                inner.derived.append(
-                    f"actual total raised to {_fmt(inner.actual_total)}: the nested loop above "
-                    f"emitted {_fmt(bound)} rows through it, and per-start rows are printed "
-                    f"rounded ({_fmt(inner.actual_rows)} x {_fmt(inner.starts)} loops)"
-                )
-        has_join_filter = any(c.kind == "join_filter" for c in node.conditions)
-        if (not has_join_filter and inner.est_rows == 1 and outer.est_rows and node.est_rows is not None
-                and inner.est_total is not None):
-            per_start = node.est_rows / outer.est_rows
-            if per_start < 1:
-                inner.est_total = per_start * (inner.starts or 1) if inner.executed else per_start
-                inner.derived.append(
-                    f"estimate printed as 1 row (the planner's floor); the join's estimate "
-                    f"{_fmt(node.est_rows)} over the outer estimate {_fmt(outer.est_rows)} gives "
-                    f"{per_start:.3g} per start"
-                )
-
-
-def _judge(nodes: list[PlanNode], input_rule) -> None:
+def _judge(nodes: list[PlanNode], roles: list[Role]) -> None:
     """Mark nodes that must not be judged, and why. Top-down: an early stop flows down."""
     cut: dict[int, str] = {}
-    cte_cut: set[str] = set()
-    for node in nodes:
+    for node, role in zip(nodes, roles):
         reason = cut.get(node.id)
-        rule = input_rule(node, nodes)
-        node.own_rule = rule
+        node.own_rule = role.rule
         if node.executed is None or node.actual_total is None:
             node.not_judged_reason = "no actuals" if node.executed is None else "never executed"
         elif node.est_total is None:
             node.not_judged_reason = "no estimate"
-        elif rule == "uncounted":
+        elif role.rule == "uncounted":
             node.not_judged_reason = "the engine does not count this node's rows"
         elif reason:
             node.not_judged_reason = reason
         else:
             node.judged = True
-        if reason and node.operator == "CTE Scan" and node.cte_name:
-            cte_cut.add(node.cte_name)
         inputs = [nodes[c] for c in node.children if nodes[c].is_input_edge]
-        stops_children = bool(reason) and node.operator not in BLOCKING and not (
-            node.operator == "Aggregate" and node.strategy in ("Plain", "Hashed", "Mixed"))
-        if node.operator == "Limit" and node.executed and node.est_total is not None \
+        if role.limit and node.executed and node.est_total is not None \
                 and node.actual_total is not None and node.actual_total >= node.est_total:
             for child in inputs:
-                cut.setdefault(child.id, "stopped early: the Limit above had all the rows it needed")
-        if stops_children:
+                cut.setdefault(child.id, "stopped early: the limit above had all the rows it needed")
+        if reason and not role.blocking:
             for child in inputs:
-                if node.operator in ("Hash Join",) and child.parent_relationship == "Inner":
-                    continue
-                if node.operator == "Nested Loop" and child.parent_relationship == "Inner" \
-                        and node.join_type not in ("Semi", "Anti"):
-                    continue
-                cut.setdefault(child.id, reason)
-        if node.operator in ("Nested Loop", "Merge Join") and node.join_type in ("Semi", "Anti"):
-            for child in inputs:
-                if child.parent_relationship == "Inner":
-                    cut.setdefault(child.id, f"stopped early: a {node.join_type.lower()} join reads its "
-                                             "inner input only up to the first match")
-        if node.operator == "Merge Join":
-            for child in inputs:
-                if child.est_total is not None and child.actual_total is not None \
-                        and child.actual_total < child.est_total:
-                    cut.setdefault(child.id, "may have stopped early: a merge join stops reading "
-                                             "one input once the other runs out")
-        texts = " ".join(c.text for c in node.conditions)
-        for child in nodes_children(node, nodes):
-            if child.parent_relationship == "SubPlan" and child.subplan_name:
-                name = child.subplan_name
-                if f"EXISTS({name})" in texts or f"EXISTS ({name})" in texts or \
-                        f"ANY ({name}" in texts or f"alternatives: {name}" in texts:
-                    cut.setdefault(child.id, f"stopped early: {name} stops at its first match")
-    if cte_cut:
-        for node in nodes:
-            if node.parent_relationship == "InitPlan" and node.subplan_name \
-                    and node.subplan_name.startswith("CTE ") and node.subplan_name[4:] in cte_cut:
-                _cut_subtree(nodes, node, "stopped early: the CTE's reader stopped before its end")
+                if child.id not in role.complete_inputs:
+                    cut.setdefault(child.id, reason)
+        for child_id, why in (role.stops_inputs or {}).items():
+            cut.setdefault(child_id, why)
+        for child_id in role.overestimate_unjudged:
+            child = nodes[child_id]
+            if child.est_total is not None and child.actual_total is not None \
+                    and child.actual_total < child.est_total:
+                cut.setdefault(child_id, "may have stopped early: a merge join stops reading one "
+                                         "input once the other runs out")
+    for node, role in zip(nodes, roles):
+        if role.reads is not None and node.executed and node.not_judged_reason \
+                and node.not_judged_reason.startswith("stopped early"):
+            _cut_subtree(nodes, roles, nodes[role.reads],
+                         "stopped early: the reader of this CTE stopped before its end")
 
 
-def nodes_children(node: PlanNode, nodes: list[PlanNode]) -> list[PlanNode]:
-    return [nodes[c] for c in node.children]
-
-
-def _cut_subtree(nodes: list[PlanNode], top: PlanNode, reason: str) -> None:
+def _cut_subtree(nodes: list[PlanNode], roles: list[Role], top: PlanNode, reason: str) -> None:
     todo = [top]
     while todo:
         node = todo.pop()
         if node.judged:
             node.judged = False
             node.not_judged_reason = reason
-        if node.operator in BLOCKING:
+        if roles[node.id].blocking:
             continue
-        todo.extend(nodes[c] for c in node.children if nodes[c].is_input_edge)
+        todo.extend(nodes[c] for c in node.children
+                    if nodes[c].is_input_edge and c not in roles[node.id].complete_inputs)
 
 
 def _input_lr(node: PlanNode) -> float:
@@ -263,16 +186,14 @@ def _input_lr(node: PlanNode) -> float:
     return node.log10_ratio if node.judged and node.log10_ratio is not None else 0.0
 
 
-def _own_errors(nodes: list[PlanNode], input_rule) -> None:
-    cte_roots = {n.subplan_name[4:]: n for n in nodes
-                 if n.subplan_name and n.subplan_name.startswith("CTE ")}
-    for node in nodes:
+def _own_errors(nodes: list[PlanNode], roles: list[Role]) -> None:
+    for node, role in zip(nodes, roles):
         if not node.judged or node.log10_ratio is None:
             continue
         lr = node.log10_ratio
         inputs = [nodes[c] for c in node.children if nodes[c].is_input_edge]
         rule = node.own_rule
-        if rule == "source" or not inputs and rule not in ("cte",):
+        if rule == "source" or not inputs and rule != "cte":
             own = lr
         elif rule == "pass":
             own = lr - _input_lr(inputs[0])
@@ -282,9 +203,9 @@ def _own_errors(nodes: list[PlanNode], input_rule) -> None:
             outer = _input_lr(inputs[0])
             inner = _input_lr(inputs[1]) if len(inputs) > 1 else 0.0
             candidates = [lr - outer - inner]
-            if node.join_type in ("Left", "Full"):
+            if role.preserved in ("outer", "both"):
                 candidates.append(lr - outer)
-            if node.join_type in ("Right", "Full"):
+            if role.preserved in ("inner", "both"):
                 candidates.append(lr - inner)
             own = min(candidates, key=abs)
         elif rule == "semi_outer":
@@ -300,8 +221,7 @@ def _own_errors(nodes: list[PlanNode], input_rule) -> None:
             else:
                 own = lr
         elif rule == "cte":
-            root = cte_roots.get(node.cte_name or "")
-            own = lr - _input_lr(root) if root is not None else lr
+            own = lr - _input_lr(nodes[role.reads]) if role.reads is not None else lr
         else:
             own = lr
         node.own_log10_ratio = own
@@ -318,28 +238,37 @@ def _charitable_own(node: PlanNode) -> float:
     return node.own_log10_ratio + shift
 
 
-def _inheritance(nodes: list[PlanNode], threshold: float) -> None:
-    """For each node with a large error but no own origin, the origins below that explain it."""
+def _inheritance(nodes: list[PlanNode], roles: list[Role], threshold: float) -> None:
+    """For each node with a large error but no own origin, the origins below that explain it.
+
+    Bottom-up over the pre-order list. A node that re-reads another (a CTE Scan) may come
+    after what it reads in pre-order, so a second pass picks those links up.
+    """
     below: dict[int, list[int]] = {}
-    cte_roots = {n.subplan_name[4:]: n.id for n in nodes
-                 if n.subplan_name and n.subplan_name.startswith("CTE ")}
-    for node in reversed(nodes):
-        found: list[int] = []
-        feeds = [c for c in node.children if nodes[c].is_input_edge]
-        if node.operator == "CTE Scan" and node.cte_name in cte_roots:
-            feeds.append(cte_roots[node.cte_name])
-        for child in feeds:
-            for origin in below.get(child, ()):
-                if origin not in found:
-                    found.append(origin)
-        if node.origin:
-            found = [node.id] + found
-        below[node.id] = found[:50]
-        if node.origin or node.log10_ratio is None or abs(node.log10_ratio) < threshold - 1e-9:
-            continue
-        sign = 1 if node.log10_ratio > 0 else -1
-        node.inherits_from = [o for o in found
-                              if o != node.id and (nodes[o].own_log10_ratio or 0) * sign > 0]
+    passes = 2 if any(r.reads is not None for r in roles) else 1
+    for _ in range(passes):
+        for node in reversed(nodes):
+            _collect(node, nodes, roles, below, threshold)
+
+
+def _collect(node: PlanNode, nodes: list[PlanNode], roles: list[Role], below: dict[int, list[int]],
+             threshold: float) -> None:
+    found: list[int] = []
+    feeds = [c for c in node.children if nodes[c].is_input_edge]
+    if roles[node.id].reads is not None:
+        feeds.append(roles[node.id].reads)
+    for child in feeds:
+        for origin in below.get(child, ()):
+            if origin not in found:
+                found.append(origin)
+    if node.origin:
+        found = [node.id] + found
+    below[node.id] = found[:50]
+    if node.origin or node.log10_ratio is None or abs(node.log10_ratio) < threshold - 1e-9:
+        return
+    sign = 1 if node.log10_ratio > 0 else -1
+    node.inherits_from = [o for o in found
+                          if o != node.id and (nodes[o].own_log10_ratio or 0) * sign > 0]
 
 
 def _fmt(value: float) -> str:

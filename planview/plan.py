@@ -31,7 +31,7 @@ class Plan:
         self.options = options
         self.source = source
         self._engine_module = engine_module
-        self.findings: list[Finding] = check(parsed, engine_module.input_rule, options)
+        self.findings: list[Finding] = check(parsed, engine_module, options)
         from .diagnose import diagnose
 
         diagnose(self)

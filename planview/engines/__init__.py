@@ -8,8 +8,10 @@ group ``planview.engines``) that defines:
 - ``SQL_DIALECT``: the sqlglot dialect its conditions are written in;
 - ``detect(text) -> (format, score) | None``: a score in 0..1 when the text looks like its own;
 - ``parse(text, fmt) -> ParsedPlan``;
-- ``input_rule(node, nodes) -> str``: how the node's own error is separated from what its
-  inputs carry (one of ``planview.check.RULES``).
+- ``role(node, nodes, parsed) -> planview.check.Role``: what the check must know of a node
+  (its input rule, whether it blocks, limits or stops an input early, its parallel divisor);
+- optionally ``repair(parsed)``: fix figures the engine prints too coarsely (after totals);
+- optionally ``suggest_fix(cause, table, columns, **details) -> (sql, caution) | None``.
 
 Adding an engine means adding one module here; nothing else changes.
 """
@@ -24,7 +26,7 @@ from types import ModuleType
 
 from ..errors import PlanParseError
 
-REQUIRED = ("NAME", "FORMATS", "detect", "parse", "input_rule")
+REQUIRED = ("NAME", "FORMATS", "detect", "parse", "role")
 
 
 @lru_cache(maxsize=1)

@@ -11,6 +11,7 @@ import json
 import re
 from typing import Any
 
+from ..check import Role
 from ..errors import PlanParseError
 from ..model import Condition, ParsedPlan, PlanNode, Statement
 from ..source import MAX_DEPTH
@@ -132,6 +133,150 @@ def input_rule(node: PlanNode, nodes: list[PlanNode]) -> str:
     if rule == "pass" and not [c for c in node.children if nodes[c].is_input_edge]:
         return "source"
     return rule
+
+
+# Node types that read all their input before they emit a row.
+BLOCKING = {"Sort", "Hash", "Incremental Sort", "SetOp"}
+PRESERVED = {"Left": "outer", "Right": "inner", "Full": "both"}
+
+
+def parallel_divisor(workers: int, leader_participates: bool = True) -> float:
+    """PostgreSQL's divisor for per-process estimates (get_parallel_divisor, costsize.c)."""
+    divisor = float(workers)
+    if leader_participates:
+        leader = 1.0 - 0.3 * workers
+        if leader > 0:
+            divisor += leader
+    return divisor or 1.0
+
+
+def role(node: PlanNode, nodes: list[PlanNode], parsed: ParsedPlan) -> Role:
+    """What the check needs to know about a node (see planview.check.Role)."""
+    inputs = [nodes[c] for c in node.children if nodes[c].is_input_edge]
+    by_rel = {c.parent_relationship: c.id for c in inputs}
+    inner = by_rel.get("Inner")
+    result = Role(rule=input_rule(node, nodes))
+    result.blocking = node.operator in BLOCKING or (
+        node.operator == "Aggregate" and node.strategy in ("Plain", "Hashed", "Mixed"))
+    result.limit = node.operator == "Limit"
+    if node.operator in ("Nested Loop", "Hash Join") and inner is not None:
+        result.complete_inputs = (inner,)
+    if node.operator in ("Nested Loop", "Merge Join") and node.join_type in ("Semi", "Anti") \
+            and inner is not None:
+        result.stops_inputs = {inner: f"stopped early: a {node.join_type.lower()} join reads its "
+                                      "inner input only up to the first match"}
+    if node.operator == "Merge Join":
+        result.overestimate_unjudged = tuple(c.id for c in inputs)
+    result.preserved = PRESERVED.get(node.join_type or "")
+    texts = " ".join(c.text for c in node.conditions)
+    for child in (nodes[c] for c in node.children):
+        if child.parent_relationship == "SubPlan" and child.subplan_name:
+            name = child.subplan_name
+            if re.search(rf"(EXISTS\s*\(|ANY \(|alternatives: ){re.escape(name)}\b", texts):
+                result.stops_inputs = dict(result.stops_inputs or {})
+                result.stops_inputs[child.id] = f"stopped early: {name} stops at its first match"
+    if node.operator == "CTE Scan" and node.cte_name:
+        wanted = f"CTE {node.cte_name}"
+        for other in nodes:
+            if other.statement == node.statement and other.subplan_name == wanted:
+                result.reads = other.id
+                break
+    result.partial = _partial_divisor(node, nodes, parsed)
+    return result
+
+
+def _partial_divisor(node: PlanNode, nodes: list[PlanNode], parsed: ParsedPlan) -> float | None:
+    """The parallel divisor when the node's estimate is per process, else None.
+
+    A node is on a partial path when it is parallel-aware, or when its first input is (a
+    join or aggregate over a parallel scan), below a Gather or Gather Merge. We take the
+    divisor out (estimate x divisor) so that the total compares with actual rows x loops.
+    Both facts are memoised on the parsed plan: `role` is asked once a node, in pre-order.
+    """
+    memo = parsed.__dict__.setdefault("_pg_parallel", {"gather": {}, "partial": {}})
+    gathers: dict[int, int | None] = memo["gather"]
+    parent = nodes[node.parent] if node.parent is not None else None
+    if parent is None:
+        gather_id = None
+    elif parent.operator in ("Gather", "Gather Merge"):
+        gather_id = parent.id
+    else:
+        gather_id = gathers.get(parent.id)
+    gathers[node.id] = gather_id
+    if gather_id is None or not nodes[gather_id].workers_planned:
+        return None
+    partial: dict[int, bool] = memo["partial"]
+    chain = []
+    current = node
+    answer = False
+    while True:
+        if current.id in partial:
+            answer = partial[current.id]
+            break
+        chain.append(current.id)
+        if current.parallel_aware:
+            answer = True
+            break
+        inputs = [c for c in current.children if nodes[c].is_input_edge]
+        if not inputs or current.operator in ("Gather", "Gather Merge"):
+            answer = False
+            break
+        current = nodes[inputs[0]]
+    for node_id in chain:
+        partial[node_id] = answer
+    if not answer:
+        return None
+    settings = parsed.statements[node.statement].settings if node.statement < len(parsed.statements) else {}
+    leader = str(settings.get("parallel_leader_participation", "on")).lower() != "off"
+    return parallel_divisor(nodes[gather_id].workers_planned, leader)
+
+
+def repair(parsed: ParsedPlan) -> None:
+    """Repair figures PostgreSQL printed too coarsely, and say so in `derived`.
+
+    - Per-start actual rows printed as integers (PostgreSQL 17 and earlier) hide averages
+      below 0.5: ``rows=0 loops=29780`` may be 6,000 rows. The inner side of an inner nested
+      loop must have returned at least the rows the join emitted plus those its join filter
+      removed, so the total is raised to that bound (within what the rounding allows).
+    - The planner clamps a printed estimate to at least one row; for the inner side of an
+      inner nested loop without a join filter, the join's estimate over the outer estimate
+      gives the real per-start figure.
+    """
+    nodes = parsed.nodes
+    integer_rows = parsed.engine_version != "18"
+    for node in nodes:
+        if node.operator != "Nested Loop" or node.join_type != "Inner" or not node.executed:
+            continue
+        inputs = [nodes[c] for c in node.children if nodes[c].is_input_edge]
+        if len(inputs) != 2:
+            continue
+        outer, inner = inputs
+        if integer_rows and inner.executed and inner.starts and inner.starts > 1 \
+                and node.actual_total is not None and inner.actual_rows is not None \
+                and inner.actual_total is not None and float(inner.actual_rows).is_integer():
+            removed = node.rows_removed.get("Join Filter", 0.0) * (node.starts or 1)
+            bound = node.actual_total + removed
+            high = (inner.actual_rows + 0.5) * inner.starts
+            low = max(0.0, (inner.actual_rows - 0.5) * inner.starts)
+            inner.extra["actual_total_range"] = [low, high]
+            if bound > inner.actual_total:
+                inner.actual_total = min(bound, high)
+                inner.derived.append(
+                    f"actual total raised to {inner.actual_total:,.0f}: the nested loop above "
+                    f"emitted {bound:,.0f} rows through it, and per-start rows are printed "
+                    f"rounded ({inner.actual_rows:g} x {inner.starts:,.0f} loops)"
+                )
+        has_join_filter = any(c.kind == "join_filter" for c in node.conditions)
+        if (not has_join_filter and inner.est_rows == 1 and outer.est_rows and node.est_rows is not None
+                and inner.est_total is not None):
+            per_start = node.est_rows / outer.est_rows
+            if per_start < 1:
+                inner.est_total = per_start * (inner.starts or 1) if inner.executed else per_start
+                inner.derived.append(
+                    f"estimate printed as 1 row (the planner's floor); the join's estimate "
+                    f"{node.est_rows:,.0f} over the outer estimate {outer.est_rows:,.0f} gives "
+                    f"{per_start:.3g} per start"
+                )
 
 
 # ---------------------------------------------------------------------------------------
