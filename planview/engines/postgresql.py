@@ -116,11 +116,8 @@ SCAN_TYPES = {
     "Subquery Scan", "Custom Scan",
 }
 KNOWN_TYPES = set(INPUT_RULES)
-# Text prefixes the label may start with, longest first.
-TEXT_TYPES = sorted(
-    KNOWN_TYPES | set(AGG_STRATEGY) | set(SETOP_STRATEGY) | {"Parallel Hash"},
-    key=len, reverse=True,
-)
+# Operator names a text label may start with (at most four words).
+TEXT_TYPE_SET = frozenset(KNOWN_TYPES | set(AGG_STRATEGY) | set(SETOP_STRATEGY))
 
 
 def input_rule(node: PlanNode, nodes: list[PlanNode]) -> str:
@@ -283,9 +280,9 @@ def repair(parsed: ParsedPlan) -> None:
 # Detection and the paste
 # ---------------------------------------------------------------------------------------
 
-_PSQL_HEADER = re.compile(r"^\s*QUERY PLAN\s*$")
+_PSQL_HEADER = re.compile(r"^\s*QUERY PLAN\s*$", re.M)
 _PSQL_RULE = re.compile(r"^\s*-{3,}\s*$")
-_PSQL_FOOTER = re.compile(r"^\s*\(\d+ rows?\)\s*$")
+_PSQL_FOOTER = re.compile(r"^\s*\(\d+ rows?\)\s*$", re.M)
 _PSQL_PLUS = re.compile(r"\s*\+$")
 _TEXT_NODE_HINT = re.compile(
     r"\(cost=\d[\d.]*\.\.\d[\d.]* rows=\d+ width=\d+\)|\(actual (time=[\d.]+\.\.[\d.]+ )?rows=[\d.]+ loops=\d+\)|\(never executed\)"
@@ -333,18 +330,30 @@ def detect(text: str) -> tuple[str, float] | None:
     return None
 
 
+def _decorated(text: str) -> bool:
+    """True when the text carries psql's decorations (header, rule, ``+`` marks, footer)."""
+    head = text[:4000]
+    return bool(_PSQL_HEADER.search(head) or re.search(r"\+[ \t]*$", head, re.M)
+                or _PSQL_FOOTER.search(text[-200:]))
+
+
 def parse(text: str, fmt: str) -> ParsedPlan:
-    lines, numbers = clean_paste(text)
-    if not any(x.strip() for x in lines):
+    if not text.strip():
         raise PlanParseError("the input is empty", engine=NAME, fmt=fmt, line=1)
-    if fmt == "text":
-        statements = _read_text(lines, numbers)
-    elif fmt == "json":
-        statements = _read_json("\n".join(lines), numbers)
+    if fmt != "text" and not _decorated(text):
+        body, numbers = text, []  # structured and undecorated: line numbers are the text's own
+    else:
+        lines, numbers = clean_paste(text)
+        if fmt == "text":
+            statements = _read_text(lines, numbers)
+            return _build(statements, fmt)
+        body = "\n".join(lines)
+    if fmt == "json":
+        statements = _read_json(body, numbers)
     elif fmt == "yaml":
-        statements = _read_yaml("\n".join(lines), numbers)
+        statements = _read_yaml(body, numbers)
     elif fmt == "xml":
-        statements = _read_xml("\n".join(lines), numbers)
+        statements = _read_xml(body, numbers)
     else:
         raise PlanParseError(f"unknown format {fmt!r}; PostgreSQL formats: {', '.join(FORMATS)}")
     return _build(statements, fmt)
@@ -714,8 +723,10 @@ def _label_to_keys(label: str, lineno: int) -> dict[str, Any]:
         keys["Node Type"] = "Nested Loop" if join.group(1) == "Nested Loop" else f"{join.group(1)} Join"
         keys["Join Type"] = join.group(2) or "Inner"
         return keys
-    for name in TEXT_TYPES:
-        if rest == name or rest.startswith(name + " "):
+    words = rest.split(" ", 4)
+    for count in range(min(4, len(words)), 0, -1):
+        name = " ".join(words[:count])
+        if name in TEXT_TYPE_SET:
             tail = rest[len(name):].strip()
             break
     else:
@@ -732,8 +743,6 @@ def _label_to_keys(label: str, lineno: int) -> dict[str, Any]:
         if tail:
             keys["Command"] = tail
         return keys
-    if name == "Parallel Hash":  # "Parallel" was already stripped; kept for completeness
-        name = "Hash"
     keys["Node Type"] = name
     if name == "Custom Scan" and tail.startswith("("):
         provider, _, tail = tail[1:].partition(")")
@@ -905,6 +914,9 @@ def _statement_sub_line(stmt: dict, key: str | None, content: str) -> None:
 def _num(value: Any, key: str, path: str, fmt: str, line: int | None) -> float | None:
     if value is None:
         return None
+    kind = type(value)
+    if (kind is int or kind is float) and value >= 0 and value != float("inf"):
+        return float(value)
     if isinstance(value, bool):
         raise PlanParseError(f"expected a number, got {value!r}", key=f"{path}.\"{key}\"",
                              line=line, engine=NAME, fmt=fmt)
@@ -1092,8 +1104,25 @@ def _fix_text_relationships(nodes: list[PlanNode], root_id: int) -> None:
             nodes[child].parent_relationship = "Outer" if i == 0 else "Inner"
 
 
+_STR_FIELDS = {
+    "Strategy": "strategy", "Partial Mode": "partial_mode", "Join Type": "join_type",
+    "Operation": "operation", "Scan Direction": "scan_direction", "Relation Name": "relation",
+    "Schema": "schema", "Alias": "alias", "Index Name": "index", "CTE Name": "cte_name",
+    "Function Name": "function_name", "Parent Relationship": "parent_relationship",
+    "Subplan Name": "subplan_name",
+}
+_NUM_FIELDS = {
+    "Plan Rows": "est_rows", "Startup Cost": "startup_cost", "Total Cost": "total_cost",
+    "Plan Width": "width",
+}
+_LATER_NUMBERS = {"Actual Loops", "Actual Rows", "Actual Startup Time", "Actual Total Time",
+                  "Workers Planned", "Workers Launched"}
+_SKIP = {"Node Type", "Plans", "Workers", "Parallel Aware"}
+
+
 def _node_from_dict(raw: dict, node_id: int, parent: int | None, depth: int, stmt_no: int,
                     path: str, fmt: str) -> PlanNode:
+    """One pass over the node's keys: each key goes to its field, or to `extra`."""
     line = raw.get("__line__")
     node_type = raw.get("Node Type")
     if not isinstance(node_type, str) or not node_type:
@@ -1101,80 +1130,75 @@ def _node_from_dict(raw: dict, node_id: int, parent: int | None, depth: int, stm
                              line=line, engine=NAME, fmt=fmt)
     node = PlanNode(id=node_id, parent=parent, operator=node_type, label="", statement=stmt_no,
                     depth=depth)
-    node.strategy = _text(raw.get("Strategy"), "Strategy", path, fmt, line)
-    node.partial_mode = _text(raw.get("Partial Mode"), "Partial Mode", path, fmt, line)
-    node.join_type = _text(raw.get("Join Type"), "Join Type", path, fmt, line)
-    node.operation = _text(raw.get("Operation"), "Operation", path, fmt, line)
-    node.parallel_aware = _bool(raw.get("Parallel Aware"), "Parallel Aware", path, fmt, line)
-    node.scan_direction = _text(raw.get("Scan Direction"), "Scan Direction", path, fmt, line)
-    node.relation = _text(raw.get("Relation Name"), "Relation Name", path, fmt, line)
-    node.schema = _text(raw.get("Schema"), "Schema", path, fmt, line)
-    node.alias = _text(raw.get("Alias"), "Alias", path, fmt, line)
-    node.index = _text(raw.get("Index Name"), "Index Name", path, fmt, line)
-    node.cte_name = _text(raw.get("CTE Name"), "CTE Name", path, fmt, line)
-    node.function_name = _text(raw.get("Function Name"), "Function Name", path, fmt, line)
-    node.parent_relationship = _text(raw.get("Parent Relationship"), "Parent Relationship", path,
-                                     fmt, line)
-    node.subplan_name = _text(raw.get("Subplan Name"), "Subplan Name", path, fmt, line)
+    extra = node.extra
+    numbers: dict[str, float | None] = {}
+    for key, value in raw.items():
+        attr = _STR_FIELDS.get(key)
+        if attr is not None:
+            if value is not None:
+                setattr(node, attr, value if type(value) is str else _text(value, key, path, fmt, line))
+            continue
+        attr = _NUM_FIELDS.get(key)
+        if attr is not None:
+            setattr(node, attr, _num(value, key, path, fmt, line))
+            continue
+        if key in _LATER_NUMBERS:
+            numbers[key] = _num(value, key, path, fmt, line)
+            continue
+        kind = CONDITION_KEYS.get(key)
+        if kind is not None:
+            if value is not None and value != "":
+                text = value if type(value) is str else _text(value, key, path, fmt, line)
+                node.conditions.append(Condition(kind=kind, text=text, key=key))
+            continue
+        if key in BUFFER_NAMES:
+            count = _num(value, key, path, fmt, line)
+            if count:
+                node.buffers[key] = count
+            continue
+        if key.startswith(ROWS_REMOVED_PREFIX):
+            count = _num(value, key, path, fmt, line)
+            if count:
+                node.rows_removed[key[len(ROWS_REMOVED_PREFIX):]] = count
+            continue
+        if key in _SKIP or key.startswith("__"):
+            continue
+        extra[key] = value
+    if len(node.conditions) > 1:
+        order = {k: i for i, k in enumerate(CONDITION_KEYS)}
+        node.conditions.sort(key=lambda c: order[c.key])
+    aware = raw.get("Parallel Aware")
+    node.parallel_aware = bool(_bool(aware, "Parallel Aware", path, fmt, line)) if aware is not None else False
     if node.operator in ("Nested Loop", "Hash Join", "Merge Join") and node.join_type is None:
         node.join_type = "Inner"
     if node.operator == "Aggregate" and node.partial_mode is None:
         node.partial_mode = "Simple"
-    node.est_rows = _num(raw.get("Plan Rows"), "Plan Rows", path, fmt, line)
-    node.startup_cost = _num(raw.get("Startup Cost"), "Startup Cost", path, fmt, line)
-    node.total_cost = _num(raw.get("Total Cost"), "Total Cost", path, fmt, line)
-    node.width = _num(raw.get("Plan Width"), "Plan Width", path, fmt, line)
-    loops = _num(raw.get("Actual Loops"), "Actual Loops", path, fmt, line)
-    rows = _num(raw.get("Actual Rows"), "Actual Rows", path, fmt, line)
+    loops = numbers.get("Actual Loops")
+    rows = numbers.get("Actual Rows")
     if loops is not None or rows is not None:
         node.starts = loops if loops is not None else 1.0
         node.executed = bool(node.starts) and not raw.get("__never__")
         node.actual_rows = rows if node.executed else None
         if node.executed:
-            node.actual_startup_ms = _num(raw.get("Actual Startup Time"), "Actual Startup Time",
-                                          path, fmt, line)
-            node.actual_total_ms = _num(raw.get("Actual Total Time"), "Actual Total Time", path,
-                                        fmt, line)
-    planned = _num(raw.get("Workers Planned"), "Workers Planned", path, fmt, line)
-    launched = _num(raw.get("Workers Launched"), "Workers Launched", path, fmt, line)
+            node.actual_startup_ms = numbers.get("Actual Startup Time")
+            node.actual_total_ms = numbers.get("Actual Total Time")
+    planned = numbers.get("Workers Planned")
+    launched = numbers.get("Workers Launched")
     node.workers_planned = int(planned) if planned is not None else None
     node.workers_launched = int(launched) if launched is not None else None
-    for key, kind in CONDITION_KEYS.items():
-        value = raw.get(key)
-        if value is None or value == "":
-            continue
-        text = _text(value, key, path, fmt, line)
-        node.conditions.append(Condition(kind=kind, text=text, key=key))
-    for key, value in raw.items():
-        if key.startswith(ROWS_REMOVED_PREFIX):
-            count = _num(value, key, path, fmt, line)
-            if count:
-                node.rows_removed[key[len(ROWS_REMOVED_PREFIX):]] = count
-    for key in BUFFER_NAMES:
-        count = _num(raw.get(key), key, path, fmt, line)
-        if count:
-            node.buffers[key] = count
     workers = raw.get("Workers")
     if isinstance(workers, list):
         for i, worker in enumerate(workers):
             if not isinstance(worker, dict):
                 continue
             wpath = f"{path}.Workers[{i}]"
-            entry = {
+            node.workers.append({
                 "worker": int(_num(worker.get("Worker Number"), "Worker Number", wpath, fmt, line) or 0),
                 "actual_rows": _num(worker.get("Actual Rows"), "Actual Rows", wpath, fmt, line),
                 "loops": _num(worker.get("Actual Loops"), "Actual Loops", wpath, fmt, line),
-            }
-            node.workers.append(entry)
-    for key, value in raw.items():
-        if key in FIELD_KEYS or key.startswith("__") or key.startswith(ROWS_REMOVED_PREFIX):
-            continue
-        node.extra[key] = value
-    if node.extra.get("Async Capable") in ("false", False):
-        node.extra["Async Capable"] = False
-    if node.extra.get("Async Capable") == "true":
-        node.extra["Async Capable"] = True
-    if node.parallel_aware is None:
-        node.parallel_aware = False
+            })
+    capable = extra.get("Async Capable")
+    if capable is not None and not isinstance(capable, bool):
+        extra["Async Capable"] = str(capable).lower() == "true"
     node.label = raw.get("__label__") or compose_label(node)
     return node
