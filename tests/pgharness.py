@@ -618,8 +618,8 @@ FROM generate_series(1, 24) g JOIN towns t ON t.town_no = g""",
     """INSERT INTO vets
 SELECT g, (g - 1) % 24 + 1, 'Vet ' || g, date '1995-01-01' + (g * 53) % 9000
 FROM generate_series(1, 240) g""",
-    # -- owners: postcode -> town is a functional dependency (case correlated)
-    """CREATE TABLE owners (
+    """-- owners: postcode -> town is a functional dependency (case correlated)
+CREATE TABLE owners (
     owner_id   int PRIMARY KEY,
     full_name  text NOT NULL,
     email      text NOT NULL UNIQUE,
@@ -636,8 +636,8 @@ SELECT g,
        date '2010-01-01' + (g * 7) % 5000
 FROM generate_series(1, 60000) g
 JOIN towns t ON t.town_no = g % 1000 / 25 + 1""",
-    # -- pets: 90k, owners have one or two
-    """CREATE TABLE pets (
+    """-- pets: 90k; owners have one or two
+CREATE TABLE pets (
     pet_id     int PRIMARY KEY,
     owner_id   int NOT NULL,
     name       text NOT NULL,
@@ -663,9 +663,9 @@ LATERAL (SELECT CASE WHEN g % 100 < 45 THEN 'dog'
                      WHEN g % 100 < 95 THEN 'bird'
                      WHEN g % 100 < 98 THEN 'reptile'
                      ELSE 'ferret' END AS species) s""",
-    # -- visits: 200k over 2021-2024; owner_id is a denormalised copy of the
-    #    pet's owner (case join_correlated); reason is skewed (case skewed)
-    """CREATE TABLE visits (
+    """-- visits: 200k over 2021-2024; owner_id is a denormalised copy of the
+-- pet's owner (case join_correlated); reason is skewed (case skewed)
+CREATE TABLE visits (
     visit_id   int PRIMARY KEY,
     pet_id     int NOT NULL,
     owner_id   int NOT NULL,
@@ -689,9 +689,9 @@ SELECT g, p.pet_id, (p.pet_id - 1) * 7919 % 60000 + 1,
 FROM generate_series(1, 200000) g,
 LATERAL (SELECT ((g - 1)::bigint * 104729 % 90000 + 1)::int AS pet_id) p,
 LATERAL (SELECT ((g - 1) * 37 % 240 + 1)::int AS vet_id) v""",
-    # -- invoices: one per visit; numbering jumped from 220000 to 900001 when
-    #    billing moved to a new system (case range_gap)
-    """CREATE TABLE invoices (
+    """-- invoices: one per visit; numbering jumped from 220000 to 900001 when
+-- billing moved to a new system (case range_gap)
+CREATE TABLE invoices (
     invoice_no   bigint PRIMARY KEY,
     visit_id     int NOT NULL UNIQUE,
     owner_id     int NOT NULL,
@@ -707,10 +707,10 @@ SELECT CASE WHEN v.visit_id <= 120000 THEN 100000 + v.visit_id
        v.fee_cents + v.visit_id * 17 % 5000,
        v.visit_id % 23 <> 0
 FROM visits v""",
-    # -- appointments: booked ahead; the first 10k came from the old practice
-    #    software with long free-text notes (wide rows); autovacuum is off on
-    #    this table and the staleness step adds narrow rows after ANALYZE
-    """CREATE TABLE appointments (
+    """-- appointments: booked ahead; the first 10k came from the old practice
+-- software with long free-text notes (wide rows); autovacuum is off on this
+-- table and the staleness step adds narrow rows after ANALYZE (case stale)
+CREATE TABLE appointments (
     appointment_id  int PRIMARY KEY,
     pet_id          int NOT NULL,
     clinic_id       int NOT NULL,
@@ -726,8 +726,8 @@ SELECT g, (g - 1) * 104729 % 90000 + 1, g % 24 + 1,
        'phone',
        'Imported from the previous practice system. ' || repeat(md5(g::text), 55)
 FROM generate_series(1, 10000) g""",
-    # -- pharmacy sales, partitioned by year (case append)
-    """CREATE TABLE pharmacy_sales (
+    """-- pharmacy sales, partitioned by year (case append)
+CREATE TABLE pharmacy_sales (
     sale_id    int NOT NULL,
     clinic_id  int NOT NULL,
     product    text NOT NULL,
@@ -742,8 +742,8 @@ FROM generate_series(1, 10000) g""",
 SELECT g, g % 24 + 1, 'product-' || lpad((g * 11 % 30 + 1)::text, 2, '0'), 1 + g % 4,
        timestamptz '2021-01-01 10:00:00+00' + ((g - 1)::bigint * 1460 / 40000) * interval '1 day'
 FROM generate_series(1, 40000) g""",
-    # -- reminders: empty; only the rolled-back INSERT of case modify uses it
-    """CREATE TABLE reminders (
+    """-- reminders: empty; only the rolled-back INSERT of case modify uses it
+CREATE TABLE reminders (
     reminder_id  bigint GENERATED ALWAYS AS IDENTITY PRIMARY KEY,
     pet_id       int NOT NULL REFERENCES pets,
     due_on       date NOT NULL,
@@ -760,17 +760,17 @@ FROM generate_series(1, 40000) g""",
     "ALTER TABLE visits ADD FOREIGN KEY (pet_id) REFERENCES pets",
     "ALTER TABLE visits ADD FOREIGN KEY (vet_id) REFERENCES vets",
     "ALTER TABLE invoices ADD FOREIGN KEY (visit_id) REFERENCES visits",
-    # case skewed: someone lowered the statistics target of a wide text column
+    "-- case skewed: someone lowered the statistics target of this column\n"
     "ALTER TABLE visits ALTER COLUMN reason SET STATISTICS 1",
-    # statistics as of "last night"
-    "VACUUM ANALYZE",
+    "-- statistics as of \"last night\"\nVACUUM ANALYZE",
 )
 
 # The planted staleness: rows that arrive after the last ANALYZE.  Online
 # booking opened on 2024-07-01: 200k narrow rows (no notes), newer created_at
 # than anything in the histogram; autovacuum is off for the table.
 SCENARIO_STALENESS: tuple[str, ...] = (
-    """INSERT INTO appointments
+    """-- online booking opened on 2024-07-01 (after the last ANALYZE)
+INSERT INTO appointments
 SELECT 10000 + g, (g - 1) * 7919 % 90000 + 1, g % 24 + 1,
        timestamptz '2024-07-01 00:00:00+00' + (g - 1) * interval '78 seconds',
        timestamptz '2024-07-01 00:00:00+00' + (g - 1) * interval '78 seconds' + (1 + g % 30) * interval '1 day',
@@ -916,7 +916,7 @@ CASES: tuple[Case, ...] = (
         ("WITH last_visit AS MATERIALIZED ("
          "SELECT pet_id, max(visit_at) AS at FROM visits GROUP BY pet_id) "
          "SELECT p.species, count(*) FROM last_visit l JOIN pets p ON p.pet_id = l.pet_id "
-         "WHERE l.at < '2023-01-01' GROUP BY p.species",),
+         "WHERE l.at < '2024-01-01' GROUP BY p.species",),
         "a materialized CTE consumed by a CTE Scan",
         needs=("CTE last_visit", "CTE Scan on last_visit"),
     ),
@@ -1064,6 +1064,10 @@ def describe_node(node: Mapping) -> str:
     desc = node["Node Type"]
     if node.get("Parallel Aware"):
         desc = "Parallel " + desc
+    if node.get("Scan Direction") == "Backward":
+        desc += " Backward"
+    if node.get("Index Name") and node.get("Relation Name"):
+        desc += f" using {node['Index Name']}"
     if node.get("Relation Name"):
         desc += f" on {node['Relation Name']}"
         if node.get("Alias") and node["Alias"] != node["Relation Name"]:
