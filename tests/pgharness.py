@@ -996,10 +996,6 @@ CASES: tuple[Case, ...] = (
 CASES_BY_NAME: dict[str, Case] = {c.name: c for c in CASES}
 
 
-def case_statements(case: Case) -> list[str]:
-    return list(case.sql)
-
-
 def join_outputs(outputs: Sequence[str], fmt: str, *, as_one_array: bool = False) -> str:
     """Put several statements' outputs into one paste.
 
