@@ -61,7 +61,11 @@ class Role:
       (both sides of a merge join);
     - `partial`: its estimate is per parallel process, with this divisor (None: not partial);
     - `preserved`: for an outer join, which input it emits whole (``outer``, ``inner``, ``both``);
-    - `reads`: the id of a node whose output this one re-reads (a CTE Scan's CTE).
+    - `reads`: the id of a node whose output this one re-reads (a CTE Scan's CTE);
+    - `cut_inputs`: inputs whose rows were cut while running by a filter their estimate
+      leaves out (a filter pushed down from a join at run time), with the reason: their actual
+      count is only a lower bound, so an underestimate of this node's own cannot be told from
+      theirs and does not make it an origin.
     """
 
     rule: str = "source"
@@ -73,6 +77,7 @@ class Role:
     partial: float | None = None
     preserved: str | None = None
     reads: int | None = None
+    cut_inputs: dict[int, str] | None = None
 
 
 def check(parsed: ParsedPlan, engine, options: CheckOptions | None = None) -> list[Finding]:
@@ -101,6 +106,11 @@ def check(parsed: ParsedPlan, engine, options: CheckOptions | None = None) -> li
         own = node.own_log10_ratio
         charitable = _charitable_own(node)
         if abs(own) >= threshold - 1e-9 and abs(charitable) >= threshold - 1e-9:
+            cut = roles[node.id].cut_inputs
+            if own > 0 and cut:
+                node.derived.append("own underestimate not separable from its inputs': "
+                                    + "; ".join(cut.values()))
+                continue
             node.origin = True
             findings.append(Finding(
                 node=node.id, q_error=round(node.q_error, 6), own_q_error=round(10 ** abs(own), 6),
@@ -112,6 +122,8 @@ def check(parsed: ParsedPlan, engine, options: CheckOptions | None = None) -> li
 
 def _totals(nodes: list[PlanNode], roles: list[Role]) -> None:
     for node, role in zip(nodes, roles):
+        if node.executed and node.actual_rows is not None and node.starts is not None:
+            node.actual_total = node.actual_rows * node.starts
         if node.est_rows is None:
             continue
         if role.partial:
@@ -124,8 +136,6 @@ def _totals(nodes: list[PlanNode], roles: list[Role]) -> None:
             node.est_total = node.est_rows * node.starts
         else:
             node.est_total = node.est_rows
-        if node.executed and node.actual_rows is not None and node.starts is not None:
-            node.actual_total = node.actual_rows * node.starts
 
 
 def _judge(nodes: list[PlanNode], roles: list[Role]) -> None:

@@ -1,9 +1,113 @@
-"""Diagnosis: what the statistics probably missed at each origin (filled in by its rules)."""
+"""Diagnosis: for every origin, what the optimizer's statistics probably missed.
+
+`RULES` is a tuple of small pure functions, one a module. Each takes a `Context` (the
+origin with its clauses and numbers) and returns a `Candidate` (a cause, a score, the
+evidence) or None. The best-scoring candidate becomes the finding's `cause`; the others that
+also fit go to `also`. A rule can be switched off by leaving it out of `rules=`.
+The fix SQL comes from the engine module (`suggest_fix`), so it speaks the engine's dialect.
+"""
 
 from __future__ import annotations
 
+from . import correlation, default_selectivity, range_gap, skew, stale_statistics
+from .context import Candidate, Context, build_context, fmt_rows
+from .impact import impact_of
 
-def diagnose(plan) -> None:
-    """Rank the findings; the cause rules come in their own modules."""
+RULES = (
+    ("correlation", correlation.rule),
+    ("skew", skew.rule),
+    ("range_gap", range_gap.rule),
+    ("stale_statistics", stale_statistics.rule),
+    ("default_selectivity", default_selectivity.rule),
+)
+CAUSES = tuple(name for name, _ in RULES) + ("unexplained",)
+
+__all__ = ["CAUSES", "RULES", "Candidate", "Context", "diagnose"]
+
+
+def diagnose(plan, rules=RULES) -> None:
+    """Fill cause, evidence, fix, caution and impact of every finding, then rank them."""
+    for finding in plan.findings:
+        node = plan.nodes[finding.node]
+        ctx = build_context(plan, node)
+        candidates: list[Candidate] = []
+        checked: list[str] = []
+        for name, rule in rules:
+            try:
+                candidate = rule(ctx)
+            except Exception as exc:  # a rule's bug must not hide the others' answers
+                checked.append(f"{name}: rule failed ({type(exc).__name__})")
+                continue
+            if candidate is None or candidate.score <= 0:
+                checked.append(name)
+            else:
+                candidates.append(candidate)
+        candidates.sort(key=lambda c: -c.score)
+        _fill(plan, finding, node, ctx, candidates, checked)
+        finding.impact = impact_of(plan, node)
+    plan.findings.sort(key=lambda f: (-(f.impact.get("ms") or 0.0), -(f.impact.get("rows") or 0.0),
+                                      -f.own_q_error))
     for rank, finding in enumerate(plan.findings, 1):
         finding.rank = rank
+
+
+def _fill(plan, finding, node, ctx: Context, candidates: list[Candidate], checked: list[str]) -> None:
+    direction = "underestimated" if finding.direction == "under" else "overestimated"
+    head = (f"Estimated {fmt_rows(node.est_total)} rows, found {fmt_rows(node.actual_total)} "
+            f"({direction} x{finding.own_q_error:,.1f} here"
+            + (f", x{finding.q_error:,.1f} in all" if abs(finding.q_error - finding.own_q_error) > 0.05 else "")
+            + ").")
+    if node.starts and node.starts > 1:
+        head += f" Over {node.starts:,.0f} starts: {fmt_rows(node.est_rows)} estimated per start."
+    evidence: dict = {
+        "lines": [head],
+        "est_rows": node.est_total, "actual_rows": node.actual_total, "starts": node.starts,
+        "est_rows_per_start": node.est_rows, "actual_rows_per_start": node.actual_rows,
+        "rows_read": ctx.rows_read, "rows_removed": ctx.rows_removed or None,
+        "est_selectivity": ctx.est_selectivity, "actual_selectivity": ctx.actual_selectivity,
+        "clauses": [c.as_dict() for c in ctx.clauses],
+    }
+    unparsed = [c for c in ctx.clauses if c.op_class == "unparsed"]
+    for clause in unparsed:
+        evidence["lines"].append(f"Could not parse the condition {clause.text!r} ({clause.parse_error}); "
+                                 "it was left out of the diagnosis.")
+    if node.derived:
+        evidence["lines"] += [f"Note: {d}." for d in node.derived]
+    if candidates:
+        best = candidates[0]
+        finding.cause = best.cause
+        finding.also = [c.cause for c in candidates[1:] if c.cause != best.cause]
+        finding.confidence = round(best.score, 2)
+        finding.confidence_reason = best.reason
+        evidence["lines"] += best.lines
+        evidence.update({k: v for k, v in best.fields.items() if k not in evidence or evidence[k] is None})
+        evidence["also_fits"] = {c.cause: c.reason for c in candidates[1:]}
+        fix = _suggest(plan, best)
+        finding.fix, finding.caution = fix if fix else (None, None)
+        finding.summary = f"{best.cause.replace('_', ' ')}: {best.reason}."
+    else:
+        finding.cause = "unexplained"
+        finding.confidence = 0.2
+        finding.confidence_reason = "no rule fits the clauses and numbers of this node"
+        evidence["lines"].append("Checked and not fitting: " + ", ".join(checked) + ".")
+        evidence["checked"] = checked
+        finding.summary = "unexplained: no known statistics gap fits; read the evidence."
+        finding.caution = _generic_caution(plan)
+    finding.evidence = evidence
+
+
+def _suggest(plan, candidate: Candidate):
+    module = plan._engine_module
+    suggest = getattr(module, "suggest_fix", None)
+    if suggest is None:
+        return None
+    try:
+        return suggest(candidate.cause, candidate.table, candidate.columns,
+                       expressions=candidate.expressions, **candidate.details)
+    except Exception:
+        return None
+
+
+def _generic_caution(plan) -> str:
+    return ("EXPLAIN ANALYZE runs the statement it explains; any statistics change takes locks "
+            "and I/O. Your change process and a DBA decide what runs where.")

@@ -542,7 +542,7 @@ _HEADER_LINE = re.compile(r"^(?:(?P<init>InitPlan \d+)(?: \(returns .*\))?|(?P<s
 _WORKER_LINE = re.compile(r"^Worker (?P<n>\d+):\s+(?P<rest>.*)$")
 _ACTUAL_PART = re.compile(
     r"actual (?:time=(?P<ast>[\d.]+)\.\.(?P<att>[\d.]+) )?rows=(?P<ar>[\d.]+) loops=(?P<loops>\d+)")
-_IDENT = r'(?:"(?:[^"]|"")+"|[^\s"]+)'
+_IDENT = r'(?:"(?:[^"]|"")+"|[^\s".]+)'
 _TARGET = re.compile(rf"^(?P<name>{_IDENT}(?:\.{_IDENT})*)(?: (?P<alias>{_IDENT}))?$")
 
 
@@ -1202,3 +1202,123 @@ def _node_from_dict(raw: dict, node_id: int, parent: int | None, depth: int, stm
         extra["Async Capable"] = str(capable).lower() == "true"
     node.label = raw.get("__label__") or compose_label(node)
     return node
+
+
+# ---------------------------------------------------------------------------------------
+# What the diagnosis needs of PostgreSQL: its defaults and its fixes
+# ---------------------------------------------------------------------------------------
+
+# src/include/utils/selfuncs.h: selectivities used when a clause has no statistics.
+DEFAULT_SELECTIVITIES = {
+    "DEFAULT_EQ_SEL": 0.005,
+    "DEFAULT_INEQ_SEL": 1.0 / 3.0,
+    "DEFAULT_RANGE_INEQ_SEL": 0.005,
+    "DEFAULT_MATCH_SEL": 0.005,
+    "DEFAULT_MATCHING_SEL": 0.010,
+    "DEFAULT_NOT_UNK_SEL": 0.995,
+}
+DEFAULT_SELECTIVITIES_ONLY = dict(DEFAULT_SELECTIVITIES)
+DEFAULT_SELECTIVITIES["DEFAULT_NUM_DISTINCT"] = 200.0  # groups, not a selectivity
+
+_CHANGE_PROCESS = ("Run it first on a copy or a test system; your change process and a DBA decide "
+                   "whether and when it runs in production.")
+_ANALYZE_CAUTION = ("ANALYZE reads a sample of the table (I/O on a large table) and takes a SHARE "
+                    "UPDATE EXCLUSIVE lock: reads and writes go on, but it waits for and blocks "
+                    "VACUUM, other ANALYZEs and DDL on the table. New statistics can change the "
+                    "plans of other queries too.")
+
+
+def _q(ident: str) -> str:
+    return ident if re.fullmatch(r"[a-z_][a-z0-9_$]*", ident) else '"' + ident.replace('"', '""') + '"'
+
+
+def _qtable(table: str) -> str:
+    return ".".join(_q(part) for part in table.split(".", 1)) if table else "the_table"
+
+
+def _stats_name(table: str, parts: list[str]) -> str:
+    base = "_".join([table.split(".")[-1], *[re.sub(r"\W+", "_", p).strip("_") for p in parts]])
+    return _q((base[:50] + "_stats").lower())
+
+
+def suggest_fix(cause: str, table: str | None, columns: list[str], **details) -> tuple[str, str] | None:
+    """The SQL that gives the optimizer what it missed, and what running it costs."""
+    if not table:
+        return None
+    qt = _qtable(table)
+    cols = [_q(c) for c in columns]
+    if cause == "correlation" and details.get("cross_table"):
+        other = _qtable(details.get("other_table") or "other_table")
+        other_cols = [_q(c) for c in details.get("other_columns") or columns]
+        sql = (f"-- {qt} and {other} are joined on {len(cols)} correlated columns; extended "
+               "statistics are per table\n"
+               "-- and cannot correct a join estimate. What can:\n"
+               f"-- 1. join on the key that implies the others and drop the redundant clauses, or\n"
+               f"-- 2. give both tables one combined key with statistics of its own:\n"
+               f"ALTER TABLE {qt} ADD COLUMN {'_'.join(columns)}_key text\n"
+               f"    GENERATED ALWAYS AS ({' || '':'' || '.join(f'{c}::text' for c in cols)}) STORED;\n"
+               f"ALTER TABLE {other} ADD COLUMN {'_'.join(columns)}_key text\n"
+               f"    GENERATED ALWAYS AS ({' || '':'' || '.join(f'{c}::text' for c in other_cols)}) STORED;\n"
+               f"ANALYZE {qt};\nANALYZE {other};\n"
+               f"-- then join ON {qt}.{'_'.join(columns)}_key = {other}.{'_'.join(columns)}_key")
+        caution = ("ALTER TABLE ... ADD COLUMN ... STORED rewrites the whole table under an ACCESS "
+                   "EXCLUSIVE lock (no reads or writes meanwhile) and needs the query rewritten. "
+                   + _ANALYZE_CAUTION + " " + _CHANGE_PROCESS)
+        return sql, caution
+    if cause == "correlation" and len(cols) >= 2:
+        kinds = details.get("kinds") or ["dependencies", "mcv"]
+        kinds = sorted(set(kinds) | {"dependencies", "ndistinct", "mcv"})
+        name = _stats_name(table, columns)
+        sql = (f"CREATE STATISTICS IF NOT EXISTS {name} ({', '.join(kinds)})\n"
+               f"    ON {', '.join(cols)} FROM {qt};\nANALYZE {qt};")
+        caution = ("CREATE STATISTICS takes a SHARE UPDATE EXCLUSIVE lock on the table and builds "
+                   "nothing until the next ANALYZE; it adds a little planning time to queries on "
+                   "the table. " + _ANALYZE_CAUTION + " " + _CHANGE_PROCESS)
+        return sql, caution
+    if cause in ("skew", "range_gap", "correlation") and cols:
+        lines = [f"ALTER TABLE {qt} ALTER COLUMN {c} SET STATISTICS 1000;" for c in cols]
+        lines.append(f"ANALYZE {qt} ({', '.join(cols)});")
+        caution = ("ALTER TABLE ... SET STATISTICS takes a brief SHARE UPDATE EXCLUSIVE lock; the "
+                   "larger target makes every later ANALYZE of this column read and store more "
+                   "(up to 1000 most-common values and histogram buckets) and planning a little "
+                   "slower. " + _ANALYZE_CAUTION + " " + _CHANGE_PROCESS)
+        return "\n".join(lines), caution
+    if cause == "stale_statistics":
+        sql = (f"ANALYZE {qt};\n"
+               f"-- so that auto-analyze keeps up with this table's growth:\n"
+               f"ALTER TABLE {qt} SET (autovacuum_analyze_scale_factor = 0.02,\n"
+               f"                     autovacuum_analyze_threshold = 1000);")
+        caution = (_ANALYZE_CAUTION + " ALTER TABLE ... SET (...) takes a brief SHARE UPDATE "
+                   "EXCLUSIVE lock; more frequent auto-analyze means more background I/O. "
+                   + _CHANGE_PROCESS)
+        return sql, caution
+    if cause == "default_selectivity":
+        expressions = [e for e in details.get("expressions") or [] if e]
+        if details.get("aggregate") and not expressions:
+            sql = ("-- No statistics describe an aggregate's result (a HAVING clause): the "
+                   "optimizer keeps its default.\n"
+                   "-- Options: pre-aggregate into a table that is ANALYZEd, or move the "
+                   "condition on the grouped rows\n-- into a subquery over a materialised result.")
+            return sql, ("Both options change the schema or the query. " + _CHANGE_PROCESS)
+        if expressions:
+            exprs = ", ".join(f"({e})" for e in expressions)
+            name = _stats_name(table, [re.sub(r"\W+", "_", e) for e in expressions])
+            sql = (f"-- PostgreSQL 14 and later: statistics on the expression itself\n"
+                   f"CREATE STATISTICS IF NOT EXISTS {name} ON {exprs} FROM {qt};\n"
+                   f"ANALYZE {qt};\n"
+                   f"-- any version: an expression index also gets statistics at ANALYZE\n"
+                   f"-- CREATE INDEX CONCURRENTLY ON {qt} ({exprs});\n"
+                   f"-- or rewrite the condition so that the column stands bare "
+                   f"(e.g. a range on the column instead of a function of it)")
+            caution = ("CREATE STATISTICS takes a SHARE UPDATE EXCLUSIVE lock and builds nothing "
+                       "until the next ANALYZE. CREATE INDEX CONCURRENTLY does not block writes but "
+                       "scans the table twice and cannot run inside a transaction block; a plain "
+                       "CREATE INDEX blocks writes while it builds. " + _ANALYZE_CAUTION + " "
+                       + _CHANGE_PROCESS)
+            return sql, caution
+        sql = (f"-- The estimate equals a built-in default: the optimizer had no statistics for "
+               f"the clause.\n-- Rewrite it so that a column of {qt} stands bare, or give the "
+               f"expression statistics:\n-- CREATE STATISTICS ... ON (<expression>) FROM {qt}; "
+               f"ANALYZE {qt};")
+        return sql, _ANALYZE_CAUTION + " " + _CHANGE_PROCESS
+    return None

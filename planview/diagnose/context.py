@@ -1,0 +1,192 @@
+"""What a rule sees of an origin: its numbers, its clauses by relation, and the plan around it."""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+from itertools import combinations
+from typing import Any
+
+from .clauses import Clause, merge_ranges, parse_condition
+
+RESTRICTION_KINDS = ("filter", "index_cond", "tid_cond", "recheck_cond")
+JOIN_KINDS = ("hash_cond", "merge_cond", "join_filter", "join_cond")
+
+
+@dataclass
+class Candidate:
+    """One rule's answer: a cause that fits, how well, and the numbers that say so."""
+
+    cause: str
+    score: float
+    reason: str
+    lines: list[str] = field(default_factory=list)
+    fields: dict[str, Any] = field(default_factory=dict)
+    table: str | None = None
+    columns: list[str] = field(default_factory=list)
+    expressions: list[str] = field(default_factory=list)
+    details: dict[str, Any] = field(default_factory=dict)
+
+
+@dataclass
+class Context:
+    node: Any
+    plan: Any
+    clauses: list[Clause]
+    relation_of: dict[str | None, str]
+    est_total: float
+    actual_total: float
+    own_log10_ratio: float
+    rows_read: float | None
+    rows_removed: float
+    defaults: dict[str, float]
+    dialect: str | None
+
+    @property
+    def direction(self) -> str:
+        return "under" if self.own_log10_ratio > 0 else "over"
+
+    @property
+    def est_selectivity(self) -> float | None:
+        if not self.rows_read:
+            return None
+        return self.est_total / self.rows_read
+
+    @property
+    def actual_selectivity(self) -> float | None:
+        if not self.rows_read:
+            return None
+        return self.actual_total / self.rows_read
+
+    @property
+    def is_scan(self) -> bool:
+        return self.node.relation is not None or self.node.operator.lower().endswith("scan")
+
+    @property
+    def is_join(self) -> bool:
+        return self.node.own_rule in ("join", "semi_outer", "semi_inner")
+
+    @property
+    def is_grouping(self) -> bool:
+        return bool(self.group_keys())
+
+    def restriction_clauses(self) -> list[Clause]:
+        return [c for c in self.clauses if c.source in RESTRICTION_KINDS and not c.aggregate]
+
+    def join_clauses(self) -> list[Clause]:
+        return [c for c in self.clauses if c.source in JOIN_KINDS or c.is_join]
+
+    def table_of(self, clause: Clause) -> str | None:
+        quals = {c.qualifier for c in clause.columns}
+        if len(quals) == 1:
+            return self.relation_of.get(next(iter(quals)))
+        return None
+
+    def group_keys(self) -> list[str]:
+        keys = self.node.extra.get("Group Key")
+        if isinstance(keys, str):
+            return [k.strip() for k in _split_top(keys)]
+        if isinstance(keys, list):
+            return [str(k) for k in keys]
+        return []
+
+    def default_match(self, tolerance: float = 0.05) -> tuple[str, float] | None:
+        """The engine default (or product of two) that the estimated selectivity equals."""
+        sel = self.est_selectivity
+        if sel is None or sel <= 0 or not self.defaults:
+            return None
+        candidates: list[tuple[str, float]] = list(self.defaults.items())
+        for (a, va), (b, vb) in combinations(self.defaults.items(), 2):
+            candidates.append((f"{a} x {b}", va * vb))
+        for name, value in self.defaults.items():
+            candidates.append((f"{name} x {name}", value * value))
+        # a printed estimate is rounded to whole rows: allow half a row either side
+        slack = 0.5 / self.rows_read if self.rows_read else 0.0
+        best = None
+        for name, value in candidates:
+            if value >= 1:
+                continue
+            if abs(sel - value) <= max(value * tolerance, slack):
+                gap = abs(math.log(max(sel, 1e-300) / value))
+                if best is None or gap < best[2]:
+                    best = (name, value, gap)
+        return (best[0], best[1]) if best else None
+
+
+def _split_top(text: str) -> list[str]:
+    out, depth, start = [], 0, 0
+    for i, ch in enumerate(text):
+        if ch == "(":
+            depth += 1
+        elif ch == ")":
+            depth -= 1
+        elif ch == "," and depth == 0:
+            out.append(text[start:i])
+            start = i + 1
+    out.append(text[start:])
+    return [x for x in out if x.strip()]
+
+
+def relation_map(plan) -> dict[str | None, str]:
+    """Alias (and bare relation name) to schema-qualified relation, from the plan's scans."""
+    mapping: dict[str | None, str] = {}
+    for node in plan.nodes:
+        if node.relation:
+            qualified = f"{node.schema}.{node.relation}" if node.schema else node.relation
+            mapping.setdefault(node.alias or node.relation, qualified)
+            mapping.setdefault(node.relation, qualified)
+    return mapping
+
+
+def build_context(plan, node) -> Context:
+    nodes = plan.nodes
+    dialect = plan.sql_dialect
+    relation_of = relation_map(plan)
+    own_relation = (f"{node.schema}.{node.relation}" if node.schema else node.relation) if node.relation else None
+    if own_relation:
+        relation_of = dict(relation_of)
+        relation_of[None] = own_relation
+    sources = [node]
+    # a bitmap heap scan's index conditions live on its bitmap children
+    for child_id in node.children:
+        child = nodes[child_id]
+        if child.is_input_edge and child.operator.lower().startswith("bitmap"):
+            sources.append(child)
+            for grandchild in child.children:
+                if nodes[grandchild].operator.lower().startswith("bitmap"):
+                    sources.append(nodes[grandchild])
+    clauses: list[Clause] = []
+    seen: set[str] = set()
+    for source in sources:
+        for cond in source.conditions:
+            if cond.kind == "recheck_cond" and len(sources) > 1:
+                continue  # repeats the bitmap children's index conditions
+            for clause in parse_condition(cond.text, cond.kind, dialect):
+                key = f"{clause.source}:{clause.text}"
+                if key in seen:
+                    continue
+                seen.add(key)
+                clauses.append(clause)
+    clauses = merge_ranges(clauses)
+    starts = node.starts or 1
+    removed = sum(node.rows_removed.get(k, 0.0) for k in ("Filter", "Index Recheck")) * starts
+    rows_read = None
+    if node.actual_total is not None and node.relation is not None:
+        rows_read = node.actual_total + removed
+    defaults = dict(getattr(plan._engine_module, "DEFAULT_SELECTIVITIES", {}) or {})
+    return Context(node=node, plan=plan, clauses=clauses, relation_of=relation_of,
+                   est_total=node.est_total or 0.0, actual_total=node.actual_total or 0.0,
+                   own_log10_ratio=node.own_log10_ratio or 0.0, rows_read=rows_read,
+                   rows_removed=removed, defaults=defaults, dialect=dialect)
+
+
+def fmt_rows(value: float | None) -> str:
+    if value is None:
+        return "?"
+    return f"{value:,.0f}" if value >= 10 or float(value).is_integer() else f"{value:,.2f}"
+
+
+def fmt_sel(value: float | None) -> str:
+    if value is None:
+        return "?"
+    return f"{value:.4g}"

@@ -1,0 +1,82 @@
+"""No statistics for the clause: the optimizer fell back to a built-in default selectivity.
+
+Fits when a column sits inside a function, a non-relabelling cast or an expression, when a
+clause compares an aggregate (HAVING), uses LIKE with a leading wildcard or an operator
+without selectivity support; and, as a fingerprint, when the estimated selectivity
+(estimate / rows read) equals one of the engine's defaults or a product of two.
+
+>>> from math import isclose; isclose(0.005 * 200_000, 1000)   # DEFAULT_EQ_SEL on 200,000 rows
+True
+"""
+
+from __future__ import annotations
+
+from .context import Candidate, Context, fmt_rows, fmt_sel
+
+NO_STATS_CLASSES = ("like_leading_wildcard", "not_like_leading_wildcard", "other")
+
+
+def rule(ctx: Context) -> Candidate | None:
+    clauses = [c for c in ctx.clauses if c.op_class not in ("subplan", "unparsed")]
+    opaque = [c for c in clauses if c.columns and not c.bare and c.op_class != "or"]
+    aggregates = [c for c in ctx.clauses if c.aggregate]
+    special = [c for c in clauses if c.op_class in NO_STATS_CLASSES and c not in opaque]
+    match = ctx.default_match()
+    grouping_default = ctx.is_grouping and ctx.est_total in (200.0,) and \
+        "DEFAULT_NUM_DISTINCT" in ctx.defaults
+    if not (opaque or aggregates or special or match or grouping_default):
+        return None
+    lines: list[str] = []
+    fields: dict = {}
+    expressions: list[str] = []
+    for clause in opaque:
+        wraps = ", ".join(clause.wrappers) or "an expression"
+        lines.append(f"{clause.text}: the column {', '.join(c.name for c in clause.columns)} sits "
+                     f"inside {wraps}, so its statistics do not apply.")
+        expressions.append(clause.column_side or _expression_of(clause))
+    for clause in aggregates:
+        lines.append(f"{clause.text} compares an aggregate (a HAVING clause): no statistics exist "
+                     "for its values.")
+    for clause in special:
+        kind = "LIKE with a leading wildcard" if "like" in clause.op_class else "an operator without selectivity statistics"
+        lines.append(f"{clause.text} uses {kind}.")
+    if grouping_default:
+        lines.append(f"Estimated exactly {fmt_rows(ctx.est_total)} groups: the default number of "
+                     "distinct values when the grouping expression has no statistics.")
+        fields["default"] = {"name": "DEFAULT_NUM_DISTINCT", "value": ctx.defaults["DEFAULT_NUM_DISTINCT"]}
+    if match:
+        name, value = match
+        lines.append(f"Fingerprint: estimated selectivity {fmt_sel(ctx.est_selectivity)} "
+                     f"({fmt_rows(ctx.est_total)} of {fmt_rows(ctx.rows_read)} rows read) equals "
+                     f"{name} = {fmt_sel(value)}.")
+        fields["default"] = {"name": name, "value": value, "observed": ctx.est_selectivity}
+    if ctx.est_selectivity is not None:
+        fields.update(est_selectivity=ctx.est_selectivity, actual_selectivity=ctx.actual_selectivity)
+    score = 0.0
+    if opaque or aggregates or special:
+        score = 0.75
+    if match or grouping_default:
+        score = min(0.95, score + 0.2) if score else 0.55
+    table = None
+    columns: list[str] = []
+    for clause in opaque + special:
+        table = table or ctx.table_of(clause) or ctx.relation_of.get(None)
+        columns += [c.name for c in clause.columns]
+    return Candidate(cause="default_selectivity", score=score,
+                     reason="the optimizer had no statistics for the clause"
+                     + (" (its estimate equals a built-in default)" if match or grouping_default else ""),
+                     lines=lines, fields=fields, table=table or ctx.relation_of.get(None),
+                     columns=sorted(set(columns)), expressions=[e for e in expressions if e],
+                     details={"aggregate": bool(aggregates)})
+
+
+def _expression_of(clause) -> str:
+    """The expression side of the clause (``lower(code)``), for statistics on it."""
+    text = clause.text
+    for op in (" = ", " <> ", " >= ", " <= ", " > ", " < ", " LIKE ", " ILIKE ", " IN "):
+        if op in text:
+            left = text.split(op, 1)[0].strip()
+            if any(c.name in left for c in clause.columns):
+                return left
+            return text.split(op, 1)[1].strip()
+    return text

@@ -1,0 +1,72 @@
+"""Impact: how much of the query's time ran above a mistake, so findings can be ranked.
+
+The nearest ancestor whose plan choice depended on the estimate is the first join (or a
+node sized on it: a hash, a sort, a grouping) that inherits the error; its time, inclusive
+of everything below it, is the time that rode on the wrong number.
+"""
+
+from __future__ import annotations
+
+from .context import fmt_rows
+
+
+def node_ms(node) -> float | None:
+    if node.actual_total_ms is None:
+        return None
+    return node.actual_total_ms * (node.starts or 1)
+
+
+def impact_of(plan, origin) -> dict:
+    nodes = plan.nodes
+    statement = plan.statements[origin.statement] if origin.statement < len(plan.statements) else None
+    query_ms = statement.execution_ms if statement else None
+    decision = None
+    walker = origin
+    while walker.parent is not None:
+        parent = nodes[walker.parent]
+        carries = origin.id in parent.inherits_from or parent.own_rule == "pass"
+        if not carries or not walker.is_input_edge:
+            break
+        if parent.own_rule in ("join", "semi_outer", "semi_inner"):
+            decision = parent
+            break
+        walker = parent
+    target = decision or origin
+    ms = node_ms(target)
+    text = ""
+    if decision is not None:
+        inner = [nodes[c] for c in decision.children if nodes[c].parent_relationship == "Inner"]
+        side = inner[0] if inner else None
+        if side is not None and origin.id in _subtree_ids(nodes, side) and side.starts and side.starts > 1:
+            text = (f"{decision.label} (#{decision.id}) ran its inner side {side.starts:,.0f} times "
+                    f"where {fmt_rows(_expected_starts(nodes, decision))} were expected")
+        elif side is not None and origin.id in _subtree_ids(nodes, side):
+            text = (f"{decision.label} (#{decision.id}) built for {fmt_rows(side.est_total)} rows of "
+                    f"its inner input and got {fmt_rows(side.actual_total)}")
+        else:
+            text = (f"{decision.label} (#{decision.id}) was chosen for {fmt_rows(walker.est_total)} "
+                    f"input rows and got {fmt_rows(walker.actual_total)}")
+    else:
+        text = f"the error stays at {origin.label} (#{origin.id})"
+    if ms is not None:
+        text += f": {ms:,.1f} ms"
+        if query_ms:
+            text += f", {min(100.0, 100 * ms / query_ms):.0f}% of the {query_ms:,.1f} ms query"
+    rows = abs((origin.actual_total or 0) - (origin.est_total or 0))
+    return {"ms": round(ms, 3) if ms is not None else None,
+            "share": round(ms / query_ms, 4) if ms is not None and query_ms else None,
+            "node": target.id, "text": text, "rows": rows}
+
+
+def _subtree_ids(nodes, top) -> set[int]:
+    out, todo = set(), [top.id]
+    while todo:
+        current = todo.pop()
+        out.add(current)
+        todo.extend(nodes[current].children)
+    return out
+
+
+def _expected_starts(nodes, join) -> float:
+    outer = [nodes[c] for c in join.children if nodes[c].parent_relationship == "Outer"]
+    return outer[0].est_total if outer and outer[0].est_total is not None else 0.0

@@ -1,0 +1,768 @@
+"""DuckDB: the JSON profile (0.x, 1.x, 2.x), EXPLAIN (FORMAT json), and the box-drawn text.
+
+DuckDB counts rows per operator over the whole query (there are no loops), so every node
+has one start and its counts are totals. Estimates sit in ``extra_info["Estimated
+Cardinality"]`` (1.x and later, a string) or as an ``EC: N`` line (0.x). Actual rows are
+``intermediate_rows`` (2.x), ``operator_cardinality`` (1.x) or ``cardinality`` (0.x).
+
+The text rendering is a drawing of boxes. It is read by finding each box's rectangle; a
+box's parent is the nearest box above it that starts at or left of it (DuckDB draws each
+subtree from its parent's column rightwards). Recent text renderings of EXPLAIN ANALYZE
+show actual rows only, so such a plan is accepted and says that its estimates are missing.
+"""
+
+from __future__ import annotations
+
+import json
+import re
+from typing import Any
+
+from ..check import Role
+from ..errors import PlanParseError
+from ..model import Condition, ParsedPlan, PlanNode, Statement
+from ..source import MAX_DEPTH
+
+NAME = "duckdb"
+FORMATS = ("json", "text")
+SQL_DIALECT = "duckdb"
+
+# ---------------------------------------------------------------------------------------
+# Tables: the engine's vocabulary
+# ---------------------------------------------------------------------------------------
+
+# The tops of a profile that are not operators: they are unwrapped when they have one child.
+WRAPPERS = {"RESULT_COLLECTOR", "EXPLAIN_ANALYZE", "QUERY", "EXPLAIN"}
+
+ACTUAL_KEYS = ("intermediate_rows", "operator_cardinality", "cardinality")
+NAME_KEYS = ("name", "operator_name", "operator_type", "type")
+TIME_KEYS = ("timing", "operator_timing")
+ESTIMATE_KEY = "Estimated Cardinality"
+
+JOINS = {
+    "HASH_JOIN", "NESTED_LOOP_JOIN", "PIECEWISE_MERGE_JOIN", "IE_JOIN", "BLOCKWISE_NL_JOIN",
+    "CROSS_PRODUCT", "POSITIONAL_JOIN", "ASOF_JOIN", "LEFT_DELIM_JOIN", "RIGHT_DELIM_JOIN",
+    "DELIM_JOIN",
+}
+AGGREGATES = {
+    "HASH_GROUP_BY", "PERFECT_HASH_GROUP_BY", "UNGROUPED_AGGREGATE", "SIMPLE_AGGREGATE",
+    "PARTITIONED_AGGREGATE", "STREAMING_WINDOW_AGGREGATE",
+}
+# How each operator's own error is separated from its inputs' (planview.check.RULES).
+INPUT_RULES: dict[str, str] = {
+    **{op: "join" for op in JOINS},
+    **{op: "source" for op in AGGREGATES},
+    "PROJECTION": "pass", "FILTER": "pass", "ORDER_BY": "pass", "LIMIT": "pass",
+    "STREAMING_LIMIT": "pass", "LIMIT_PERCENT": "pass", "TOP_N": "pass", "WINDOW": "pass",
+    "STREAMING_WINDOW": "pass", "UNNEST": "pass", "STREAMING_SAMPLE": "pass",
+    "RESERVOIR_SAMPLE": "pass", "RESULT_COLLECTOR": "pass", "EXPLAIN_ANALYZE": "pass",
+    "REORDER": "pass", "BATCH_COLLECTOR": "pass",
+    "UNION": "sum", "RECURSIVE_CTE": "sum",
+    # a materialised CTE reports no rows of its own (0 in 2.x); its scans re-read it
+    "CTE": "uncounted", "CTE_SCAN": "cte",
+}
+BLOCKING = {"ORDER_BY", "TOP_N", "WINDOW", *AGGREGATES - {"STREAMING_WINDOW_AGGREGATE"}}
+LIMITS = {"LIMIT", "STREAMING_LIMIT", "LIMIT_PERCENT"}
+SEMI_OUTER = {"SEMI", "ANTI", "MARK"}
+SEMI_INNER = {"RIGHT_SEMI", "RIGHT_ANTI"}
+PRESERVED = {"LEFT": "outer", "RIGHT": "inner", "OUTER": "both", "FULL": "both"}
+JOIN_TYPES = {"INNER", "LEFT", "RIGHT", "OUTER", "FULL", "SEMI", "ANTI", "MARK", "SINGLE",
+              "RIGHT_SEMI", "RIGHT_ANTI", "CROSS"}
+
+CONDITION_KEYS = {
+    "Conditions": "join_cond",  # hash_cond on a HASH_JOIN
+    "Filters": "filter",
+    "Expression": "filter",
+    "Dynamic Filters": "dynamic_filter",
+}
+# extra_info keys that become PlanNode fields; the others stay in extra["extra_info"].
+FIELD_INFO_KEYS = {ESTIMATE_KEY, "Table", "Join Type", *CONDITION_KEYS}
+
+DYNAMIC_FILTER_REASON = (
+    "not judged: the join above pushed a filter built from its other input into this one "
+    "while running (a dynamic filter: {how}); the estimate leaves it out, so fewer actual "
+    "rows are no misestimate"
+)
+
+
+# ---------------------------------------------------------------------------------------
+# Detection
+# ---------------------------------------------------------------------------------------
+
+_BOX_CORNER = re.compile(r"[┌╭][─━]")
+_ROWS_IN_BOX = re.compile(r"│[^│\n]*(~?[\d,]+ [Rr]ows?\b|EC: \d+)")
+
+
+def detect(text: str) -> tuple[str, float] | None:
+    head = text[:20000].lstrip("\ufeff \t\r\n")
+    if head.startswith(("{", "[")):
+        keys = re.findall(r'"([A-Za-z_ ]+)"\s*:', head[:20000])
+        found = set(keys)
+        if found & {"intermediate_rows", "operator_cardinality", "operator_type"}:
+            return "json", 0.97
+        if "extra_info" in found and ("children" in found) and (
+                "cardinality" in found or ESTIMATE_KEY in found or "timings" in found):
+            return "json", 0.9
+        if "extra_info" in found and "children" in found and "name" in found:
+            return "json", 0.8
+        return None
+    if _BOX_CORNER.search(head) and ("│" in head) and (
+            _ROWS_IN_BOX.search(head) or re.search(r"(Query Profiling Information|Total Time:)", head)):
+        return "text", 0.9
+    return None
+
+
+def parse(text: str, fmt: str) -> ParsedPlan:
+    if not text.strip():
+        raise PlanParseError("the input is empty", line=1, engine=NAME, fmt=fmt)
+    if fmt == "json":
+        return _parse_json(text)
+    if fmt == "text":
+        return _parse_text(text)
+    raise PlanParseError(f"unknown format {fmt!r}; DuckDB formats: {', '.join(FORMATS)}",
+                         engine=NAME, fmt=fmt)
+
+
+# ---------------------------------------------------------------------------------------
+# JSON
+# ---------------------------------------------------------------------------------------
+
+def _parse_json(text: str) -> ParsedPlan:
+    body = text.lstrip("\ufeff")
+    try:
+        doc = json.loads(body)
+    except json.JSONDecodeError as exc:
+        raise PlanParseError(f"invalid JSON: {exc.msg} (column {exc.colno})", line=exc.lineno,
+                             engine=NAME, fmt="json") from None
+    except RecursionError:
+        raise PlanParseError(f"JSON nested too deeply (over {MAX_DEPTH} levels); refused",
+                             engine=NAME, fmt="json") from None
+    statement = Statement(root=0)
+    version = None
+    if isinstance(doc, dict) and isinstance(doc.get("operator"), list):
+        tops, path = doc["operator"], "operator"
+        version = "2.x"
+        query = doc.get("query") if isinstance(doc.get("query"), dict) else {}
+        statement.query_text = _opt_str(query.get("sql"))
+        seconds = query.get("total_time", doc.get("latency"))
+        statement.execution_ms = _seconds_ms(seconds, "query.total_time")
+        statement.extra = {k: v for k, v in doc.items() if k != "operator"}
+    elif isinstance(doc, dict) and isinstance(doc.get("children"), list):
+        tops, path = doc["children"], "children"
+        if "query_name" in doc or "latency" in doc:
+            version = "1.x"
+            statement.query_text = _opt_str(doc.get("query_name"))
+            statement.execution_ms = _seconds_ms(doc.get("latency"), "latency")
+        else:
+            version = "0.x"
+            statement.query_text = _opt_str(doc.get("extra-info"))
+            statement.execution_ms = _seconds_ms(doc.get("timing"), "timing")
+        statement.extra = {k: v for k, v in doc.items() if k != "children"}
+    elif isinstance(doc, list):
+        tops, path = doc, ""
+    else:
+        raise PlanParseError("expected a DuckDB profile: an object with \"operator\" or "
+                             "\"children\", or a list of operators", key="$", engine=NAME, fmt="json")
+    raws = [(t, f"{path}[{i}]" if path else f"[{i}]") for i, t in enumerate(tops)]
+    roots = _unwrap(raws)
+    if not roots:
+        raise PlanParseError("no operator found", key=path or "$", engine=NAME, fmt="json")
+    nodes: list[PlanNode] = []
+    statements: list[Statement] = []
+    has_actuals = False
+    for stmt_no, (raw, key_path) in enumerate(roots):
+        if stmt_no:
+            statement = Statement(root=len(nodes))
+        statement.root = len(nodes)
+        statements.append(statement)
+        todo: list[tuple[Any, int | None, int, str]] = [(raw, None, 0, key_path)]
+        while todo:
+            item, parent, depth, where = todo.pop()
+            if depth > MAX_DEPTH:
+                raise PlanParseError(f"plan deeper than {MAX_DEPTH} levels; refused", key=where,
+                                     engine=NAME, fmt="json")
+            node = _node_from_json(item, len(nodes), parent, depth, stmt_no, where, version)
+            if parent is not None:
+                nodes[parent].children.append(node.id)
+            nodes.append(node)
+            has_actuals = has_actuals or node.actual_rows is not None
+            kids = item.get("children") or []
+            if not isinstance(kids, list):
+                raise PlanParseError("\"children\" is not a list", key=f"{where}.children",
+                                     engine=NAME, fmt="json")
+            for i in range(len(kids) - 1, -1, -1):
+                todo.append((kids[i], node.id, depth + 1, f"{where}.children[{i}]"))
+    _relationships(nodes)
+    notes = []
+    if not has_actuals:
+        notes.append("no actuals: this is EXPLAIN without ANALYZE, so estimates cannot be "
+                     "checked; use EXPLAIN (ANALYZE, FORMAT json) or PRAGMA enable_profiling='json'")
+    if has_actuals and not any(n.est_rows is not None for n in nodes):
+        notes.append("no estimates in this profile, so nothing can be checked")
+    return ParsedPlan(engine=NAME, format="json", nodes=nodes, statements=statements,
+                      engine_version=version, has_actuals=has_actuals, notes=notes)
+
+
+def _unwrap(raws: list[tuple[Any, str]]) -> list[tuple[dict, str]]:
+    """Skip the wrapper nodes at the top of a profile (result collector, explain-analyze)."""
+    out: list[tuple[dict, str]] = []
+    todo = list(reversed(raws))
+    while todo:
+        raw, where = todo.pop()
+        if not isinstance(raw, dict):
+            raise PlanParseError("an operator is not an object", key=where, engine=NAME, fmt="json")
+        name = _operator_name(raw, where)
+        kids = raw.get("children")
+        if name in WRAPPERS and isinstance(kids, list) and kids:
+            todo.extend(reversed([(k, f"{where}.children[{i}]") for i, k in enumerate(kids)]))
+            continue
+        out.append((raw, where))
+    return out
+
+
+def _operator_name(raw: dict, where: str) -> str:
+    for key in NAME_KEYS:
+        value = raw.get(key)
+        if value is None:
+            continue
+        if not isinstance(value, str) or not value.strip():
+            raise PlanParseError(f"operator name is not text: {value!r}", key=f"{where}.{key}",
+                                 engine=NAME, fmt="json")
+        return value.strip().upper().replace(" ", "_")
+    raise PlanParseError("operator without a name (expected \"name\", \"operator_name\", "
+                         "\"operator_type\" or \"type\")", key=where, engine=NAME, fmt="json")
+
+
+def _node_from_json(raw: Any, node_id: int, parent: int | None, depth: int, stmt_no: int,
+                    where: str, version: str | None) -> PlanNode:
+    if not isinstance(raw, dict):
+        raise PlanParseError("an operator is not an object", key=where, engine=NAME, fmt="json")
+    operator = _operator_name(raw, where)
+    node = PlanNode(id=node_id, parent=parent, operator=operator, label="", statement=stmt_no,
+                    depth=depth)
+    for key in NAME_KEYS:
+        value = raw.get(key)
+        if isinstance(value, str) and value.strip().upper() != operator:
+            node.extra[key] = value
+    info = raw.get("extra_info", {})
+    if isinstance(info, str):
+        info = _legacy_info(info, operator)
+        node.extra["extra_info_text"] = raw["extra_info"]
+    elif info is None:
+        info = {}
+    elif not isinstance(info, dict):
+        raise PlanParseError(f"\"extra_info\" is neither an object nor text: {type(info).__name__}",
+                             key=f"{where}.extra_info", engine=NAME, fmt="json")
+    _apply_info(node, info, f"{where}.extra_info", "json")
+    for key in ACTUAL_KEYS:
+        if key in raw:
+            rows = _count(raw[key], f"{where}.{key}", "json")
+            if rows is not None:
+                node.actual_rows = rows
+                node.starts = 1.0
+                node.executed = True
+            break
+    for key in TIME_KEYS:
+        if key in raw:
+            seconds = _count(raw[key], f"{where}.{key}", "json")
+            if seconds is not None:
+                node.extra["own_time_ms"] = seconds * 1000.0
+            break
+    for key in ("rows_scanned", "operator_rows_scanned", "row_groups_scanned",
+                "total_row_groups_to_scan", "intermediate_size_bytes", "result_set_size"):
+        if key in raw and isinstance(raw[key], (int, float)) and not isinstance(raw[key], bool):
+            node.extra[key] = raw[key]
+    node.label = compose_label(node)
+    return node
+
+
+def _legacy_info(text: str, operator: str) -> dict[str, Any]:
+    """0.x writes extra_info as one string, sections split by [INFOSEPARATOR]."""
+    info: dict[str, Any] = {}
+    sections = [s.strip() for s in text.split("[INFOSEPARATOR]")]
+    plain: list[str] = []
+    for section in sections:
+        if not section:
+            continue
+        ec = re.fullmatch(r"EC:\s*(\S+)", section)
+        if ec:
+            info[ESTIMATE_KEY] = ec.group(1)
+            continue
+        if section.startswith("Filters:"):
+            info["Filters"] = [x.strip() for x in section[len("Filters:"):].split("\n") if x.strip()]
+            continue
+        keyed = [re.match(r"^([A-Z][A-Za-z ]{1,40}):\s*(.+)$", x.strip()) for x in section.split("\n")]
+        if all(keyed):
+            info.update({m.group(1): m.group(2) for m in keyed if m})
+            continue
+        plain.append(section)
+    if operator.endswith("_JOIN") and plain:
+        lines = [x.strip() for x in plain[0].split("\n") if x.strip()]
+        if lines and lines[0] in JOIN_TYPES:
+            info["Join Type"] = lines.pop(0)
+        if lines:
+            info["Conditions"] = lines
+        plain = plain[1:]
+    elif operator.endswith("_SCAN") and plain and "\n" not in plain[0] and operator != "CTE_SCAN":
+        info["Table"] = plain.pop(0)
+    elif operator == "FILTER" and plain:
+        info["Expression"] = plain.pop(0)
+    if plain:
+        info["details"] = plain
+    return info
+
+
+def _apply_info(node: PlanNode, info: dict[str, Any], where: str, fmt: str) -> None:
+    if ESTIMATE_KEY in info:
+        node.est_rows = _count(info[ESTIMATE_KEY], f"{where}.\"{ESTIMATE_KEY}\"", fmt)
+    table = info.get("Table")
+    if table is None and node.operator.endswith("_SCAN") and isinstance(info.get("Text"), str) \
+            and re.fullmatch(r"[\w.\"]+", info["Text"]):
+        table = info["Text"]  # 1.1 names the table under "Text"
+    if table is not None:
+        table = _join_text(table, f"{where}.Table", fmt)
+        parts = table.split(".")
+        node.relation = parts[-1]
+        if len(parts) > 1:
+            node.schema = parts[-2]
+        if len(parts) > 2:
+            node.extra["catalog"] = ".".join(parts[:-2])
+    join_type = info.get("Join Type")
+    if join_type is not None:
+        node.join_type = _join_text(join_type, f"{where}.\"Join Type\"", fmt).upper()
+    elif node.operator in JOINS:
+        node.join_type = "INNER"
+    for key, kind in CONDITION_KEYS.items():
+        value = info.get(key)
+        if value is None or value == "" or value == []:
+            continue
+        if key == "Conditions" and node.operator == "HASH_JOIN":
+            kind = "hash_cond"
+        items = value if isinstance(value, list) else [value]
+        for i, item in enumerate(items):
+            text = _join_text(item, f"{where}.\"{key}\"[{i}]", fmt)
+            for part in ([text] if key != "Conditions" else text.split("\n")):
+                if part.strip():
+                    node.conditions.append(Condition(kind=kind, text=part.strip(), key=key))
+    rest = {k: v for k, v in info.items() if k not in FIELD_INFO_KEYS}
+    if rest:
+        node.extra["extra_info"] = rest
+
+
+def _relationships(nodes: list[PlanNode]) -> None:
+    """Joins read their first child as the probe (outer) side and build on the second."""
+    for node in nodes:
+        if node.operator in JOINS:
+            for i, child in enumerate(node.children):
+                nodes[child].parent_relationship = "Outer" if i == 0 else "Inner"
+        elif node.operator in ("UNION", "RECURSIVE_CTE"):
+            for child in node.children:
+                nodes[child].parent_relationship = "Member"
+
+
+def compose_label(node: PlanNode) -> str:
+    words = node.operator.replace("_", " ").title()
+    for short in ("Cte", "Ie ", "Nl "):
+        words = words.replace(short, short.upper())
+    if node.operator in JOINS and node.join_type and node.join_type != "INNER":
+        words += f" ({node.join_type})"
+    if node.relation:
+        words += f" on {node.relation}"
+    return words
+
+
+# ---------------------------------------------------------------------------------------
+# Text: the box drawing
+# ---------------------------------------------------------------------------------------
+
+_TOP_LEFT = "┌╭"
+_TOP_RIGHT = "┐╮"
+_BOTTOM_LEFT = "└╰"
+_SEPARATOR = re.compile(r"^[─━\s]*$|^(─ )+─?$")
+_ESTIMATE_LINE = re.compile(r"^(?:~([\d,.]+) [Rr]ows?|EC:\s*([\d,.]+))$")
+_ACTUAL_LINE = re.compile(r"^([\d,]+) [Rr]ows?(?:\s+[\d.]+\s*(?:µs|us|ms|s|m|h))?$")
+_TIME_LINE = re.compile(r"^\(([\d.]+)s\)$")
+_HEADERS = ("Query Profiling Information", "Total Time:")
+
+
+def _parse_text(text: str) -> ParsedPlan:
+    lines = text.replace("\t", "    ").splitlines()
+    boxes = _find_boxes(lines)
+    nested = [b for b in boxes if any(o is not b and o["top"] < b["top"] and o["bottom"] > b["bottom"]
+                                      and o["left"] < b["left"] and o["right"] > b["right"]
+                                      for o in boxes)]
+    boxes = [b for b in boxes if b not in nested]
+    operators = []
+    total_ms = None
+    for box in boxes:
+        title, content = _box_text(box, lines)
+        joined = " ".join([title or "", *content])
+        if any(h in joined for h in _HEADERS) or title == "Summary":
+            found = re.search(r"Total Time:\s*([\d.]+)s", joined)
+            if found:
+                total_ms = float(found.group(1)) * 1000.0
+            continue
+        box["title"], box["content"] = title, content
+        operators.append(box)
+    if not operators:
+        first = next((i for i, x in enumerate(lines, 1) if x.strip()), 1)
+        raise PlanParseError("no operator box found in DuckDB's text rendering", line=first,
+                             engine=NAME, fmt="text")
+    operators.sort(key=lambda b: (b["top"], b["left"]))
+    parents: dict[int, int | None] = {}
+    for i, box in enumerate(operators):
+        best = None
+        for j, other in enumerate(operators):
+            if j == i or other["bottom"] >= box["top"] or other["left"] > box["left"]:
+                continue
+            if best is None or (other["left"], other["bottom"]) > (operators[best]["left"],
+                                                                     operators[best]["bottom"]):
+                best = j
+        parents[i] = best
+    kids: dict[int | None, list[int]] = {}
+    for i in range(len(operators)):
+        kids.setdefault(parents[i], []).append(i)
+    for members in kids.values():
+        members.sort(key=lambda j: (operators[j]["left"], operators[j]["top"]))
+    # unwrap the wrapper boxes at the top, then number the boxes in pre-order
+    order: list[tuple[int, int | None, int]] = []
+    todo = [(r, None, 0) for r in reversed(kids.get(None, []))]
+    while todo:
+        box_no, parent, depth = todo.pop()
+        name = _text_operator(operators[box_no])
+        if name in WRAPPERS and parent is None and kids.get(box_no):
+            todo.extend((k, None, 0) for k in reversed(kids[box_no]))
+            continue
+        if depth > MAX_DEPTH:
+            raise PlanParseError(f"plan deeper than {MAX_DEPTH} levels; refused",
+                                 line=operators[box_no]["top"] + 1, engine=NAME, fmt="text")
+        order.append((box_no, parent, depth))
+        todo.extend((k, box_no, depth + 1) for k in reversed(kids.get(box_no, [])))
+    id_of: dict[int, int] = {}
+    nodes: list[PlanNode] = []
+    statements: list[Statement] = []
+    for box_no, parent_box, depth in order:
+        parent = id_of.get(parent_box) if parent_box is not None else None
+        if parent is None:
+            statements.append(Statement(root=len(nodes), execution_ms=total_ms if not statements else None))
+        node = _node_from_box(operators[box_no], len(nodes), parent, depth, len(statements) - 1)
+        id_of[box_no] = node.id
+        if parent is not None:
+            nodes[parent].children.append(node.id)
+        nodes.append(node)
+    _relationships(nodes)
+    has_actuals = any(n.actual_rows is not None for n in nodes)
+    has_estimates = any(n.est_rows is not None for n in nodes)
+    notes = []
+    if has_actuals and not has_estimates:
+        notes.append("estimates are missing: DuckDB's text rendering of EXPLAIN ANALYZE shows "
+                     "actual rows only; run EXPLAIN (ANALYZE, FORMAT json) (or PRAGMA "
+                     "enable_profiling='json') to get the estimates beside them")
+    if not has_actuals:
+        notes.append("no actuals: this is EXPLAIN without ANALYZE, so estimates cannot be "
+                     "checked; use EXPLAIN (ANALYZE, FORMAT json)")
+    version = None
+    if any(b["style"] == "round" for b in operators):
+        version = "1.2+"
+    elif any(_ESTIMATE_LINE.match(x) and x.startswith("EC") for b in operators for x in b["content"]):
+        version = "0.x"
+    return ParsedPlan(engine=NAME, format="text", nodes=nodes, statements=statements,
+                      engine_version=version, has_actuals=has_actuals, notes=notes)
+
+
+def _find_boxes(lines: list[str]) -> list[dict]:
+    boxes = []
+    for row, line in enumerate(lines):
+        for col, char in enumerate(line):
+            if char not in _TOP_LEFT or col + 1 >= len(line) or line[col + 1] not in "─━":
+                continue
+            right = next((c for c in range(col + 1, len(line)) if line[c] in _TOP_RIGHT), None)
+            if right is None:
+                raise PlanParseError("a box's top border has no right corner", line=row + 1,
+                                     engine=NAME, fmt="text")
+            bottom = None
+            for below in range(row + 1, len(lines)):
+                edge = lines[below][col] if col < len(lines[below]) else " "
+                if edge in _BOTTOM_LEFT:
+                    bottom = below
+                    break
+                if edge not in "│┃├┠":
+                    break
+            if bottom is None:
+                raise PlanParseError("a box is not closed (its left border stops)", line=row + 1,
+                                     engine=NAME, fmt="text")
+            boxes.append({"top": row, "bottom": bottom, "left": col, "right": right,
+                          "style": "round" if char == "╭" else "square"})
+    return boxes
+
+
+def _box_text(box: dict, lines: list[str]) -> tuple[str | None, list[str]]:
+    top = lines[box["top"]][box["left"] + 1:box["right"]]
+    title_match = re.match(r"^[─━]\s(.+?)\s[─━┴┚┖┬]", top + " ─")
+    title = title_match.group(1).strip() if title_match else None
+    content = []
+    for row in range(box["top"] + 1, box["bottom"]):
+        line = lines[row]
+        content.append(line[box["left"] + 1:box["right"]].strip() if len(line) > box["left"] else "")
+    return title, content
+
+
+def _text_operator(box: dict) -> str:
+    name = box.get("title")
+    if not name:
+        name = next((x for x in box["content"] if x.strip()), "")
+    return name.strip().upper().replace(" ", "_")
+
+
+def _node_from_box(box: dict, node_id: int, parent: int | None, depth: int, stmt_no: int) -> PlanNode:
+    line_no = box["top"] + 1
+    content = [x for x in box["content"]]
+    if not box.get("title"):
+        while content and not content[0]:
+            content.pop(0)
+        if content:
+            content.pop(0)  # the name line of the square boxes
+    operator = _text_operator(box)
+    if not operator or not re.fullmatch(r"[A-Z0-9_]+", operator):
+        raise PlanParseError(f"cannot read the operator name {operator!r}", line=line_no,
+                             engine=NAME, fmt="text")
+    node = PlanNode(id=node_id, parent=parent, operator=operator, label="", statement=stmt_no,
+                    depth=depth)
+    info: dict[str, Any] = {}
+    details: list[str] = []
+    key: str | None = None
+    sections: list[list[str]] = [[]]
+    for i, raw in enumerate(content):
+        text = raw.strip()
+        where_line = box["top"] + 2 + i
+        if not text:
+            key = None
+            continue
+        if _SEPARATOR.match(text):
+            key = None
+            sections.append([])
+            continue
+        est = _ESTIMATE_LINE.match(text)
+        if est:
+            node.est_rows = _count(est.group(1) or est.group(2), None, "text", line=where_line)
+            key = None
+            continue
+        actual = _ACTUAL_LINE.match(text)
+        if actual:
+            node.actual_rows = _count(actual.group(1), None, "text", line=where_line)
+            key = None
+            continue
+        if re.fullmatch(r"[\d,]+", text):
+            following = next((x.strip() for x in content[i + 1:] if x.strip()), "")
+            if _TIME_LINE.match(following):
+                node.actual_rows = _count(text, None, "text", line=where_line)
+                continue
+        timed = _TIME_LINE.match(text)
+        if timed:
+            node.extra["own_time_ms"] = float(timed.group(1)) * 1000.0
+            continue
+        keyed = re.match(r"^([A-Z][A-Za-z ]{1,40}):\s*(.*)$", text)
+        if keyed and keyed.group(1) != "optional":
+            key = keyed.group(1)
+            info.setdefault(key, [])
+            if keyed.group(2):
+                info[key].append(keyed.group(2))
+            continue
+        if key is not None:
+            info[key].append(text)
+        else:
+            sections[-1].append(text)
+            details.append(text)
+    for name, values in list(info.items()):
+        info[name] = values[0] if len(values) == 1 else values
+    if node.operator.endswith("_SCAN") and "Table" not in info and details and \
+            node.operator != "CTE_SCAN" and re.fullmatch(r"[\w.\"]+", details[0]):
+        info["Table"] = details.pop(0)
+    if node.operator == "FILTER" and "Expression" not in info and details:
+        info["Expression"] = details.pop(0)
+    if node.operator in JOINS and "Join Type" not in info and details and details[0] in JOIN_TYPES:
+        info["Join Type"] = details.pop(0)
+        if details and "Conditions" not in info:
+            info["Conditions"] = details.pop(0)
+    if isinstance(info.get("Conditions"), list):
+        info["Conditions"] = [x.rstrip(",") for x in info["Conditions"]]
+    if details:
+        info["details"] = details
+    _apply_info(node, info, f"box at line {line_no}", "text")
+    if node.actual_rows is not None:
+        node.starts = 1.0
+        node.executed = True
+    node.extra["line"] = line_no
+    node.label = compose_label(node)
+    return node
+
+
+# ---------------------------------------------------------------------------------------
+# Values
+# ---------------------------------------------------------------------------------------
+
+def _count(value: Any, key: str | None, fmt: str, line: int | None = None) -> float | None:
+    if value is None:
+        return None
+    if isinstance(value, bool):
+        raise PlanParseError(f"expected a number, got {value!r}", key=key, line=line,
+                             engine=NAME, fmt=fmt)
+    if isinstance(value, (int, float)):
+        number = float(value)
+    elif isinstance(value, str):
+        try:
+            number = float(value.strip().replace(",", ""))
+        except ValueError:
+            raise PlanParseError(f"expected a number, got {value!r}", key=key, line=line,
+                                 engine=NAME, fmt=fmt) from None
+    else:
+        raise PlanParseError(f"expected a number, got {type(value).__name__}", key=key, line=line,
+                             engine=NAME, fmt=fmt)
+    if number != number or number in (float("inf"), float("-inf")) or number < 0:
+        raise PlanParseError(f"expected a finite count of at least 0, got {value!r}", key=key,
+                             line=line, engine=NAME, fmt=fmt)
+    return number
+
+
+def _seconds_ms(value: Any, key: str) -> float | None:
+    if value is None:
+        return None
+    seconds = _count(value, key, "json")
+    return None if seconds is None else seconds * 1000.0
+
+
+def _opt_str(value: Any) -> str | None:
+    return value if isinstance(value, str) else None
+
+
+def _join_text(value: Any, key: str, fmt: str) -> str:
+    if isinstance(value, str):
+        return value
+    if isinstance(value, list) and all(isinstance(x, str) for x in value):
+        return "\n".join(value)
+    if isinstance(value, (int, float)) and not isinstance(value, bool):
+        return str(value)
+    raise PlanParseError(f"expected text, got {type(value).__name__}", key=key, engine=NAME, fmt=fmt)
+
+
+# ---------------------------------------------------------------------------------------
+# Roles and fixes
+# ---------------------------------------------------------------------------------------
+
+def _subtree_dynamic_filter(node: PlanNode, nodes: list[PlanNode]) -> str | None:
+    """The dynamic filter a join pushed into its probe side, if the profile shows one."""
+    info = node.extra.get("extra_info") or {}
+    if "Build Min" in info or "Build Max" in info:
+        return "the join's build-side minimum and maximum"
+    todo = [node.children[0]] if node.children else []
+    while todo:
+        current = nodes[todo.pop()]
+        found = next((c.text for c in current.conditions if c.kind == "dynamic_filter"), None)
+        if found:
+            return found
+        if current.operator not in JOINS:
+            todo.extend(current.children[:1] if current.operator in AGGREGATES else current.children)
+    return None
+
+
+def role(node: PlanNode, nodes: list[PlanNode], parsed: ParsedPlan) -> Role:
+    rule = INPUT_RULES.get(node.operator)
+    if rule is None:
+        rule = "source" if node.operator.endswith("_SCAN") or not node.children else "pass"
+    result = Role(rule=rule)
+    if rule == "join":
+        if node.join_type in SEMI_OUTER:
+            result.rule = "semi_outer"
+        elif node.join_type in SEMI_INNER:
+            result.rule = "semi_inner"
+        result.preserved = PRESERVED.get(node.join_type or "")
+        if len(node.children) > 1:
+            result.complete_inputs = tuple(node.children[1:])
+        if node.operator == "HASH_JOIN" and node.children:
+            probe = nodes[node.children[0]]
+            how = _subtree_dynamic_filter(node, nodes)
+            if how and probe.est_rows is not None and probe.actual_rows is not None:
+                if probe.actual_rows < probe.est_rows:
+                    result.stops_inputs = {probe.id: DYNAMIC_FILTER_REASON.format(how=how)}
+                else:
+                    result.cut_inputs = {probe.id: f"its probe input was cut while running by a "
+                                                   f"dynamic filter ({how}), so that input's "
+                                                   "underestimate is at least what it shows"}
+    if node.operator == "TOP_N":
+        # Top-N reads all its input; when it reached its N its count is the N, not the input's
+        top = _count_or_none((node.extra.get("extra_info") or {}).get("Top"))
+        if top is not None and node.actual_rows is not None and node.actual_rows >= top:
+            result.rule = "source"
+    result.blocking = node.operator in BLOCKING
+    result.limit = node.operator in LIMITS
+    if node.operator == "CTE_SCAN":
+        index = (node.extra.get("extra_info") or {}).get("CTE Index")
+        for other in nodes:
+            if other.operator == "CTE" and other.statement == node.statement and other.children \
+                    and (other.extra.get("extra_info") or {}).get("Table Index") == index:
+                result.reads = other.children[0]
+                break
+        if result.reads is None:
+            result.rule = "source"
+    return result
+
+
+def _count_or_none(value: Any) -> float | None:
+    try:
+        return float(str(value).replace(",", ""))
+    except (TypeError, ValueError):
+        return None
+
+
+_CAUTION = (
+    "{cost} Whether and when to run it is for your change process and a DBA (or whoever owns "
+    "the database file) to decide."
+)
+
+
+def suggest_fix(cause: str, table: str | None, columns: list[str] | tuple[str, ...] = (),
+                **details: Any) -> tuple[str, str] | None:
+    """A fix in DuckDB's own terms, saying plainly which levers DuckDB has and which it lacks.
+
+    DuckDB keeps per-column min/max and a distinct count (kept up to date as data changes,
+    refreshed in full by ``ANALYZE``); it has no histograms, no most-common-value lists, no
+    multi-column statistics and no per-column statistics target to raise.
+    """
+    target = table or "the_table"
+    cols = ", ".join(columns)
+    analyze = f"ANALYZE {target}({cols});" if cols else f"ANALYZE {target};"
+    if cause == "stale_statistics":
+        return (analyze,
+                _CAUTION.format(cost=f"ANALYZE reads every row of {target} to recompute its "
+                                     "distinct counts, and takes the write lock on the database "
+                                     "while it runs (DuckDB has one writer at a time)."))
+    lacks = {
+        "correlation": "DuckDB has no multi-column (extended) statistics and no statistics "
+                       "target to raise, so it cannot learn that these columns move together.",
+        "skew": "DuckDB keeps no histogram and no most-common-value list: an equality is "
+                "estimated from the distinct count alone, so a frequent value is always "
+                "underestimated and a rare one overestimated.",
+        "range_gap": "DuckDB keeps only the minimum and maximum of a column, no histogram, so "
+                     "it cannot see an empty stretch inside the range.",
+        "default_selectivity": "DuckDB applies a fixed selectivity to predicates it has no "
+                               "statistics for (a range came out at 20% in our runs of 2.0.1); "
+                               "there is no setting to change it.",
+    }
+    if cause not in lacks:
+        return None
+    rewrite = {
+        "correlation": "drop a condition the others already imply, or keep the combination as "
+                       "a column of its own and filter on that",
+        "skew": "run the frequent value as its own query, or materialise it as its own table",
+        "range_gap": "cut the range to where the data is, or keep the rows of the stretch in a "
+                     "table of their own",
+        "default_selectivity": "write the predicate on the bare column (no function or cast "
+                               "around it), so min/max and distinct counts apply",
+    }[cause]
+    sql = (f"-- DuckDB offers no statistics lever for this: {lacks[cause]}\n"
+           f"-- What DuckDB does offer: {analyze} refreshes the distinct counts (it cannot help "
+           f"here beyond that), and rewriting the query: {rewrite}.\n"
+           f"-- {analyze}")
+    caution = _CAUTION.format(cost="Rewriting the query costs nothing to run but changes the "
+                                   "application; ANALYZE reads the whole table and holds DuckDB's "
+                                   "single write lock while it runs.")
+    return sql, caution

@@ -1,0 +1,161 @@
+"""What every emitter shares: the colour scale, number wording and which nodes open first."""
+
+from __future__ import annotations
+
+import math
+from typing import Any
+
+VIK = (
+    "#001261", "#022b71", "#034481", "#0c5e92", "#307da6", "#619ebd", "#94bed2", "#c6dbe6",
+    "#ece5e0", "#e9ccba", "#dcac90", "#cf8e68", "#c37243", "#b3531f", "#942f06", "#741506",
+    "#590008",
+)
+"""Crameri's Scientific colour maps 8, "vik", at 17 evenly spaced points: log10(actual /
+estimated) from -4 (blue, estimate too high) to +4 (red, estimate too low). The ES module
+holds the same list (a test keeps the two equal)."""
+
+SCALE_LIMIT = 4.0
+LARGE_PLAN = 80
+"""Plans with more operators than this open folded, with only the paths to the origins open."""
+
+CAUSE_WORDS = {
+    "correlation": "correlated columns",
+    "skew": "skewed values",
+    "range_gap": "values past the histogram's range",
+    "stale_statistics": "stale statistics",
+    "default_selectivity": "a default selectivity guess",
+    "unexplained": "no cause found",
+}
+
+GENERIC_CAUTION = (
+    "Run fixes on a replica or in a quiet hour first: ANALYZE reads a sample of the table, "
+    "CREATE STATISTICS and index builds take locks, and re-checking with EXPLAIN ANALYZE runs "
+    "the statement."
+)
+
+
+def ratio_colour(log10_ratio: float) -> str:
+    t = max(-SCALE_LIMIT, min(SCALE_LIMIT, log10_ratio))
+    pos = (t + SCALE_LIMIT) / (2 * SCALE_LIMIT) * (len(VIK) - 1)
+    low = math.floor(pos)
+    high = min(len(VIK) - 1, low + 1)
+    frac = pos - low
+    a, b = _rgb(VIK[low]), _rgb(VIK[high])
+    r, g, bl = (round(x + (y - x) * frac) for x, y in zip(a, b))
+    return f"rgb({r}, {g}, {bl})"
+
+
+def ink_for(log10_ratio: float) -> str:
+    return "#ffffff" if abs(log10_ratio) >= 2.2 else "#1b1b1b"
+
+
+def _rgb(hex_colour: str) -> tuple[int, int, int]:
+    return tuple(int(hex_colour[i:i + 2], 16) for i in (1, 3, 5))  # type: ignore[return-value]
+
+
+def rows(value: float | None) -> str:
+    if value is None:
+        return "–"
+    if abs(value) >= 1e9:
+        return f"{value / 1e9:.3g}G"
+    if abs(value) >= 1e7:
+        return f"{value / 1e6:.3g}M"
+    if float(value).is_integer():
+        return f"{value:,.0f}"
+    if abs(value) >= 100:
+        return f"{value:,.0f}"
+    if abs(value) < 1:
+        return f"{value:.3g}"
+    return f"{value:,.2f}".rstrip("0").rstrip(".")
+
+
+def factor(q: float | None) -> str:
+    if q is None:
+        return "–"
+    if q >= 1e6:
+        return f"×{q:.1e}"
+    if q >= 100:
+        return f"×{q:,.0f}"
+    return f"×{q:.0f}" if q >= 10 else f"×{q:.1f}"
+
+
+def ms(value: float | None) -> str:
+    if value is None:
+        return "–"
+    return f"{value / 1000:.2f} s" if value >= 1000 else f"{value:.3f} ms" if value < 10 else f"{value:.1f} ms"
+
+
+def error_words(log10_ratio: float | None, q: float | None) -> str:
+    if log10_ratio is None:
+        return "–"
+    if abs(log10_ratio) < 0.02:
+        return "on target"
+    return f"{factor(q if q is not None else 10 ** abs(log10_ratio))} " + (
+        "too few est." if log10_ratio > 0 else "too many est.")
+
+
+def cause_words(cause: str | None) -> str | None:
+    if not cause:
+        return None
+    return CAUSE_WORDS.get(cause, str(cause).replace("_", " "))
+
+
+def node_state(node: dict[str, Any]) -> str:
+    if node.get("origin"):
+        return "origin"
+    if node.get("inherits_from"):
+        return "inherited"
+    if not node.get("judged"):
+        return "neutral"
+    return "judged"
+
+
+def ancestors(by_id: dict[int, dict[str, Any]], node_id: int) -> list[int]:
+    out: list[int] = []
+    node = by_id.get(node_id)
+    while node is not None and node.get("parent") is not None and node["parent"] not in out:
+        out.append(node["parent"])
+        node = by_id.get(node["parent"])
+    return out
+
+
+def paths_to_origins(report: dict[str, Any]) -> set[int]:
+    """The origins and every node above them: what a large plan shows first."""
+    by_id = {n["id"]: n for n in report["nodes"]}
+    keep: set[int] = set()
+    for finding in report["findings"]:
+        keep.add(finding["node"])
+        keep.update(ancestors(by_id, finding["node"]))
+    return keep
+
+
+def evidence_items(evidence: Any) -> tuple[list[str], list[tuple[str, str]]]:
+    """The evidence's sentences, and its other scalar or flat-list items as (key, text)."""
+    if not isinstance(evidence, dict):
+        return [], []
+    lines = [str(x) for x in evidence.get("lines") or [] if x is not None] \
+        if isinstance(evidence.get("lines"), list) else []
+    pairs: list[tuple[str, str]] = []
+    for key, value in evidence.items():
+        if key == "lines" or value is None:
+            continue
+        if isinstance(value, (list, tuple)):
+            if any(isinstance(x, (dict, list, tuple)) for x in value):
+                continue
+            text = ", ".join(_scalar(x) for x in value)
+        elif isinstance(value, dict):
+            continue
+        else:
+            text = _scalar(value)
+        pairs.append((str(key).replace("_", " "), text))
+    return lines, pairs
+
+
+def _scalar(value: Any) -> str:
+    if isinstance(value, bool):
+        return "yes" if value else "no"
+    if isinstance(value, float) and abs(value) < 1:
+        return f"{value:.4g}"
+    if isinstance(value, (int, float)):
+        return rows(float(value))
+    return str(value)

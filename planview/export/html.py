@@ -1,0 +1,234 @@
+"""The review as HTML: the self-contained page for a ticket, and the static tree for viewers
+with no widget front end (nbconvert, a notebook viewer, a mail client).
+
+Every string from the plan goes through `html.escape` here, or, in the page, is handed to the
+ES module as JSON data that it only ever puts into the page as text.
+"""
+
+from __future__ import annotations
+
+import base64
+import hashlib
+import html
+import json
+from importlib import resources
+from typing import Any
+
+from .common import (
+    GENERIC_CAUTION,
+    LARGE_PLAN,
+    cause_words,
+    error_words,
+    evidence_items,
+    factor,
+    ink_for,
+    ms,
+    node_state,
+    paths_to_origins,
+    ratio_colour,
+    rows,
+)
+
+STATIC_ROW_LIMIT = 300
+"""The static tree lists every operator up to this many; past it, only the paths to the origins."""
+
+
+def _asset(name: str) -> str:
+    return resources.files("planview").joinpath("widget", name).read_text(encoding="utf-8")
+
+
+def widget_module() -> str:
+    return _asset("review.js")
+
+
+def widget_css() -> str:
+    return _asset("review.css")
+
+
+def compact_report(report: dict[str, Any]) -> dict[str, Any]:
+    """The report with empty node fields left out (the ES module reads a missing key as
+    empty), so a 5,000-operator page stays small. Every value kept is the report's own."""
+    empty = (None, "", [], {})
+    nodes = [{k: v for k, v in node.items() if not any(v is e or v == e for e in empty)
+              or k in ("id", "parent")} for node in report["nodes"]]
+    return {**report, "nodes": nodes}
+
+
+def _json_for_script(value: Any) -> str:
+    """JSON that cannot end its <script> element or open a comment inside it."""
+    text = json.dumps(value, ensure_ascii=False, allow_nan=False, separators=(",", ":"))
+    return text.replace("<", "\\u003c").replace(">", "\\u003e").replace("&", "\\u0026") \
+        .replace("\u2028", "\\u2028").replace("\u2029", "\\u2029")
+
+
+_BOOT = """
+const planviewData = JSON.parse(document.getElementById("planview-data").textContent);
+const planviewState = { report: planviewData.report, selected: null, chart_mode: "svg", can_save: false };
+const planviewAsked = /^#node-(\\d+)$/.exec(window.location.hash || "");
+if (planviewAsked) planviewState.selected = Number(planviewAsked[1]);
+const planviewModel = localModel(planviewState);
+planviewModel.on("change:selected", () => {
+  const id = planviewModel.get("selected");
+  try {
+    window.history.replaceState(null, "", id === null ? window.location.pathname : `#node-${id}`);
+  } catch (error) { /* a viewer that forbids it loses nothing but the address */ }
+});
+render({ model: planviewModel, el: document.getElementById("planview-root") });
+"""
+
+
+def render_html(plan) -> str:
+    """One offline page: the tree, the detail panel and the charts, with no network at all."""
+    from .markdown import render_markdown
+
+    report = plan.report()
+    module = widget_module()
+    if "</script" in module.lower() or "<!--" in module:
+        raise RuntimeError("review.js must not contain '</script' or '<!--'")
+    script = module + "\n" + _BOOT
+    digest = base64.b64encode(hashlib.sha256(script.encode("utf-8")).digest()).decode("ascii")
+    policy = (f"default-src 'none'; script-src 'sha256-{digest}'; style-src 'unsafe-inline'; "
+              "img-src data:; form-action 'none'; base-uri 'none'")
+    title = _page_title(report)
+    ticket = render_markdown(plan)
+    return "".join([
+        "<!DOCTYPE html>\n<html lang=\"en\"><head><meta charset=\"utf-8\">",
+        f"<meta http-equiv=\"Content-Security-Policy\" content=\"{html.escape(policy)}\">",
+        "<meta name=\"viewport\" content=\"width=device-width, initial-scale=1\">",
+        "<meta name=\"generator\" content=\"planview\">",
+        f"<title>{html.escape(title)}</title>",
+        "<style>", widget_css(), _PAGE_CSS, "</style></head><body>",
+        "<main><div id=\"planview-root\"></div>",
+        "<noscript>", render_static_tree(plan), "</noscript>",
+        "<details class=\"pv-ticket\"><summary>Ticket text (Markdown)</summary><pre>",
+        html.escape(ticket), "</pre></details></main>",
+        "<script type=\"application/json\" id=\"planview-data\">",
+        _json_for_script({"report": compact_report(report)}), "</script>",
+        "<script type=\"module\">", script, "</script>",
+        "</body></html>\n",
+    ])
+
+
+_PAGE_CSS = """
+body { margin: 16px; background: #ffffff; }
+main { max-width: 1500px; margin: 0 auto; }
+.pv-ticket { margin-top: 14px; font-family: system-ui, sans-serif; font-size: 13px; }
+.pv-ticket pre { white-space: pre-wrap; background: #f4f4f4; padding: 8px; border: 1px solid #ddd; }
+"""
+
+
+def _page_title(report: dict[str, Any]) -> str:
+    by_id = {n["id"]: n for n in report["nodes"]}
+    findings = report["findings"]
+    if findings:
+        top = by_id.get(findings[0]["node"], {})
+        return f"planview: {len(findings)} origin(s), worst at {top.get('label', '?')}"
+    return f"planview: {len(report['nodes'])} operators, no origin"
+
+
+# -- the static tree -----------------------------------------------------------------------------
+
+_STATIC_CSS = """
+<style>
+.pvs { font-family: system-ui, -apple-system, "Segoe UI", sans-serif; font-size: 13px; }
+.pvs table { border-collapse: collapse; }
+.pvs th, .pvs td { padding: 1px 8px; text-align: left; vertical-align: top; }
+.pvs .n { text-align: right; font-variant-numeric: tabular-nums; }
+.pvs .e { text-align: center; border-radius: 2px; }
+.pvs .neutral td { color: #6b6b6b; }
+.pvs .neutral .e { border: 1px dashed #9a9a9a; font-style: italic; }
+.pvs .origin td:first-child { border-left: 3px solid #222; font-weight: 700; }
+.pvs .inherited td:first-child { border-left: 3px dotted #888; }
+.pvs .legend span { display: inline-block; width: 14px; height: 10px; }
+.pvs pre { background: #f4f4f4; padding: 6px; white-space: pre-wrap; }
+.pvs .caution { border: 1px solid #b58a00; padding: 3px 6px; }
+</style>
+"""
+
+
+def render_static_tree(plan) -> str:
+    """The tree and the origins as plain HTML with no script: what a viewer with no widget
+    front end shows."""
+    report = plan.report()
+    nodes = report["nodes"]
+    by_id = {n["id"]: n for n in nodes}
+    shown = nodes
+    note = ""
+    if len(nodes) > STATIC_ROW_LIMIT:
+        keep = paths_to_origins(report)
+        shown = [n for n in nodes if n["id"] in keep or n.get("parent") is None][:STATIC_ROW_LIMIT]
+        note = (f"<p>{len(nodes) - len(shown):,} of {len(nodes):,} operators are left out here: "
+                "this static view lists the paths to the origins. Open the interactive review "
+                "or the exported page for all of them.</p>")
+    esc = html.escape
+    out = [_STATIC_CSS, '<div class="pvs">']
+    findings = report["findings"]
+    statement = (report["statements"] or [{}])[0]
+    facts = [f"{report['engine']}" + (f" {report['engine_version']}" if report["engine_version"] else ""),
+             f"{report['format']} format", f"{len(nodes):,} operators",
+             f"{len(findings)} origin(s) at {factor(report['threshold'])} or worse"]
+    if statement.get("execution_ms") is not None:
+        facts.append(f"ran {ms(statement['execution_ms'])}")
+    out.append(f"<p><strong>Plan review</strong> · {esc(' · '.join(facts))}</p>")
+    for n in report["notes"]:
+        out.append(f"<p><em>{esc(n)}</em></p>")
+    legend = "".join(f'<span style="background:{ratio_colour(v / 2)}"></span>' for v in range(-8, 9))
+    out.append(f'<p class="legend">estimate too high {legend} estimate too low · '
+               "◆ origin: error starts here · ↳ carried from below · dashed: not judged</p>")
+    out.append(note)
+    out.append("<table><thead><tr><th>operator</th><th class=\"n\">estimated</th>"
+               "<th class=\"n\">actual</th><th class=\"n\">starts</th><th>error</th><th></th>"
+               "</tr></thead><tbody>")
+    findings_by_node = {f["node"]: f for f in findings}
+    for node in shown:
+        state = node_state(node)
+        ratio = node["log10_ratio"] if node.get("judged") else None
+        if ratio is None:
+            err = '<td class="e">not judged</td>' if not node.get("judged") else '<td class="e">–</td>'
+        else:
+            err = (f'<td class="e" style="background:{ratio_colour(ratio)};color:{ink_for(ratio)}">'
+                   f"{esc(error_words(ratio, node['q_error']))}</td>")
+        if state == "origin":
+            f = findings_by_node.get(node["id"], {})
+            mark = f"◆ {f.get('rank', '')} {cause_words(f.get('cause')) or ''}"
+        elif state == "inherited":
+            mark = "↳ from #" + ", #".join(str(i) for i in node["inherits_from"][:3])
+        elif state == "neutral":
+            mark = node.get("not_judged_reason") or ""
+        else:
+            mark = ""
+        indent = "&nbsp;" * (3 * min(node.get("depth") or 0, 60))
+        out.append(
+            f'<tr class="{state}"><td>{indent}#{node["id"]} {esc(node["label"] or node["operator"] or "")}</td>'
+            f'<td class="n">{esc(rows(node["est_total"] if node["est_total"] is not None else node["est_rows"]))}</td>'
+            f'<td class="n">{esc(rows(node["actual_total"]))}</td><td class="n">{esc(rows(node["starts"]))}</td>'
+            f"{err}<td>{esc(mark)}</td></tr>")
+    out.append("</tbody></table>")
+    if findings:
+        out.append("<h4>Origins, most impact first</h4>")
+    for f in findings:
+        node = by_id.get(f["node"], {})
+        out.append(f"<div><p><strong>{f['rank']}. #{f['node']} {esc(node.get('label') or '')}</strong>: "
+                   f"estimate {esc(factor(f['own_q_error']))} too {'low' if f['direction'] == 'under' else 'high'} "
+                   f"here ({esc(factor(f['q_error']))} in all)"
+                   + (f"; cause: {esc(cause_words(f['cause']) or '')}" if f.get("cause") else "; not diagnosed yet")
+                   + "</p>")
+        if f.get("summary"):
+            out.append(f"<p>{esc(f['summary'])}</p>")
+        lines, pairs = evidence_items(f.get("evidence"))
+        if lines:
+            out.append("<ul>" + "".join(f"<li>{esc(x)}</li>" for x in lines) + "</ul>")
+        if pairs:
+            out.append("<table>" + "".join(f"<tr><th>{esc(k)}</th><td>{esc(v)}</td></tr>" for k, v in pairs)
+                       + "</table>")
+        if f.get("fix"):
+            out.append(f"<pre>{esc(f['fix'])}</pre>")
+            out.append(f'<p class="caution"><strong>Before you run it:</strong> {esc(f.get("caution") or GENERIC_CAUTION)}</p>')
+        elif f.get("caution"):
+            out.append(f'<p class="caution"><strong>Caution:</strong> {esc(f["caution"])}</p>')
+        out.append("</div>")
+    out.append("</div>")
+    return "".join(out)
+
+
+__all__ = ["LARGE_PLAN", "compact_report", "render_html", "render_static_tree", "widget_css", "widget_module"]

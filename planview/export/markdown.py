@@ -1,0 +1,128 @@
+"""The ticket body in Markdown: the query's summary, the origins with cause, q-error, evidence
+and fix, and the cautions.
+
+Plan strings are text here too: outside code they have every Markdown and HTML sign escaped;
+conditions and SQL go into code spans and fences, which no Markdown renderer reads as markup.
+"""
+
+from __future__ import annotations
+
+import re
+from typing import Any
+
+from .common import GENERIC_CAUTION, cause_words, evidence_items, factor, ms
+
+_SIGNS = re.compile(r"([\\`*_{}\[\]<>#|~$&])")
+
+
+def md_text(value: Any) -> str:
+    """Plain text for Markdown: every sign a renderer could act on is backslash-escaped,
+    `<` and `&` become entities, and line breaks become spaces (so a table row stays one)."""
+    text = " ".join(str(value).split())
+    text = _SIGNS.sub(r"\\\1", text)
+    return text.replace("\\<", "&lt;").replace("\\>", "&gt;").replace("\\&", "&amp;")
+
+
+def md_code(value: Any, *, in_table: bool = False) -> str:
+    """An inline code span long enough to hold any backticks in the text."""
+    text = " ".join(str(value).split())
+    ticks = "`" * (max((len(m) for m in re.findall(r"`+", text)), default=0) + 1)
+    if in_table:
+        text = text.replace("|", "\\|")
+    pad = " " if text.startswith("`") or text.endswith("`") or not text.strip() else ""
+    return f"{ticks}{pad}{text}{pad}{ticks}"
+
+
+def md_fence(text: str, lang: str = "") -> str:
+    fence = "`" * max(3, max((len(m) for m in re.findall(r"`+", text)), default=0) + 1)
+    return f"{fence}{lang}\n{text.rstrip()}\n{fence}"
+
+
+def render_markdown(plan) -> str:
+    report = plan.report()
+    nodes = report["nodes"]
+    by_id = {n["id"]: n for n in nodes}
+    findings = report["findings"]
+    statement = (report["statements"] or [{}])[0]
+    engine = report["engine"] + (f" {report['engine_version']}" if report["engine_version"] else "")
+    lang = getattr(plan, "sql_dialect", None) and "sql" or "sql"
+    out = [f"## Query plan review: {len(findings)} estimate origin{'s' if len(findings) != 1 else ''}", ""]
+    facts = [f"engine: {md_text(engine)} ({md_text(report['format'])})",
+             f"operators: {len(nodes):,}",
+             f"origins at {md_text(factor(report['threshold']))} or worse: {len(findings)}"]
+    if statement.get("execution_ms") is not None:
+        facts.append(f"execution time: {md_text(ms(statement['execution_ms']))}")
+    if statement.get("planning_ms") is not None:
+        facts.append(f"planning time: {md_text(ms(statement['planning_ms']))}")
+    judged = [n for n in nodes if n.get("judged")]
+    worst = max(judged, key=lambda n: n.get("q_error") or 1.0, default=None)
+    if worst and worst.get("q_error"):
+        facts.append(f"largest error: {md_text(factor(worst['q_error']))} at "
+                     f"\\#{worst['id']} {md_text(worst['label'])}")
+    out += [f"- {fact}" for fact in facts]
+    out += [f"- note: {md_text(note)}" for note in report["notes"]]
+    if not report["has_actuals"]:
+        out.append("- estimates only: the plan has no actual rows, so nothing could be judged")
+    if statement.get("query_text"):
+        out += ["", "Query:", "", md_fence(statement["query_text"], lang)]
+    if not findings:
+        out += ["", "No operator's estimate is off by the threshold or more."]
+        return "\n".join(out) + "\n"
+    out += ["", "### Origins, most impact first", "",
+            "| # | operator | estimate | q-error here (in all) | cause | evidence | fix |",
+            "|---|---|---|---|---|---|---|"]
+    for f in findings:
+        node = by_id.get(f["node"], {})
+        lines, pairs = evidence_items(f.get("evidence"))
+        evidence = "; ".join(md_text(x) for x in lines[:2]) or "; ".join(
+            f"{md_text(k)}: {md_text(v)}" for k, v in pairs[:3]) or "–"
+        fix = md_code(f["fix"].strip().splitlines()[0] + (" …" if len(f["fix"].strip().splitlines()) > 1 else ""),
+                      in_table=True) if f.get("fix") else "–"
+        cause = md_text(cause_words(f.get("cause")) or "not diagnosed yet")
+        if f.get("confidence") is not None:
+            cause += f" ({round(f['confidence'] * 100)}%)"
+        out.append(
+            f"| {f['rank']} | \\#{f['node']} {md_text(node.get('label') or '')} | "
+            f"too {'low' if f['direction'] == 'under' else 'high'} | {md_text(factor(f['own_q_error']))} "
+            f"({md_text(factor(f['q_error']))}) | {cause} | {evidence} | {fix} |")
+    out += ["", "### Each origin"]
+    for f in findings:
+        node = by_id.get(f["node"], {})
+        cause = cause_words(f.get("cause"))
+        out += ["", f"#### {f['rank']}. \\#{f['node']} {md_text(node.get('label') or '')}"
+                + (f": {md_text(cause)}" if cause else ""), ""]
+        out.append(f"Estimated {md_text(_rows(node.get('est_total')))} rows, got "
+                   f"{md_text(_rows(node.get('actual_total')))} over {md_text(_rows(node.get('starts')))} "
+                   f"start(s): {md_text(factor(f['own_q_error']))} too "
+                   f"{'low' if f['direction'] == 'under' else 'high'} here.")
+        for c in node.get("conditions") or []:
+            out.append(f"- {md_text(c.get('key') or c.get('kind') or '')}: {md_code(c.get('text') or '')}")
+        if f.get("summary"):
+            out += ["", md_text(f["summary"])]
+        lines, pairs = evidence_items(f.get("evidence"))
+        if lines or pairs:
+            out += ["", "Evidence:", ""]
+            out += [f"- {md_text(x)}" for x in lines]
+            out += [f"- {md_text(k)}: {md_text(v)}" for k, v in pairs]
+        impact = f.get("impact") or {}
+        if isinstance(impact, dict) and (impact.get("text") or impact.get("ms") is not None):
+            out += ["", "Impact: " + " ".join(x for x in (
+                md_text(ms(impact["ms"])) + "." if impact.get("ms") is not None else "",
+                md_text(impact.get("text") or "")) if x)]
+        if f.get("fix"):
+            out += ["", "Fix:", "", md_fence(f["fix"], "sql"), "",
+                    f"> **Before you run it:** {md_text(f.get('caution') or GENERIC_CAUTION)}"]
+        elif f.get("caution"):
+            out += ["", f"> **Caution:** {md_text(f['caution'])}"]
+    cautions = [f["caution"] for f in findings if f.get("caution")]
+    if cautions:
+        out += ["", "### Cautions", ""]
+        for text in dict.fromkeys(cautions):
+            out.append(f"- {md_text(text)}")
+    return "\n".join(out) + "\n"
+
+
+def _rows(value):
+    from .common import rows
+
+    return rows(value)

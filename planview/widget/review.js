@@ -1,0 +1,920 @@
+// planview review: the operator tree, the detail of one node, and (in the standalone page) the charts.
+//
+// One plain ES module, no build step. It renders inside Jupyter through anywidget
+// (`render({model, el})`) and inside the exported page, where a small local object stands in
+// for the widget model. Every string that comes from a plan is put in the page as text
+// (textContent, createTextNode, setAttribute on a fixed list of names); nothing here parses
+// markup.
+
+// Crameri, Scientific colour maps 8, "vik", sampled at 17 evenly spaced points. It is read
+// here as log10(actual / estimated) from -4 (10^4 times too many rows estimated: blue) to +4
+// (10^4 times too few: red), half an order of magnitude a step.
+export const VIK = [
+  "#001261", "#022b71", "#034481", "#0c5e92", "#307da6", "#619ebd", "#94bed2", "#c6dbe6",
+  "#ece5e0", "#e9ccba", "#dcac90", "#cf8e68", "#c37243", "#b3531f", "#942f06", "#741506",
+  "#590008",
+];
+const SCALE_LIMIT = 4;
+const LARGE_PLAN = 80;
+const SVG_NS = "http://www.w3.org/2000/svg";
+const SAFE_ATTRS = new Set([
+  "class", "title", "role", "tabindex", "type", "id", "for", "value", "href", "target", "rel",
+  "aria-label", "aria-level", "aria-expanded", "aria-selected", "aria-pressed", "aria-live",
+  "aria-hidden", "aria-controls", "disabled", "checked", "spellcheck", "placeholder",
+]);
+
+// ---------------------------------------------------------------------------------------------
+// small helpers
+
+function el(tag, attrs, ...children) {
+  const node = document.createElement(tag);
+  setAttrs(node, attrs);
+  append(node, children);
+  return node;
+}
+
+function svg(tag, attrs, ...children) {
+  const node = document.createElementNS(SVG_NS, tag);
+  for (const [name, value] of Object.entries(attrs || {})) {
+    if (value !== null && value !== undefined) node.setAttribute(name, String(value));
+  }
+  append(node, children);
+  return node;
+}
+
+function setAttrs(node, attrs) {
+  for (const [name, value] of Object.entries(attrs || {})) {
+    if (value === null || value === undefined || value === false) continue;
+    if (name.startsWith("data-") || SAFE_ATTRS.has(name)) {
+      node.setAttribute(name, value === true ? "" : String(value));
+    } else {
+      throw new Error(`planview: attribute ${name} is not on the allowed list`);
+    }
+  }
+}
+
+function append(node, children) {
+  for (const child of children.flat(Infinity)) {
+    if (child === null || child === undefined || child === false) continue;
+    node.appendChild(child instanceof Node ? child : document.createTextNode(String(child)));
+  }
+}
+
+function hexToRgb(hex) {
+  return [1, 3, 5].map((i) => parseInt(hex.slice(i, i + 2), 16));
+}
+
+const VIK_RGB = VIK.map(hexToRgb);
+
+export function ratioColour(log10Ratio) {
+  const t = Math.max(-SCALE_LIMIT, Math.min(SCALE_LIMIT, log10Ratio));
+  const pos = ((t + SCALE_LIMIT) / (2 * SCALE_LIMIT)) * (VIK.length - 1);
+  const low = Math.floor(pos);
+  const high = Math.min(VIK.length - 1, low + 1);
+  const frac = pos - low;
+  const rgb = VIK_RGB[low].map((c, i) => Math.round(c + (VIK_RGB[high][i] - c) * frac));
+  return `rgb(${rgb[0]}, ${rgb[1]}, ${rgb[2]})`;
+}
+
+function inkFor(log10Ratio) {
+  return Math.abs(log10Ratio) >= 2.2 ? "#ffffff" : "#1b1b1b";
+}
+
+export function formatRows(value) {
+  if (value === null || value === undefined) return "–";
+  const abs = Math.abs(value);
+  if (abs >= 1e9) return `${(value / 1e9).toPrecision(3)}G`;
+  if (abs >= 1e7) return `${(value / 1e6).toPrecision(3)}M`;
+  if (Number.isInteger(value)) return value.toLocaleString("en-US");
+  if (abs >= 100) return Math.round(value).toLocaleString("en-US");
+  return value.toLocaleString("en-US", { maximumFractionDigits: 2 });
+}
+
+function formatFactor(q) {
+  if (q === null || q === undefined) return "–";
+  if (q >= 1e6) return `×${q.toExponential(1)}`;
+  if (q >= 100) return `×${Math.round(q).toLocaleString("en-US")}`;
+  return `×${q.toFixed(q >= 10 ? 0 : 1)}`;
+}
+
+function formatMs(ms) {
+  if (ms === null || ms === undefined) return "–";
+  if (ms >= 1000) return `${(ms / 1000).toFixed(2)} s`;
+  return `${ms.toFixed(ms >= 10 ? 1 : 3)} ms`;
+}
+
+function errorWords(log10Ratio, q) {
+  if (log10Ratio === null || log10Ratio === undefined) return "–";
+  if (Math.abs(log10Ratio) < 0.02) return "on target";
+  return `${formatFactor(q ?? Math.pow(10, Math.abs(log10Ratio)))} ${log10Ratio > 0 ? "too few est." : "too many est."}`;
+}
+
+const CAUSE_WORDS = {
+  correlation: "correlated columns",
+  skew: "skewed values",
+  range_gap: "values past the histogram's range",
+  stale_statistics: "stale statistics",
+  default_selectivity: "a default selectivity guess",
+  unexplained: "no cause found",
+};
+
+function causeWords(cause) {
+  if (!cause) return null;
+  return CAUSE_WORDS[cause] || String(cause).replace(/_/g, " ");
+}
+
+const GENERIC_CAUTION =
+  "Run fixes on a replica or in a quiet hour first: ANALYZE reads a sample of the table, " +
+  "CREATE STATISTICS and index builds take locks, and re-checking with EXPLAIN ANALYZE runs the statement.";
+
+// ---------------------------------------------------------------------------------------------
+// the plan, indexed once
+
+function indexPlan(report) {
+  const nodes = Array.isArray(report.nodes) ? report.nodes : [];
+  const byId = new Map();
+  for (const node of nodes) byId.set(node.id, node);
+  const findings = (Array.isArray(report.findings) ? report.findings : [])
+    .filter((f) => byId.has(f.node))
+    .slice()
+    .sort((a, b) => (a.rank ?? 0) - (b.rank ?? 0));
+  const findingOf = new Map(findings.map((f) => [f.node, f]));
+  const roots = nodes.filter((n) => n.parent === null || n.parent === undefined || !byId.has(n.parent));
+  // pre-order, children as listed; iterative so depth never costs a stack frame
+  const order = [];
+  const stack = roots.slice().reverse();
+  const seen = new Set();
+  while (stack.length) {
+    const node = stack.pop();
+    if (seen.has(node.id)) continue;
+    seen.add(node.id);
+    order.push(node);
+    const kids = (node.children || []).map((c) => byId.get(c)).filter(Boolean);
+    for (let i = kids.length - 1; i >= 0; i--) stack.push(kids[i]);
+  }
+  const subtreeSize = new Map();
+  const originsBelow = new Map();
+  for (let i = order.length - 1; i >= 0; i--) {
+    const node = order[i];
+    let size = 0;
+    let origins = 0;
+    for (const c of node.children || []) {
+      size += 1 + (subtreeSize.get(c) || 0);
+      origins += (originsBelow.get(c) || 0) + (byId.get(c)?.origin ? 1 : 0);
+    }
+    subtreeSize.set(node.id, size);
+    originsBelow.set(node.id, origins);
+  }
+  return { report, nodes, byId, findings, findingOf, roots, order, subtreeSize, originsBelow };
+}
+
+function ancestors(plan, id) {
+  const out = [];
+  let node = plan.byId.get(id);
+  const guard = new Set();
+  while (node && node.parent !== null && node.parent !== undefined && !guard.has(node.parent)) {
+    guard.add(node.parent);
+    out.push(node.parent);
+    node = plan.byId.get(node.parent);
+  }
+  return out;
+}
+
+function openingSet(plan) {
+  const open = new Set();
+  if (plan.nodes.length <= LARGE_PLAN) {
+    for (const node of plan.nodes) open.add(node.id);
+    return open;
+  }
+  for (const f of plan.findings) for (const a of ancestors(plan, f.node)) open.add(a);
+  if (!plan.findings.length) for (const node of plan.nodes) if ((node.depth ?? 0) < 2) open.add(node.id);
+  return open;
+}
+
+function ratioOf(node, colourBy) {
+  if (!node.judged) return null;
+  const value = colourBy === "own" ? node.own_log10_ratio : node.log10_ratio;
+  return value === null || value === undefined ? null : value;
+}
+
+function nodeState(node) {
+  if (node.origin) return "origin";
+  if (node.inherits_from && node.inherits_from.length) return "inherited";
+  if (!node.judged) return "neutral";
+  return "judged";
+}
+
+// ---------------------------------------------------------------------------------------------
+// the view
+
+export function render({ model, el: host }) {
+  const view = new Review(model, host);
+  return () => view.destroy();
+}
+
+class Review {
+  constructor(model, host) {
+    this.model = model;
+    this.host = host;
+    this.onlyOrigins = false;
+    this.colourBy = "whole";
+    this.rowsById = new Map();
+    this.listeners = [];
+    this.root = el("div", {
+      class: "pv-review", tabindex: "0", "data-lm-suppress-shortcuts": "true",
+      "data-p-suppress-shortcuts": "true", role: "application", "aria-label": "planview plan review",
+    });
+    host.appendChild(this.root);
+    this.listen(model, "change:report", () => this.load());
+    this.listen(model, "change:selected", () => this.showSelection());
+    this.listen(model, "msg:custom", (msg) => this.onMessage(msg));
+    this.keyHandler = (event) => this.onKey(event);
+    this.root.addEventListener("keydown", this.keyHandler);
+    this.load();
+  }
+
+  listen(model, name, handler) {
+    model.on(name, handler);
+    this.listeners.push([name, handler]);
+  }
+
+  destroy() {
+    for (const [name, handler] of this.listeners) this.model.off(name, handler);
+    this.root.removeEventListener("keydown", this.keyHandler);
+    this.root.remove();
+  }
+
+  get selected() {
+    const value = this.model.get("selected");
+    return value === null || value === undefined ? null : value;
+  }
+
+  select(id) {
+    if (id !== null && !this.plan.byId.has(id)) return;
+    if (id === this.selected) {
+      this.showSelection();
+      return;
+    }
+    this.model.set("selected", id);
+    this.model.save_changes();
+  }
+
+  // -- building -------------------------------------------------------------------------------
+  load() {
+    const report = this.model.get("report") || {};
+    this.plan = indexPlan(report);
+    this.open = openingSet(this.plan);
+    this.root.replaceChildren();
+    this.root.appendChild(this.buildHeader());
+    this.root.appendChild(this.buildToolbar());
+    this.root.appendChild(this.buildLegend());
+    this.treePane = el("div", { class: "pv-tree", role: "tree", "aria-label": "operators" });
+    this.detailPane = el("aside", { class: "pv-detail", "aria-live": "polite" });
+    this.root.appendChild(el("div", { class: "pv-body" }, this.treePane, this.detailPane));
+    this.chartPane = null;
+    if (this.model.get("chart_mode") === "svg" && this.plan.nodes.length) {
+      this.chartPane = el("div", { class: "pv-charts" });
+      this.root.appendChild(this.chartPane);
+    }
+    this.drawTree();
+    this.root.setAttribute("data-drawn", String(this.plan.nodes.length));
+    this.showSelection();
+    if (this.chartPane) {
+      const draw = () => this.drawCharts();
+      if (typeof requestAnimationFrame === "function") requestAnimationFrame(() => setTimeout(draw, 0));
+      else setTimeout(draw, 0);
+    }
+  }
+
+  buildHeader() {
+    const r = this.plan.report;
+    const statement = (r.statements || [])[0] || {};
+    const facts = [
+      [r.engine, r.engine_version ? `${r.engine} ${r.engine_version}` : r.engine],
+      [r.format, `${r.format} format`],
+      [true, `${this.plan.nodes.length.toLocaleString("en-US")} operators`],
+      [true, `${this.plan.findings.length} origin${this.plan.findings.length === 1 ? "" : "s"} at ${formatFactor(r.threshold)} or worse`],
+      [statement.execution_ms !== null && statement.execution_ms !== undefined, `ran ${formatMs(statement.execution_ms)}`],
+      [statement.planning_ms !== null && statement.planning_ms !== undefined, `planned ${formatMs(statement.planning_ms)}`],
+      [r.has_actuals === false, "estimates only (no actual rows)"],
+    ].filter(([keep]) => keep).map(([, text]) => el("span", { class: "pv-fact" }, text));
+    const header = el("header", { class: "pv-head" }, el("strong", { class: "pv-title" }, "Plan review"), facts);
+    const extra = [];
+    for (const note of r.notes || []) extra.push(el("div", { class: "pv-note" }, note));
+    if (statement.query_text) {
+      extra.push(el("details", { class: "pv-query" }, el("summary", {}, "Query text"),
+        el("pre", {}, statement.query_text)));
+    }
+    return el("div", {}, header, extra);
+  }
+
+  buildToolbar() {
+    const bar = el("div", { class: "pv-toolbar", role: "toolbar", "aria-label": "review controls" });
+    this.onlyBox = el("input", { type: "checkbox", class: "pv-only", id: `pv-only-${Math.random().toString(36).slice(2)}` });
+    this.onlyBox.addEventListener("change", () => {
+      this.onlyOrigins = this.onlyBox.checked;
+      this.drawTree();
+      this.showSelection();
+    });
+    const onlyLabel = el("label", { class: "pv-switch", for: this.onlyBox.id, title: "Show only the operators where an error starts, with the path down to them" },
+      this.onlyBox, " Origins only");
+    const prev = el("button", { type: "button", class: "pv-prev", title: "Previous origin, by impact (key: p)" }, "◀ Previous");
+    const next = el("button", { type: "button", class: "pv-next", title: "Next origin, by impact (key: n)" }, "Next ▶");
+    prev.addEventListener("click", () => this.step(-1));
+    next.addEventListener("click", () => this.step(1));
+    this.position = el("span", { class: "pv-position" });
+    const openAll = el("button", { type: "button", class: "pv-open-all", title: "Unfold every subtree" }, "Unfold all");
+    openAll.addEventListener("click", () => {
+      for (const node of this.plan.nodes) this.open.add(node.id);
+      this.drawTree();
+      this.showSelection();
+    });
+    const fold = el("button", { type: "button", class: "pv-fold", title: "Fold everything except the paths to the origins" }, "Fold to origins");
+    fold.addEventListener("click", () => {
+      this.open = new Set();
+      for (const f of this.plan.findings) for (const a of ancestors(this.plan, f.node)) this.open.add(a);
+      if (!this.plan.findings.length) for (const r of this.plan.roots) this.open.add(r.id);
+      this.drawTree();
+      this.showSelection();
+    });
+    const colour = el("select", { class: "pv-colour-by", title: "What the colour shows", "aria-label": "colour by" },
+      el("option", { value: "whole" }, "Colour: error at the node"),
+      el("option", { value: "own" }, "Colour: error it adds"));
+    colour.addEventListener("change", () => {
+      this.colourBy = colour.value;
+      this.drawTree();
+      this.showSelection();
+    });
+    const find = el("input", { type: "search", class: "pv-find", placeholder: "find operator, table, filter…", "aria-label": "find", spellcheck: "false" });
+    find.addEventListener("keydown", (event) => {
+      if (event.key === "Enter") {
+        event.preventDefault();
+        this.findNext(find.value, event.shiftKey ? -1 : 1);
+      }
+      event.stopPropagation();
+    });
+    append(bar, [onlyLabel, prev, this.position, next, openAll, fold, colour, find]);
+    if (this.model.get("can_save")) {
+      const save = el("button", { type: "button", class: "pv-save", title: "Write the review page and the ticket text next to the notebook" }, "Save for ticket");
+      save.addEventListener("click", () => {
+        this.saveStatus.textContent = "saving…";
+        this.model.send({ kind: "save" });
+      });
+      this.saveStatus = el("span", { class: "pv-save-status", "aria-live": "polite" });
+      append(bar, [save, this.saveStatus]);
+    }
+    return bar;
+  }
+
+  buildLegend() {
+    const strip = el("span", { class: "pv-strip", "aria-hidden": "true" });
+    for (const colour of VIK) {
+      const cell = el("span", { class: "pv-strip-cell" });
+      cell.style.background = colour;
+      strip.appendChild(cell);
+    }
+    const ticks = el("span", { class: "pv-ticks", "aria-hidden": "true" },
+      ["×10⁴", "×1000", "×100", "×10", "1", "×10", "×100", "×1000", "×10⁴"].map((t) => el("span", {}, t)));
+    return el("div", { class: "pv-legend", role: "note" },
+      el("span", { class: "pv-legend-end" }, "estimate too high"),
+      el("span", { class: "pv-scale" }, strip, ticks),
+      el("span", { class: "pv-legend-end" }, "estimate too low"),
+      el("span", { class: "pv-key" }, el("span", { class: "pv-badge pv-badge-origin" }, "◆ origin"), " error starts here"),
+      el("span", { class: "pv-key" }, el("span", { class: "pv-badge pv-badge-inherited" }, "↳ carried"), " error from below"),
+      el("span", { class: "pv-key" }, el("span", { class: "pv-chip pv-chip-neutral" }), " not judged"),
+    );
+  }
+
+  // -- the tree -------------------------------------------------------------------------------
+  visibleRows() {
+    const rows = [];
+    if (this.onlyOrigins) {
+      const keep = new Set();
+      for (const f of this.plan.findings) {
+        keep.add(f.node);
+        for (const a of ancestors(this.plan, f.node)) keep.add(a);
+      }
+      for (const node of this.plan.order) if (keep.has(node.id)) rows.push(node);
+      return rows;
+    }
+    const stack = this.plan.roots.slice().reverse();
+    const seen = new Set();
+    while (stack.length) {
+      const node = stack.pop();
+      if (seen.has(node.id)) continue;
+      seen.add(node.id);
+      rows.push(node);
+      if (!this.open.has(node.id)) continue;
+      const kids = (node.children || []).map((c) => this.plan.byId.get(c)).filter(Boolean);
+      for (let i = kids.length - 1; i >= 0; i--) stack.push(kids[i]);
+    }
+    return rows;
+  }
+
+  drawTree() {
+    const rows = this.visibleRows();
+    this.visible = rows;
+    this.rowsById = new Map();
+    const fragment = document.createDocumentFragment();
+    fragment.appendChild(el("div", { class: "pv-row pv-row-head", "aria-hidden": "true" },
+      el("span", { class: "pv-cell-op" }, "operator"),
+      el("span", { class: "pv-num" }, "estimated"),
+      el("span", { class: "pv-num" }, "actual"),
+      el("span", { class: "pv-num" }, "starts"),
+      el("span", { class: "pv-err" }, "error"),
+      el("span", { class: "pv-mark" }, "")));
+    for (const node of rows) {
+      const row = this.buildRow(node);
+      this.rowsById.set(node.id, row);
+      fragment.appendChild(row);
+    }
+    if (!rows.length) fragment.appendChild(el("div", { class: "pv-empty" }, this.onlyOrigins ? "No origin: no estimate is off by the threshold or more." : "No operators."));
+    this.treePane.replaceChildren(fragment);
+    this.position.textContent = this.positionText();
+  }
+
+  buildRow(node) {
+    const state = nodeState(node);
+    const ratio = ratioOf(node, this.colourBy);
+    const hasKids = (node.children || []).length > 0;
+    const isOpen = this.open.has(node.id);
+    const context = this.onlyOrigins && !node.origin;
+    const row = el("div", {
+      class: `pv-row pv-${state}${context ? " pv-context" : ""}`, role: "treeitem",
+      "aria-level": String((node.depth ?? 0) + 1), "aria-selected": "false",
+      "aria-expanded": hasKids && !this.onlyOrigins ? String(isOpen) : null, "data-id": String(node.id),
+    });
+    const indent = el("span", { class: "pv-indent" });
+    indent.style.width = `${Math.min(node.depth ?? 0, 60) * 14}px`;
+    let toggle;
+    if (hasKids && !this.onlyOrigins) {
+      toggle = el("button", {
+        type: "button", class: "pv-toggle", "aria-label": isOpen ? "fold" : "unfold",
+        title: `${isOpen ? "Fold" : "Unfold"} ${this.plan.subtreeSize.get(node.id)} operator(s) below`,
+      }, isOpen ? "▾" : "▸");
+      toggle.addEventListener("click", (event) => {
+        event.stopPropagation();
+        this.toggle(node.id);
+      });
+    } else {
+      toggle = el("span", { class: "pv-toggle-space" });
+    }
+    const chip = el("span", { class: `pv-chip${ratio === null ? " pv-chip-neutral" : ""}` });
+    if (ratio !== null) chip.style.background = ratioColour(ratio);
+    const op = el("span", { class: "pv-cell-op" }, indent, toggle, chip);
+    if (node.subplan_name && ["InitPlan", "SubPlan"].includes(node.parent_relationship)) {
+      op.appendChild(el("span", { class: "pv-sub" }, node.subplan_name));
+    } else if (node.cte_name && !node.relation && node.parent_relationship === "InitPlan") {
+      op.appendChild(el("span", { class: "pv-sub" }, `CTE ${node.cte_name}`));
+    }
+    op.appendChild(el("span", { class: "pv-label", title: node.label || node.operator || "" }, node.label || node.operator || "?"));
+    if (hasKids && !isOpen && !this.onlyOrigins) {
+      const hidden = this.plan.subtreeSize.get(node.id);
+      const inner = this.plan.originsBelow.get(node.id);
+      op.appendChild(el("span", { class: `pv-folded${inner ? " pv-folded-origins" : ""}` },
+        `+${hidden}${inner ? `, ${inner} origin${inner === 1 ? "" : "s"}` : ""}`));
+    }
+    const err = el("span", { class: "pv-err" });
+    if (ratio === null) {
+      err.textContent = node.judged ? "–" : "not judged";
+    } else {
+      const q = this.colourBy === "own" ? Math.pow(10, Math.abs(ratio)) : node.q_error;
+      err.textContent = errorWords(ratio, q);
+      err.style.background = ratioColour(ratio);
+      err.style.color = inkFor(ratio);
+    }
+    let mark = "";
+    const finding = this.plan.findingOf.get(node.id);
+    if (state === "origin") mark = el("span", { class: "pv-badge pv-badge-origin" }, `◆ ${finding ? finding.rank : ""}${finding && finding.cause ? " " + causeWords(finding.cause) : ""}`);
+    else if (state === "inherited") mark = el("span", { class: "pv-badge pv-badge-inherited" }, `↳ from #${node.inherits_from.slice(0, 3).join(", #")}`);
+    else if (state === "neutral") mark = el("span", { class: "pv-why" }, node.not_judged_reason || "");
+    append(row, [op,
+      el("span", { class: "pv-num" }, formatRows(node.est_total ?? node.est_rows)),
+      el("span", { class: "pv-num" }, formatRows(node.actual_total)),
+      el("span", { class: "pv-num" }, formatRows(node.starts)),
+      err, el("span", { class: "pv-mark" }, mark)]);
+    row.addEventListener("click", () => this.select(node.id));
+    return row;
+  }
+
+  toggle(id) {
+    if (this.open.has(id)) this.open.delete(id);
+    else this.open.add(id);
+    this.drawTree();
+    this.markSelected(false);
+  }
+
+  reveal(id) {
+    let changed = false;
+    if (this.onlyOrigins && !this.rowsById.has(id)) {
+      this.onlyOrigins = false;
+      this.onlyBox.checked = false;
+      changed = true;
+    }
+    for (const a of ancestors(this.plan, id)) {
+      if (!this.open.has(a)) {
+        this.open.add(a);
+        changed = true;
+      }
+    }
+    if (changed) this.drawTree();
+  }
+
+  markSelected(scroll) {
+    for (const row of this.treePane.querySelectorAll(".pv-row.pv-selected")) {
+      row.classList.remove("pv-selected");
+      row.setAttribute("aria-selected", "false");
+    }
+    const row = this.rowsById.get(this.selected);
+    if (row) {
+      row.classList.add("pv-selected");
+      row.setAttribute("aria-selected", "true");
+      if (scroll && typeof row.scrollIntoView === "function") row.scrollIntoView({ block: "nearest" });
+    }
+  }
+
+  showSelection() {
+    const id = this.selected;
+    if (id !== null && this.plan.byId.has(id)) this.reveal(id);
+    this.markSelected(true);
+    this.drawDetail();
+    this.position.textContent = this.positionText();
+    if (this.charts) this.charts.highlight(id);
+  }
+
+  positionText() {
+    const total = this.plan.findings.length;
+    if (!total) return "no origins";
+    const index = this.plan.findings.findIndex((f) => f.node === this.selected);
+    return index >= 0 ? `origin ${index + 1} of ${total}` : `${total} origin${total === 1 ? "" : "s"}`;
+  }
+
+  step(direction) {
+    const list = this.plan.findings;
+    if (!list.length) return;
+    const index = list.findIndex((f) => f.node === this.selected);
+    let next;
+    if (index < 0) next = direction > 0 ? 0 : list.length - 1;
+    else next = (index + direction + list.length) % list.length;
+    this.select(list[next].node);
+  }
+
+  findNext(text, direction) {
+    const needle = text.trim().toLowerCase();
+    if (!needle) return;
+    const order = this.plan.order;
+    const hay = (n) => [n.label, n.relation, n.alias, n.index, ...(n.conditions || []).map((c) => c.text)]
+      .filter(Boolean).join(" ").toLowerCase();
+    const start = Math.max(0, order.findIndex((n) => n.id === this.selected));
+    for (let k = 1; k <= order.length; k++) {
+      const node = order[(start + direction * k + order.length * k) % order.length];
+      if (hay(node).includes(needle)) {
+        this.select(node.id);
+        return;
+      }
+    }
+  }
+
+  onKey(event) {
+    const target = event.target;
+    if (target && (target.tagName === "INPUT" || target.tagName === "SELECT" || target.tagName === "TEXTAREA")) return;
+    const key = event.key;
+    let handled = true;
+    if (key === "n" || key === "]") this.step(1);
+    else if (key === "p" || key === "[") this.step(-1);
+    else if (key === "ArrowDown" || key === "ArrowUp") this.moveRow(key === "ArrowDown" ? 1 : -1);
+    else if (key === "ArrowRight" || key === "ArrowLeft") this.foldKey(key === "ArrowRight");
+    else if (key === "o") this.onlyBox.click();
+    else if (key === "Escape") this.select(null);
+    else handled = false;
+    if (handled) {
+      event.preventDefault();
+      event.stopPropagation();
+    }
+  }
+
+  moveRow(direction) {
+    const rows = this.visible || [];
+    if (!rows.length) return;
+    const index = rows.findIndex((n) => n.id === this.selected);
+    const next = index < 0 ? 0 : Math.max(0, Math.min(rows.length - 1, index + direction));
+    this.select(rows[next].id);
+  }
+
+  foldKey(unfold) {
+    const node = this.plan.byId.get(this.selected);
+    if (!node) return;
+    const hasKids = (node.children || []).length > 0;
+    if (unfold && hasKids && !this.open.has(node.id)) this.toggle(node.id);
+    else if (!unfold && hasKids && this.open.has(node.id)) this.toggle(node.id);
+    else if (!unfold && node.parent !== null && node.parent !== undefined) this.select(node.parent);
+  }
+
+  // -- the detail panel -----------------------------------------------------------------------
+  drawDetail() {
+    const pane = this.detailPane;
+    const node = this.plan.byId.get(this.selected);
+    if (!node) {
+      const first = this.plan.findings[0];
+      pane.replaceChildren(el("div", { class: "pv-hint" },
+        el("p", {}, first ? "Pick an operator, or start with the origin that costs the most:" : "Pick an operator to see its numbers."),
+        first ? this.nodeLink(first.node, "pv-first") : null,
+        el("p", { class: "pv-keys" }, "Keys: n / p next and previous origin, ↑ ↓ move, ← → fold and unfold, o origins only.")));
+      return;
+    }
+    const finding = this.plan.findingOf.get(node.id);
+    const parts = [el("h3", { class: "pv-detail-title" }, `#${node.id} `, node.label || node.operator || "")];
+    parts.push(this.statusLine(node, finding));
+    parts.push(this.numbersTable(node));
+    if ((node.conditions || []).length) {
+      parts.push(el("h4", {}, "Conditions"));
+      parts.push(el("dl", { class: "pv-conditions" }, node.conditions.map((c) => [
+        el("dt", {}, c.key || c.kind || ""), el("dd", {}, el("code", {}, c.text ?? ""))])));
+    }
+    if (finding) parts.push(...this.findingParts(finding));
+    if ((node.derived || []).length) {
+      parts.push(el("h4", {}, "How the numbers were read"));
+      parts.push(el("ul", { class: "pv-derived" }, node.derived.map((d) => el("li", {}, d))));
+    }
+    pane.replaceChildren(...parts.filter(Boolean));
+  }
+
+  nodeLink(id, extraClass) {
+    const target = this.plan.byId.get(id);
+    const link = el("button", { type: "button", class: `pv-link${extraClass ? " " + extraClass : ""}`, "data-target": String(id) },
+      `#${id} ${target ? target.label || target.operator || "" : ""}`);
+    link.addEventListener("click", () => this.select(id));
+    return link;
+  }
+
+  statusLine(node, finding) {
+    const status = el("div", { class: `pv-status pv-status-${nodeState(node)}` });
+    if (node.origin) {
+      const own = node.own_log10_ratio;
+      append(status, [el("strong", {}, `Origin${finding ? ` ${finding.rank} of ${this.plan.findings.length}` : ""}: `),
+        own === null || own === undefined ? "the error starts here" :
+          `the estimate goes ${formatFactor(Math.pow(10, Math.abs(own)))} ${own > 0 ? "too low" : "too high"} at this operator`,
+        finding && finding.q_error && finding.own_q_error && Math.abs(finding.q_error - finding.own_q_error) > 0.01
+          ? ` (${formatFactor(finding.q_error)} in all, with its inputs)` : ""]);
+    } else if (node.inherits_from && node.inherits_from.length) {
+      append(status, [el("strong", {}, "Carried error: "),
+        `off by ${formatFactor(node.q_error)} here, but the error comes from below. Go to `,
+        node.inherits_from.map((id, i) => [i ? ", " : "", this.nodeLink(id, "pv-origin-link")])]);
+    } else if (!node.judged) {
+      append(status, [el("strong", {}, "Not judged: "), node.not_judged_reason || "no comparable numbers"]);
+    } else {
+      append(status, [el("strong", {}, "Within the threshold: "), errorWords(node.log10_ratio, node.q_error)]);
+    }
+    return status;
+  }
+
+  numbersTable(node) {
+    const rows = [
+      ["estimated rows, per start", formatRows(node.est_rows)],
+      ["actual rows, per start", node.executed === false ? "never executed" : formatRows(node.actual_rows)],
+      ["starts", formatRows(node.starts)],
+      ["estimated in all", formatRows(node.est_total)],
+      ["actual in all", formatRows(node.actual_total)],
+      ["q-error", node.q_error === null || node.q_error === undefined ? "–" : formatFactor(node.q_error)],
+      ["log₁₀(actual / estimated)", node.log10_ratio === null || node.log10_ratio === undefined ? "–" : node.log10_ratio.toFixed(2)],
+      ["added here (log₁₀)", node.own_log10_ratio === null || node.own_log10_ratio === undefined ? "–" : node.own_log10_ratio.toFixed(2)],
+    ];
+    if (node.total_cost !== null && node.total_cost !== undefined) rows.push(["cost", `${formatRows(node.startup_cost)} … ${formatRows(node.total_cost)}`]);
+    if (node.actual_total_ms !== null && node.actual_total_ms !== undefined) rows.push(["time per start", `${formatMs(node.actual_startup_ms)} … ${formatMs(node.actual_total_ms)}`]);
+    for (const [key, value] of Object.entries(node.rows_removed || {})) rows.push([`removed by ${key.toLowerCase()}, per start`, formatRows(value)]);
+    for (const [key, value] of Object.entries(node.buffers || {})) rows.push([`buffers: ${key}`, formatRows(value)]);
+    if (node.workers_planned !== null && node.workers_planned !== undefined) rows.push(["workers planned / launched", `${node.workers_planned} / ${node.workers_launched ?? "–"}`]);
+    return el("table", { class: "pv-numbers" }, el("tbody", {}, rows.map(([k, v]) => el("tr", {}, el("th", {}, k), el("td", {}, v)))));
+  }
+
+  findingParts(finding) {
+    const parts = [el("h4", {}, "What the statistics probably missed")];
+    const cause = causeWords(finding.cause);
+    const causeLine = el("div", { class: "pv-cause" });
+    causeLine.setAttribute("data-cause", finding.cause || "");
+    append(causeLine, [el("strong", {}, cause ? cause.charAt(0).toUpperCase() + cause.slice(1) : "Not diagnosed yet"),
+      finding.confidence !== null && finding.confidence !== undefined ? el("span", { class: "pv-confidence" }, ` confidence ${Math.round(finding.confidence * 100)}%`) : "",
+      (finding.also || []).length ? el("span", { class: "pv-also" }, `; also possible: ${finding.also.map(causeWords).join(", ")}`) : ""]);
+    parts.push(causeLine);
+    if (finding.summary) parts.push(el("p", { class: "pv-summary" }, finding.summary));
+    if (finding.confidence_reason) parts.push(el("p", { class: "pv-confidence-reason" }, finding.confidence_reason));
+    const evidence = finding.evidence && typeof finding.evidence === "object" ? finding.evidence : {};
+    if (Array.isArray(evidence.lines) && evidence.lines.length) {
+      parts.push(el("ul", { class: "pv-evidence-lines" }, evidence.lines.map((line) => el("li", {}, String(line)))));
+    }
+    const pairs = Object.entries(evidence).filter(([k, v]) => k !== "lines" && v !== null && v !== undefined
+      && (typeof v !== "object" || (Array.isArray(v) && v.every((x) => x === null || typeof x !== "object"))));
+    if (pairs.length) {
+      parts.push(el("table", { class: "pv-evidence" }, el("tbody", {}, pairs.map(([k, v]) => el("tr", {},
+        el("th", {}, k.replace(/_/g, " ")), el("td", {}, Array.isArray(v) ? v.map((x) => (typeof x === "number" ? formatRows(x) : String(x))).join(", ") : (typeof v === "number" ? formatRows(v) : String(v))))))));
+    }
+    const impact = finding.impact && typeof finding.impact === "object" ? finding.impact : {};
+    if (impact.text || (impact.ms !== null && impact.ms !== undefined)) {
+      parts.push(el("p", { class: "pv-impact" }, el("strong", {}, "Impact: "),
+        impact.ms !== null && impact.ms !== undefined ? `${formatMs(impact.ms)}. ` : "", impact.text || ""));
+    }
+    if (finding.fix) {
+      parts.push(el("h4", {}, "Suggested fix"));
+      const code = el("pre", { class: "pv-fix" }, el("code", {}, finding.fix));
+      const copy = el("button", { type: "button", class: "pv-copy", title: "Copy the SQL" }, "Copy SQL");
+      const copied = el("span", { class: "pv-copied", "aria-live": "polite" });
+      copy.addEventListener("click", () => copyText(finding.fix).then(
+        () => { copied.textContent = "copied"; },
+        () => { copied.textContent = "select the text and copy it by hand"; }));
+      parts.push(el("div", { class: "pv-fix-box" }, code, el("div", { class: "pv-fix-actions" }, copy, copied)));
+      parts.push(el("div", { class: "pv-caution", role: "note" }, el("strong", {}, "Before you run it: "),
+        finding.caution || GENERIC_CAUTION));
+    } else if (finding.caution) {
+      parts.push(el("div", { class: "pv-caution", role: "note" }, el("strong", {}, "Caution: "), finding.caution));
+    }
+    return parts;
+  }
+
+  onMessage(msg) {
+    if (!msg || typeof msg !== "object" || !this.saveStatus) return;
+    if (msg.kind === "saved") this.saveStatus.textContent = `saved ${(msg.paths || []).join(" and ")}`;
+    else if (msg.kind === "save-failed") this.saveStatus.textContent = `could not save: ${msg.message || "unknown error"}`;
+  }
+
+  // -- charts (the standalone page, or a notebook without plotly) -----------------------------
+  drawCharts() {
+    if (!this.chartPane) return;
+    this.charts = new SvgCharts(this.plan, (id) => this.select(id));
+    this.chartPane.replaceChildren(...this.charts.elements);
+    this.charts.highlight(this.selected);
+  }
+}
+
+function copyText(text) {
+  if (typeof navigator !== "undefined" && navigator.clipboard && window.isSecureContext) {
+    return navigator.clipboard.writeText(text);
+  }
+  return new Promise((resolve, reject) => {
+    const area = document.createElement("textarea");
+    area.value = text;
+    area.setAttribute("aria-hidden", "true");
+    area.style.position = "fixed";
+    area.style.opacity = "0";
+    document.body.appendChild(area);
+    area.select();
+    let ok = false;
+    try {
+      ok = document.execCommand("copy");
+    } catch (error) {
+      ok = false;
+    }
+    area.remove();
+    if (ok) resolve();
+    else reject(new Error("copy refused"));
+  });
+}
+
+// Two small SVG charts: estimated against actual rows on log-log axes with the tenfold band,
+// and the signed error by tree depth. Clicking a point selects its operator.
+class SvgCharts {
+  constructor(plan, onPick) {
+    this.plan = plan;
+    this.onPick = onPick;
+    this.marks = [];
+    const points = plan.nodes.filter((n) => n.judged && n.est_total !== null && n.est_total !== undefined
+      && n.actual_total !== null && n.actual_total !== undefined);
+    this.elements = [
+      this.scatter(points),
+      this.byDepth(points),
+    ];
+  }
+
+  frame(title, width, height) {
+    const box = svg("svg", { viewBox: `0 0 ${width} ${height}`, width, height, class: "pv-chart", role: "img" });
+    box.appendChild(svg("title", {}, title));
+    box.addEventListener("click", (event) => {
+      const id = event.target && event.target.getAttribute && event.target.getAttribute("data-id");
+      if (id !== null && id !== undefined && id !== "") this.onPick(Number(id));
+    });
+    return box;
+  }
+
+  scatter(points) {
+    const W = 380, H = 300, L = 52, R = 12, T = 24, B = 40;
+    const box = this.frame("Estimated against actual rows (log-log); the band is within tenfold", W, H);
+    const maxValue = Math.max(10, ...points.map((n) => Math.max(n.est_total, n.actual_total)));
+    const top = Math.ceil(Math.log10(maxValue));
+    const x = (v) => L + (Math.log10(Math.max(v, 1)) / top) * (W - L - R);
+    const y = (v) => H - B - (Math.log10(Math.max(v, 1)) / top) * (H - T - B);
+    box.appendChild(svg("text", { x: L, y: 15, class: "pv-chart-title" }, "estimated vs actual rows"));
+    // tenfold band: actual between est / 10 and est x 10
+    const band = [];
+    const steps = 24;
+    for (let i = 0; i <= steps; i++) {
+      const e = Math.pow(10, (top * i) / steps);
+      band.push([x(e), y(Math.min(e * 10, Math.pow(10, top)))]);
+    }
+    for (let i = steps; i >= 0; i--) {
+      const e = Math.pow(10, (top * i) / steps);
+      band.push([x(e), y(Math.max(e / 10, 1))]);
+    }
+    box.appendChild(svg("polygon", { points: band.map((p) => p.join(",")).join(" "), class: "pv-band" }));
+    box.appendChild(svg("line", { x1: x(1), y1: y(1), x2: x(Math.pow(10, top)), y2: y(Math.pow(10, top)), class: "pv-diagonal" }));
+    for (let k = 0; k <= top; k++) {
+      const label = k === 0 ? "1" : k <= 3 ? String(Math.pow(10, k)) : `1e${k}`;
+      box.appendChild(svg("line", { x1: x(Math.pow(10, k)), y1: H - B, x2: x(Math.pow(10, k)), y2: H - B + 4, class: "pv-axis" }));
+      box.appendChild(svg("text", { x: x(Math.pow(10, k)), y: H - B + 15, class: "pv-tick", "text-anchor": "middle" }, label));
+      box.appendChild(svg("line", { x1: L - 4, y1: y(Math.pow(10, k)), x2: L, y2: y(Math.pow(10, k)), class: "pv-axis" }));
+      box.appendChild(svg("text", { x: L - 6, y: y(Math.pow(10, k)) + 3, class: "pv-tick", "text-anchor": "end" }, label));
+    }
+    box.appendChild(svg("line", { x1: L, y1: H - B, x2: W - R, y2: H - B, class: "pv-axis" }));
+    box.appendChild(svg("line", { x1: L, y1: T, x2: L, y2: H - B, class: "pv-axis" }));
+    box.appendChild(svg("text", { x: (L + W - R) / 2, y: H - 6, class: "pv-axis-label", "text-anchor": "middle" }, "estimated rows (in all)"));
+    box.appendChild(svg("text", { x: 12, y: (T + H - B) / 2, class: "pv-axis-label", "text-anchor": "middle", transform: `rotate(-90 12 ${(T + H - B) / 2})` }, "actual rows (in all)"));
+    this.plotPoints(box, points, (n) => x(n.est_total), (n) => y(n.actual_total));
+    return box;
+  }
+
+  byDepth(points) {
+    const W = 380, H = 300, L = 44, R = 12, T = 24, B = 40;
+    const box = this.frame("Signed error by tree depth; the band is within tenfold", W, H);
+    const maxDepth = Math.max(1, ...points.map((n) => n.depth ?? 0));
+    const span = Math.max(2, Math.ceil(Math.max(...points.map((n) => Math.abs(n.log10_ratio)), 1)));
+    const x = (d) => L + (d / maxDepth) * (W - L - R);
+    const y = (r) => T + ((span - r) / (2 * span)) * (H - T - B);
+    box.appendChild(svg("text", { x: L, y: 15, class: "pv-chart-title" }, "error by depth"));
+    box.appendChild(svg("rect", { x: L, y: y(1), width: W - L - R, height: y(-1) - y(1), class: "pv-band" }));
+    box.appendChild(svg("line", { x1: L, y1: y(0), x2: W - R, y2: y(0), class: "pv-diagonal" }));
+    for (let k = -span; k <= span; k++) {
+      const label = k === 0 ? "1" : `×10${k === 1 || k === -1 ? "" : superscript(Math.abs(k))} ${k > 0 ? "low" : "high"}`;
+      box.appendChild(svg("text", { x: L - 4, y: y(k) + 3, class: "pv-tick", "text-anchor": "end" }, Math.abs(k) <= 4 || k % 2 === 0 ? label : ""));
+    }
+    const tickEvery = Math.max(1, Math.ceil(maxDepth / 10));
+    for (let d = 0; d <= maxDepth; d += tickEvery) {
+      box.appendChild(svg("text", { x: x(d), y: H - B + 15, class: "pv-tick", "text-anchor": "middle" }, String(d)));
+    }
+    box.appendChild(svg("line", { x1: L, y1: H - B, x2: W - R, y2: H - B, class: "pv-axis" }));
+    box.appendChild(svg("line", { x1: L, y1: T, x2: L, y2: H - B, class: "pv-axis" }));
+    box.appendChild(svg("text", { x: (L + W - R) / 2, y: H - 6, class: "pv-axis-label", "text-anchor": "middle" }, "depth in the tree (0 = top)"));
+    this.plotPoints(box, points, (n) => x(n.depth ?? 0), (n) => y(n.log10_ratio));
+    return box;
+  }
+
+  plotPoints(box, points, px, py) {
+    const group = svg("g", { class: "pv-points" });
+    for (const n of points) {
+      const mark = svg("circle", {
+        cx: px(n).toFixed(1), cy: py(n).toFixed(1), r: n.origin ? 5.5 : 3.5,
+        class: n.origin ? "pv-point pv-point-origin" : "pv-point", "data-id": n.id,
+        fill: ratioColour(n.log10_ratio),
+      });
+      mark.appendChild(svg("title", {}, `#${n.id} ${n.label || n.operator || ""}: estimated ${formatRows(n.est_total)}, actual ${formatRows(n.actual_total)}`));
+      group.appendChild(mark);
+    }
+    box.appendChild(group);
+    const ring = svg("circle", { r: 9, class: "pv-point-ring", visibility: "hidden" });
+    box.appendChild(ring);
+    this.marks.push({ ring, px, py });
+  }
+
+  highlight(id) {
+    const node = this.plan.byId.get(id);
+    const shown = node && node.judged && node.est_total !== null && node.est_total !== undefined
+      && node.actual_total !== null && node.actual_total !== undefined;
+    for (const { ring, px, py } of this.marks) {
+      if (!shown) {
+        ring.setAttribute("visibility", "hidden");
+        continue;
+      }
+      ring.setAttribute("cx", px(node).toFixed(1));
+      ring.setAttribute("cy", py(node).toFixed(1));
+      ring.setAttribute("visibility", "visible");
+    }
+  }
+}
+
+function superscript(n) {
+  const digits = "⁰¹²³⁴⁵⁶⁷⁸⁹";
+  return String(n).split("").map((d) => digits[Number(d)]).join("");
+}
+
+// A stand-in for the widget model, for the exported page: the same get / set / on / off /
+// save_changes / send calls, kept in memory.
+export function localModel(state) {
+  const handlers = new Map();
+  return {
+    get: (name) => state[name],
+    set(name, value) {
+      state[name] = value;
+      for (const handler of handlers.get(`change:${name}`) || []) handler();
+    },
+    save_changes() {},
+    send() {},
+    on(name, handler) {
+      if (!handlers.has(name)) handlers.set(name, []);
+      handlers.get(name).push(handler);
+    },
+    off(name, handler) {
+      const list = handlers.get(name) || [];
+      const index = list.indexOf(handler);
+      if (index >= 0) list.splice(index, 1);
+    },
+  };
+}
+
+export default { render };
