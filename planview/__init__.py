@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 from .errors import PlanParseError, PlanviewError, ProbeError
+from .magic import load_ipython_extension, review  # noqa: F401  (the notebook entry points)
 from .model import Condition, Finding, PlanNode
 from .plan import Plan, load
 

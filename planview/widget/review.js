@@ -87,6 +87,7 @@ export function formatRows(value) {
   if (abs >= 1e7) return `${(value / 1e6).toPrecision(3)}M`;
   if (Number.isInteger(value)) return value.toLocaleString("en-US");
   if (abs >= 100) return Math.round(value).toLocaleString("en-US");
+  if (abs < 1) return String(Number(value.toPrecision(3)));
   return value.toLocaleString("en-US", { maximumFractionDigits: 2 });
 }
 
@@ -485,7 +486,10 @@ class Review {
     }
     let mark = "";
     const finding = this.plan.findingOf.get(node.id);
-    if (state === "origin") mark = el("span", { class: "pv-badge pv-badge-origin" }, `◆ ${finding ? finding.rank : ""}${finding && finding.cause ? " " + causeWords(finding.cause) : ""}`);
+    if (state === "origin") {
+      mark = [el("span", { class: "pv-badge pv-badge-origin", title: "origin, by impact rank" }, `◆ ${finding ? finding.rank : ""}`),
+        finding && finding.cause ? el("span", { class: "pv-mark-cause" }, ` ${causeWords(finding.cause)}`) : ""];
+    }
     else if (state === "inherited") mark = el("span", { class: "pv-badge pv-badge-inherited" }, `↳ from #${node.inherits_from.slice(0, 3).join(", #")}`);
     else if (state === "neutral") mark = el("span", { class: "pv-why" }, node.not_judged_reason || "");
     append(row, [op,
@@ -706,7 +710,7 @@ class Review {
       && (typeof v !== "object" || (Array.isArray(v) && v.every((x) => x === null || typeof x !== "object"))));
     if (pairs.length) {
       parts.push(el("table", { class: "pv-evidence" }, el("tbody", {}, pairs.map(([k, v]) => el("tr", {},
-        el("th", {}, k.replace(/_/g, " ")), el("td", {}, Array.isArray(v) ? v.map((x) => (typeof x === "number" ? formatRows(x) : String(x))).join(", ") : (typeof v === "number" ? formatRows(v) : String(v))))))));
+        el("th", {}, k.replace(/_/g, " ")), el("td", {}, Array.isArray(v) ? v.map(evidenceValue).join(", ") : evidenceValue(v)))))));
     }
     const impact = finding.impact && typeof finding.impact === "object" ? finding.impact : {};
     if (impact.text || (impact.ms !== null && impact.ms !== undefined)) {
@@ -743,6 +747,12 @@ class Review {
     this.chartPane.replaceChildren(...this.charts.elements);
     this.charts.highlight(this.selected);
   }
+}
+
+function evidenceValue(value) {
+  if (typeof value === "boolean") return value ? "yes" : "no";
+  if (typeof value === "number") return Math.abs(value) < 1 ? String(Number(value.toPrecision(4))) : formatRows(value);
+  return String(value);
 }
 
 function copyText(text) {
@@ -831,7 +841,7 @@ class SvgCharts {
   }
 
   byDepth(points) {
-    const W = 380, H = 300, L = 44, R = 12, T = 24, B = 40;
+    const W = 380, H = 300, L = 62, R = 12, T = 24, B = 40;
     const box = this.frame("Signed error by tree depth; the band is within tenfold", W, H);
     const maxDepth = Math.max(1, ...points.map((n) => n.depth ?? 0));
     const span = Math.max(2, Math.ceil(Math.max(...points.map((n) => Math.abs(n.log10_ratio)), 1)));
