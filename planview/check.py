@@ -22,7 +22,9 @@ from dataclasses import dataclass
 from .model import Finding, ParsedPlan, PlanNode
 
 RULES = {
-    "source": "its own log ratio (scans, grouping, leaves)",
+    "source": "its own log ratio (scans, leaves, aggregates without grouping)",
+    "group": "its own log ratio, or minus its input's when that explains more: a group count is "
+             "capped by, and scales with, the input estimate (grouping nodes)",
     "pass": "minus its input's log ratio (Hash, Sort, Materialize, Memoize, Gather, Limit...)",
     "join": "minus the log ratios of both inputs (outer joins: of the preserved input alone "
             "when that explains more, as they emit the preserved rows anyway)",
@@ -63,9 +65,10 @@ class Role:
     - `preserved`: for an outer join, which input it emits whole (``outer``, ``inner``, ``both``);
     - `reads`: the id of a node whose output this one re-reads (a CTE Scan's CTE);
     - `cut_inputs`: inputs whose rows were cut while running by a filter their estimate
-      leaves out (a filter pushed down from a join at run time), with the reason: their actual
-      count is only a lower bound, so an underestimate of this node's own cannot be told from
-      theirs and does not make it an origin.
+      leaves out (a filter pushed down from a join at run time), with the reason. Their actual
+      count is only a lower bound, so this node's own error is taken against their printed
+      counts (judged or not), which bounds it from above: an underestimate of its own cannot
+      be told from theirs and does not make it an origin; an overestimate still does.
     """
 
     rule: str = "source"
@@ -149,7 +152,7 @@ def _judge(nodes: list[PlanNode], roles: list[Role]) -> None:
         elif node.est_total is None:
             node.not_judged_reason = "no estimate"
         elif role.rule == "uncounted":
-            node.not_judged_reason = "the engine does not count this node's rows"
+            node.not_judged_reason = "no rows to judge: the engine does not count them, or the node emits none"
         elif reason:
             node.not_judged_reason = reason
         else:
@@ -191,7 +194,7 @@ def _cut_subtree(nodes: list[PlanNode], roles: list[Role], top: PlanNode, reason
                     if nodes[c].is_input_edge and c not in roles[node.id].complete_inputs)
 
 
-def _input_lr(node: PlanNode) -> float:
+def _judged_lr(node: PlanNode) -> float:
     """What an input carries into its consumer: its log ratio, or nothing if not judged."""
     return node.log10_ratio if node.judged and node.log10_ratio is not None else 0.0
 
@@ -203,10 +206,18 @@ def _own_errors(nodes: list[PlanNode], roles: list[Role]) -> None:
         lr = node.log10_ratio
         inputs = [nodes[c] for c in node.children if nodes[c].is_input_edge]
         rule = node.own_rule
+        cut = role.cut_inputs or {}
+
+        def _input_lr(child: PlanNode, cut=cut) -> float:
+            if child.id in cut and child.log10_ratio is not None:
+                return child.log10_ratio
+            return _judged_lr(child)
         if rule == "source" or not inputs and rule != "cte":
             own = lr
         elif rule == "pass":
             own = lr - _input_lr(inputs[0])
+        elif rule == "group":
+            own = min((lr, lr - _input_lr(inputs[0])), key=abs)
         elif rule == "bitmap_heap":
             own = lr - _input_lr(inputs[0])
         elif rule == "join":

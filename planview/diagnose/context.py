@@ -60,7 +60,7 @@ class Context:
 
     @property
     def is_scan(self) -> bool:
-        return self.node.relation is not None or self.node.operator.lower().endswith("scan")
+        return self.node.operator.lower().replace("_", " ").endswith("scan")
 
     @property
     def is_join(self) -> bool:

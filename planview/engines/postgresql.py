@@ -80,8 +80,9 @@ INPUT_RULES = {
     "Sample Scan": "source", "Function Scan": "source", "Table Function Scan": "source",
     "Values Scan": "source", "Foreign Scan": "source", "Named Tuplestore Scan": "source",
     "WorkTable Scan": "source", "Custom Scan": "source",
-    # grouping estimates a number of groups: their own
-    "Aggregate": "source", "Group": "source", "Unique": "source", "SetOp": "source",
+    # grouping estimates a number of groups: its own, unless its input's error explains more
+    # (a group count is capped by, and scaled with, the input estimate)
+    "Aggregate": "group", "Group": "group", "Unique": "group", "SetOp": "group",
     # joins: minus both inputs (semi/anti: minus the outer input only; see input_rule)
     "Nested Loop": "join", "Hash Join": "join", "Merge Join": "join",
     # pass rows through (perhaps with a filter): minus the child
@@ -127,7 +128,11 @@ def input_rule(node: PlanNode, nodes: list[PlanNode]) -> str:
             return "semi_outer"
         if node.join_type in ("Right Semi", "Right Anti"):
             return "semi_inner"
-    if rule == "pass" and not [c for c in node.children if nodes[c].is_input_edge]:
+    if rule == "group" and node.operator == "Aggregate" and node.strategy == "Plain":
+        return "source"  # one row out, whatever comes in
+    if node.operator == "ModifyTable" and node.est_rows == 0 and not node.actual_rows:
+        return "uncounted"  # no RETURNING: it emits no rows; what it writes is its input's
+    if rule in ("pass", "group") and not [c for c in node.children if nodes[c].is_input_edge]:
         return "source"
     return rule
 

@@ -1,0 +1,24 @@
+"""The real plans captured from real PostgreSQL servers (plans/postgresql/, see its README)."""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+
+ROOT = Path(__file__).resolve().parents[1] / "plans" / "postgresql"
+MANIFEST = json.loads((ROOT / "manifest.json").read_text()) if (ROOT / "manifest.json").exists() else {"servers": {}}
+VERSIONS = sorted(MANIFEST["servers"])
+FORMAT_FILES = {"text": "text.txt", "json": "json", "xml": "xml", "yaml": "yaml",
+                "psql_text": "psql.txt", "psql_json": "psql.json.txt"}
+
+
+def cases(version: str) -> dict:
+    return MANIFEST["servers"][version]["cases"]
+
+
+def path(version: str, case: str, fmt: str) -> Path:
+    return ROOT / f"pg{version}" / f"{case}.{FORMAT_FILES[fmt]}"
+
+
+def all_case_ids() -> list[tuple[str, str]]:
+    return [(v, c) for v in VERSIONS for c in cases(v)]
