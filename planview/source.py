@@ -10,7 +10,7 @@ from .errors import PlanParseError
 MAX_INPUT_BYTES = 200 * 1024 * 1024
 """Inputs above this are refused before any parsing (a plan of 200 MB is not a plan)."""
 
-MAX_DEPTH = 2000
+MAX_DEPTH = 10_000
 """Trees deeper than this are refused with a clear message. Every walk in planview is
 iterative, so depth never costs a RecursionError; the limit keeps the output readable and
 the JSON/YAML/XML decoders (which do recurse) within their own limits."""

@@ -82,12 +82,13 @@ CONDITION_KEYS = {
     "Conditions": "join_cond",  # hash_cond on a HASH_JOIN
     "Filters": "filter",
     "Expression": "filter",
-    "Dynamic Filters": "dynamic_filter",
+    "Dynamic Filters": "dynamic_filter",  # kept in extra["dynamic_filters"], see _apply_info
 }
 # extra_info keys that become PlanNode fields; the others stay in extra["extra_info"].
 FIELD_INFO_KEYS = {ESTIMATE_KEY, "Table", "Join Type", *CONDITION_KEYS}
 
 _RUNTIME_FILTER = re.compile(r"\bPRF\(|Dynamic Filter|^optional:.*\bIN\b \(")
+_IMPLIED_NOT_NULL = re.compile(r"^(.*\S)\s+AND\s+(\w+) IS NOT NULL$")
 DYNAMIC_FILTER_REASON = (
     "not judged: the join above pushed a filter built from its other input into this one "
     "while running (a dynamic filter: {how}); the estimate leaves it out, so fewer actual "
@@ -286,7 +287,7 @@ def _node_from_json(raw: Any, node_id: int, parent: int | None, depth: int, stmt
     if isinstance(scanned, (int, float)) and not isinstance(scanned, bool) \
             and node.actual_rows is not None and node.operator.endswith("SCAN") \
             and any(c.kind == "filter" for c in node.conditions) \
-            and not any(c.kind == "dynamic_filter" for c in node.conditions) \
+            and not node.extra.get("dynamic_filters") \
             and scanned >= node.actual_rows:
         # rows read from storage (after skipping row groups) less the rows the filters kept
         node.rows_removed["Filter"] = float(scanned) - node.actual_rows
@@ -357,19 +358,40 @@ def _apply_info(node: PlanNode, info: dict[str, Any], where: str, fmt: str) -> N
         if key == "Conditions" and node.operator == "HASH_JOIN":
             kind = "hash_cond"
         items = value if isinstance(value, list) else [value]
+        if fmt == "text" and isinstance(value, list):
+            items = _rejoin_wrapped(items)
         for i, item in enumerate(items):
             text = _join_text(item, f"{where}.\"{key}\"[{i}]", fmt)
             for part in ([text] if key != "Conditions" else text.split("\n")):
                 part = part.strip()
                 if not part:
                     continue
-                this_kind = kind
-                if kind == "filter" and _RUNTIME_FILTER.search(part):
-                    this_kind = "dynamic_filter"  # a filter filled in while running
-                node.conditions.append(Condition(kind=this_kind, text=part, key=key))
+                if kind == "dynamic_filter" or (kind == "filter" and _RUNTIME_FILTER.search(part)):
+                    # filled in while running, from a join's other side or a Top-N's bound:
+                    # no estimate ever saw it, so it is kept apart from the conditions
+                    node.extra.setdefault("dynamic_filters", []).append(part)
+                    continue
+                implied = _IMPLIED_NOT_NULL.match(part)
+                if implied and re.match(rf"\(?{re.escape(implied.group(2))}\b", implied.group(1)):
+                    # 0.x and 1.1 print `c=7 AND c IS NOT NULL`: the second half is implied
+                    node.extra.setdefault("filters_as_printed", []).append(part)
+                    part = implied.group(1)
+                node.conditions.append(Condition(kind=kind, text=part, key=key))
     rest = {k: v for k, v in info.items() if k not in FIELD_INFO_KEYS}
     if rest:
         node.extra["extra_info"] = rest
+
+
+def _rejoin_wrapped(items: list) -> list:
+    """The square boxes wrap long lines at the box's width: put the pieces back together."""
+    out: list = []
+    for item in items:
+        if out and isinstance(item, str) and isinstance(out[-1], str) and (
+                item in ("NULL", "NOT NULL") or re.search(r"\b(NOT|IS|AND|OR)$|[(,]$", out[-1])):
+            out[-1] = f"{out[-1]} {item}"
+        else:
+            out.append(item)
+    return out
 
 
 def _relationships(nodes: list[PlanNode]) -> None:
@@ -680,9 +702,9 @@ def _subtree_dynamic_filter(node: PlanNode, nodes: list[PlanNode]) -> str | None
     todo = [node.children[0]] if node.children else []
     while todo:
         current = nodes[todo.pop()]
-        found = next((c.text for c in current.conditions if c.kind == "dynamic_filter"), None)
+        found = current.extra.get("dynamic_filters")
         if found:
-            return found
+            return "; ".join(found)
         if current.operator not in JOINS:
             todo.extend(current.children[:1] if current.operator in AGGREGATES else current.children)
     return None

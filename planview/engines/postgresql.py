@@ -385,8 +385,9 @@ def _read_json(text: str, numbers: list[int]) -> list[dict]:
             raise PlanParseError(f"invalid JSON: {exc.msg} (column {exc.colno})",
                                  line=line, engine=NAME, fmt="json") from None
         except RecursionError:
-            raise PlanParseError(f"JSON nested too deeply (over {MAX_DEPTH} levels); refused",
-                                 engine=NAME, fmt="json") from None
+            raise PlanParseError("JSON nested too deeply for the JSON reader (about 500 plan "
+                                 "levels at most); refused. The text format of the same plan "
+                                 f"reads to {MAX_DEPTH:,} levels", engine=NAME, fmt="json") from None
         docs.append(doc)
     statements: list[dict] = []
     for doc_no, doc in enumerate(docs):
@@ -667,8 +668,15 @@ def _text_node(text: str, lineno: int) -> dict:
     if match is None or not match.group("label").strip():
         raise PlanParseError(f"cannot read operator line {text[:80]!r}", line=lineno,
                              engine=NAME, fmt="text")
-    node: dict[str, Any] = {"__line__": lineno}
     label = match.group("label").strip()
+    if re.search(r"\((cost|actual)[ =]|\bloops=", label) or (
+            match.group("rows") is None and match.group("ar") is None and not match.group("never")
+            and re.search(r"\((cost|actual)[ =]|\bloops=", text)):
+        figures = text[text.find("("):][:80]
+        raise PlanParseError(f"cannot read the figures {figures!r} (expected cost=S..T rows=N "
+                             "width=W and actual time=A..B rows=N loops=L, all non-negative)",
+                             line=lineno, engine=NAME, fmt="text")
+    node: dict[str, Any] = {"__line__": lineno}
     node.update(_label_to_keys(label, lineno))
     node["__label__"] = label
     if match.group("rows") is not None:
