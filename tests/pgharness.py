@@ -223,7 +223,7 @@ def _readable_copy_of(bindir: Path) -> Path:
                 shutil.copytree(install / sub, tmp / install.relative_to(site) / sub, symlinks=True)
         for libs in site.glob(f"{pkg.name}.libs"):
             shutil.copytree(libs, tmp / libs.name, symlinks=True)
-        for dirpath, dirnames, filenames in os.walk(tmp):
+        for dirpath, _dirnames, _filenames in os.walk(tmp):
             os.chmod(dirpath, 0o755)
         try:
             os.rename(tmp, dest)
@@ -592,7 +592,7 @@ _TOWN_ARRAY = "ARRAY[" + ", ".join("'" + t + "'" for t in _TOWNS) + "]"
 # Statements run one by one (autocommit) in a fresh database.
 SCENARIO_SETUP: tuple[str, ...] = (
     # -- reference data ---------------------------------------------------
-    f"""CREATE TABLE towns (
+    """CREATE TABLE towns (
     town_no  int PRIMARY KEY,
     town     text NOT NULL UNIQUE,
     prefix   text NOT NULL UNIQUE

@@ -8,7 +8,6 @@ import re
 import xml.dom.minidom
 
 import pytest
-
 from pgharness import CASES, CASES_BY_NAME, explain_statement, join_outputs, parse_json_outputs
 
 pytestmark = pytest.mark.pg
@@ -76,7 +75,7 @@ def test_psql_output_is_decorated(pg_servers):
     assert lines[0].strip() == "QUERY PLAN"
     assert set(lines[1]) == {"-"}
     assert lines[2].startswith(" Result  (cost=")
-    assert re.fullmatch(r"\(\d+ rows\)", [l for l in lines if l][-1])
+    assert re.fullmatch(r"\(\d+ rows\)", [x for x in lines if x][-1])
     out = pg_servers.psql_explain("SELECT 1", "json")
     assert " [" in out.split("\n")[2] and out.split("\n")[2].endswith("+")
     assert "(1 row)" in out
