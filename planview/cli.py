@@ -52,7 +52,7 @@ def main(argv: list[str] | None = None) -> int:
 def _check(args) -> int:
     from .plan import load
 
-    plan = load(args.path, engine=args.engine, fmt=args.fmt, threshold=args.threshold)
+    plan = load(Path(args.path), engine=args.engine, fmt=args.fmt, threshold=args.threshold)
     if args.json:
         sys.stdout.write(plan.to_json() + "\n")
     else:

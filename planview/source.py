@@ -17,7 +17,11 @@ the JSON/YAML/XML decoders (which do recurse) within their own limits."""
 
 
 def read_text(source: str | bytes | os.PathLike, *, max_bytes: int = MAX_INPUT_BYTES) -> str:
-    """The plan text from a string, bytes, or a path (``-`` is standard input)."""
+    """The plan text from a string, bytes, or a path.
+
+    A string is plan text, unless it is one line naming an existing file. Standard input is
+    read only for a ``Path("-")`` (the command line's ``-``), never for the string ``"-"``.
+    """
     if isinstance(source, os.PathLike) or (
         isinstance(source, str) and "\n" not in source and len(source) < 4096
         and source.strip() and _looks_like_path(source)
@@ -49,8 +53,6 @@ def read_text(source: str | bytes | os.PathLike, *, max_bytes: int = MAX_INPUT_B
 
 
 def _looks_like_path(text: str) -> bool:
-    if text == "-":
-        return True
     try:
         return Path(text).is_file()
     except (OSError, ValueError):
