@@ -103,14 +103,107 @@ def _parse_cached(text: str, source: str, dialect: str | None) -> tuple[Clause, 
     if tree is None:
         return (Clause(text=text, source=source, op_class="unparsed", parse_error="empty"),)
     parts = _split_and(tree)
+    originals = split_and_text(text)
+    if len(originals) != len(parts):
+        originals = [None] * len(parts)
     clauses = []
-    for part in parts:
+    for part, original in zip(parts, originals):
         try:
-            clauses.append(_classify(part, source, dialect))
+            clause = _classify(part, source, dialect)
         except Exception as exc:
-            clauses.append(Clause(text=_sql(part, dialect), source=source, op_class="unparsed",
-                                  parse_error=str(exc).splitlines()[0] if str(exc) else "error"))
+            clause = Clause(text=_sql(part, dialect), source=source, op_class="unparsed",
+                            parse_error=str(exc).splitlines()[0] if str(exc) else "error")
+        if original is not None:
+            clause.text = original
+            side = column_side_text(original, clause)
+            if side:
+                clause.column_side = side
+        clauses.append(clause)
     return tuple(clauses)
+
+
+def _strip_parens(text: str) -> str:
+    text = text.strip()
+    while text.startswith("(") and text.endswith(")") and _balanced(text[1:-1]):
+        text = text[1:-1].strip()
+    return text
+
+
+def _balanced(text: str) -> bool:
+    depth, quote = 0, False
+    for ch in text:
+        if ch == "'":
+            quote = not quote
+        elif not quote:
+            if ch == "(":
+                depth += 1
+            elif ch == ")":
+                depth -= 1
+                if depth < 0:
+                    return False
+    return depth == 0 and not quote
+
+
+def _top_level_split(text: str, separator: str) -> list[str]:
+    out, depth, quote, start, i = [], 0, False, 0, 0
+    upper = text.upper()
+    while i < len(text):
+        ch = text[i]
+        if ch == "'":
+            quote = not quote
+        elif not quote:
+            if ch == "(":
+                depth += 1
+            elif ch == ")":
+                depth -= 1
+            elif depth == 0 and upper.startswith(separator, i):
+                out.append(text[start:i])
+                i += len(separator)
+                start = i
+                continue
+        i += 1
+    out.append(text[start:])
+    return [x.strip() for x in out]
+
+
+def split_and_text(text: str) -> list[str]:
+    """The top-level ANDed parts of a condition, as the engine wrote them (quotes respected).
+
+    >>> split_and_text("((a.x = 'p AND q'::text) AND (a.y > 1))")
+    ["(a.x = 'p AND q'::text)", '(a.y > 1)']
+    """
+    parts: list[str] = []
+    todo = [_strip_parens(text)]
+    while todo:
+        current = todo.pop(0)
+        pieces = _top_level_split(current, " AND ")
+        if len(pieces) == 1:
+            parts.append(current if current.startswith("(") or " " not in current else f"({current})")
+        else:
+            todo = [_strip_parens(p) for p in pieces] + todo
+    return parts
+
+
+_COMPARISONS = (" = ", " <> ", " != ", " >= ", " <= ", " > ", " < ", " ~~* ", " !~~* ", " ~~ ",
+                " !~~ ", " IS ", " LIKE ", " ILIKE ", " IN ")
+
+
+def column_side_text(original: str, clause: "Clause") -> str | None:
+    """The side of a comparison that holds the column, as written, qualifiers removed."""
+    body = _strip_parens(original)
+    for op in _COMPARISONS:
+        pieces = _top_level_split(body, op)
+        if len(pieces) == 2:
+            names = {c.name for c in clause.columns}
+            for piece in pieces:
+                if any(re.search(rf"\b{re.escape(n)}\b", piece) for n in names):
+                    side = piece
+                    for col in clause.columns:
+                        if col.qualifier:
+                            side = re.sub(rf"\b{re.escape(col.qualifier)}\.(?={re.escape(col.name)}\b)", "", side)
+                    return _strip_parens(side) if _balanced(side) else side
+            return None
+    return None
 
 
 def _unparen(node: exp.Expression) -> exp.Expression:

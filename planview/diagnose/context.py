@@ -143,6 +143,17 @@ def build_context(plan, node) -> Context:
     dialect = plan.sql_dialect
     relation_of = relation_map(plan)
     own_relation = (f"{node.schema}.{node.relation}" if node.schema else node.relation) if node.relation else None
+    if own_relation is None:
+        # a join or grouping node: unqualified names belong to the one relation below, if one
+        below = set()
+        todo = list(node.children)
+        while todo:
+            current = nodes[todo.pop()]
+            if current.relation:
+                below.add(f"{current.schema}.{current.relation}" if current.schema else current.relation)
+            todo.extend(current.children)
+        if len(below) == 1:
+            own_relation = below.pop()
     if own_relation:
         relation_of = dict(relation_of)
         relation_of[None] = own_relation
@@ -171,7 +182,10 @@ def build_context(plan, node) -> Context:
     starts = node.starts or 1
     removed = sum(node.rows_removed.get(k, 0.0) for k in ("Filter", "Index Recheck")) * starts
     rows_read = None
-    if node.actual_total is not None and node.relation is not None:
+    # Only a sequential scan reads every row of its relation; an index or bitmap scan's rows
+    # removed are counted after the index already narrowed them down.
+    if node.actual_total is not None and node.relation is not None and \
+            node.operator.lower().replace("_", " ") in ("seq scan", "table scan", "full scan"):
         rows_read = node.actual_total + removed
     defaults = dict(getattr(plan._engine_module, "DEFAULT_SELECTIVITIES", {}) or {})
     return Context(node=node, plan=plan, clauses=clauses, relation_of=relation_of,

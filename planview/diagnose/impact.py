@@ -11,8 +11,12 @@ from .context import fmt_rows
 
 
 def node_ms(node) -> float | None:
+    """Inclusive time. Per-start times add up over loops, except across parallel processes,
+    which run at the same time (there the per-process average is the wall-clock figure)."""
     if node.actual_total_ms is None:
         return None
+    if any(d.startswith("parallel") for d in node.derived) or node.parallel_aware:
+        return node.actual_total_ms
     return node.actual_total_ms * (node.starts or 1)
 
 
@@ -54,7 +58,7 @@ def impact_of(plan, origin) -> dict:
             text += f", {min(100.0, 100 * ms / query_ms):.0f}% of the {query_ms:,.1f} ms query"
     rows = abs((origin.actual_total or 0) - (origin.est_total or 0))
     return {"ms": round(ms, 3) if ms is not None else None,
-            "share": round(ms / query_ms, 4) if ms is not None and query_ms else None,
+            "share": round(min(1.0, ms / query_ms), 4) if ms is not None and query_ms else None,
             "node": target.id, "text": text, "rows": rows}
 
 

@@ -26,6 +26,9 @@ from types import ModuleType
 
 from ..errors import PlanParseError
 
+BROKEN: dict[str, str] = {}
+"""Engine modules that failed to import, with the error (tests assert this stays empty)."""
+
 REQUIRED = ("NAME", "FORMATS", "detect", "parse", "role")
 
 
@@ -36,7 +39,11 @@ def engines() -> dict[str, ModuleType]:
     for info in sorted(pkgutil.iter_modules(__path__), key=lambda m: m.name):
         if info.name.startswith("_"):
             continue
-        module = importlib.import_module(f"{__name__}.{info.name}")
+        try:
+            module = importlib.import_module(f"{__name__}.{info.name}")
+        except Exception as exc:  # one broken module must not take the others down
+            BROKEN[info.name] = f"{type(exc).__name__}: {exc}"
+            continue
         if all(hasattr(module, attr) for attr in REQUIRED):
             found[module.NAME] = module
     for entry in metadata.entry_points(group="planview.engines"):

@@ -1263,15 +1263,18 @@ def suggest_fix(cause: str, table: str | None, columns: list[str], **details) ->
     if cause == "correlation" and details.get("cross_table"):
         other = _qtable(details.get("other_table") or "other_table")
         other_cols = [_q(c) for c in details.get("other_columns") or columns]
+        glue = " || ':' || "
+        key_expr = glue.join(f"{c}::text" for c in cols)
+        other_key_expr = glue.join(f"{c}::text" for c in other_cols)
         sql = (f"-- {qt} and {other} are joined on {len(cols)} correlated columns; extended "
                "statistics are per table\n"
                "-- and cannot correct a join estimate. What can:\n"
                f"-- 1. join on the key that implies the others and drop the redundant clauses, or\n"
                f"-- 2. give both tables one combined key with statistics of its own:\n"
                f"ALTER TABLE {qt} ADD COLUMN {'_'.join(columns)}_key text\n"
-               f"    GENERATED ALWAYS AS ({' || '':'' || '.join(f'{c}::text' for c in cols)}) STORED;\n"
+               f"    GENERATED ALWAYS AS ({key_expr}) STORED;\n"
                f"ALTER TABLE {other} ADD COLUMN {'_'.join(columns)}_key text\n"
-               f"    GENERATED ALWAYS AS ({' || '':'' || '.join(f'{c}::text' for c in other_cols)}) STORED;\n"
+               f"    GENERATED ALWAYS AS ({other_key_expr}) STORED;\n"
                f"ANALYZE {qt};\nANALYZE {other};\n"
                f"-- then join ON {qt}.{'_'.join(columns)}_key = {other}.{'_'.join(columns)}_key")
         caution = ("ALTER TABLE ... ADD COLUMN ... STORED rewrites the whole table under an ACCESS "

@@ -1,0 +1,11 @@
+#!/usr/bin/env bash
+# Installs planview and reviews every bundled plan (no database server needed), then opens
+# the walkthrough notebook in JupyterLab. With --no-lab (or without a terminal) it stops
+# after writing the reviews: one HTML page and one Markdown ticket body per plan.
+set -euo pipefail
+cd "$(dirname "$0")/.."
+python3 -m pip install -q --disable-pip-version-check -e .
+planview demo --out planview-demo
+if [ "${1:-}" != "--no-lab" ] && [ -t 1 ]; then
+  exec jupyter lab example_notebooks/review_walkthrough.ipynb
+fi
