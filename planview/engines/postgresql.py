@@ -538,12 +538,47 @@ def _xml_to_dict(top, numbers: list[int]) -> Any:
 # The text format into the same dicts
 # ---------------------------------------------------------------------------------------
 
-_NODE_LINE = re.compile(
-    r"^(?P<label>.*?)"
+_FIGURES = re.compile(
     r"(?:  \(cost=(?P<sc>[\d.]+)\.\.(?P<tc>[\d.]+) rows=(?P<rows>\d+) width=(?P<width>\d+)\))?"
     r"(?: ?\((?:actual (?:time=(?P<ast>[\d.]+)\.\.(?P<att>[\d.]+) )?rows=(?P<ar>[\d.]+) loops=(?P<loops>\d+)"
     r"|(?P<never>never executed))\))?$"
 )
+
+
+class _LineMatch:
+    """The label of an operator line and the match of its figures (cost, actual)."""
+
+    __slots__ = ("label", "figures")
+
+    def __init__(self, label: str, figures):
+        self.label = label
+        self.figures = figures
+
+    def group(self, name: str):
+        if name == "label":
+            return self.label
+        return self.figures.group(name) if self.figures is not None else None
+
+
+class _NodeLine:
+    """Splits an operator line where its figures start: no backtracking over the label."""
+
+    @staticmethod
+    def match(text: str) -> _LineMatch | None:
+        cut = text.find("  (cost=")
+        if cut < 0:
+            cut = text.find(" (actual ")
+            if cut < 0:
+                cut = text.find(" (never executed)")
+        if cut < 0:
+            return _LineMatch(text, _FIGURES.match(""))
+        figures = _FIGURES.match(text, cut)
+        if figures is None:
+            return _LineMatch(text, _FIGURES.match(""))
+        return _LineMatch(text[:cut], figures)
+
+
+_NODE_LINE = _NodeLine
 _HEADER_LINE = re.compile(r"^(?:(?P<init>InitPlan \d+)(?: \(returns .*\))?|(?P<sub>SubPlan \d+)|CTE (?P<cte>.+))$")
 _WORKER_LINE = re.compile(r"^Worker (?P<n>\d+):\s+(?P<rest>.*)$")
 _ACTUAL_PART = re.compile(
