@@ -98,6 +98,11 @@ function formatFactor(q) {
   return `×${q.toFixed(q >= 10 ? 0 : 1)}`;
 }
 
+function shortError(log10Ratio, q) {
+  if (Math.abs(log10Ratio) < 0.02) return "on target";
+  return `${formatFactor(q ?? Math.pow(10, Math.abs(log10Ratio)))} ${log10Ratio > 0 ? "under" : "over"}`;
+}
+
 function formatMs(ms) {
   if (ms === null || ms === undefined) return "–";
   if (ms >= 1000) return `${(ms / 1000).toFixed(2)} s`;
@@ -107,7 +112,7 @@ function formatMs(ms) {
 function errorWords(log10Ratio, q) {
   if (log10Ratio === null || log10Ratio === undefined) return "–";
   if (Math.abs(log10Ratio) < 0.02) return "on target";
-  return `${formatFactor(q ?? Math.pow(10, Math.abs(log10Ratio)))} ${log10Ratio > 0 ? "too few est." : "too many est."}`;
+  return `${formatFactor(q ?? Math.pow(10, Math.abs(log10Ratio)))} ${log10Ratio > 0 ? "underestimated" : "overestimated"}`;
 }
 
 const CAUSE_WORDS = {
@@ -422,8 +427,7 @@ class Review {
       el("span", { class: "pv-num" }, "estimated"),
       el("span", { class: "pv-num" }, "actual"),
       el("span", { class: "pv-num" }, "starts"),
-      el("span", { class: "pv-err" }, "error"),
-      el("span", { class: "pv-mark" }, "")));
+      el("span", { class: "pv-err" }, "error")));
     for (const node of rows) {
       const row = this.buildRow(node);
       this.rowsById.set(node.id, row);
@@ -478,25 +482,29 @@ class Review {
     const err = el("span", { class: "pv-err" });
     if (ratio === null) {
       err.textContent = node.judged ? "–" : "not judged";
+      if (!node.judged && node.not_judged_reason) err.setAttribute("title", `not judged: ${node.not_judged_reason}`);
     } else {
       const q = this.colourBy === "own" ? Math.pow(10, Math.abs(ratio)) : node.q_error;
-      err.textContent = errorWords(ratio, q);
+      err.textContent = shortError(ratio, q);
+      err.setAttribute("title", errorWords(ratio, q));
       err.style.background = ratioColour(ratio);
       err.style.color = inkFor(ratio);
     }
-    let mark = "";
     const finding = this.plan.findingOf.get(node.id);
     if (state === "origin") {
-      mark = [el("span", { class: "pv-badge pv-badge-origin", title: "origin, by impact rank" }, `◆ ${finding ? finding.rank : ""}`),
-        finding && finding.cause ? el("span", { class: "pv-mark-cause" }, ` ${causeWords(finding.cause)}`) : ""];
+      op.insertBefore(el("span", {
+        class: "pv-badge pv-badge-origin",
+        title: `origin ${finding ? finding.rank : ""}${finding && finding.cause ? ": " + causeWords(finding.cause) : ""}`,
+      }, `◆${finding ? finding.rank : ""}`), op.querySelector(".pv-label"));
+    } else if (state === "inherited") {
+      op.appendChild(el("span", { class: "pv-badge pv-badge-inherited", title: "carries the error of these origins" },
+        `↳ #${node.inherits_from.slice(0, 3).join(", #")}`));
     }
-    else if (state === "inherited") mark = el("span", { class: "pv-badge pv-badge-inherited" }, `↳ from #${node.inherits_from.slice(0, 3).join(", #")}`);
-    else if (state === "neutral") mark = el("span", { class: "pv-why" }, node.not_judged_reason || "");
     append(row, [op,
       el("span", { class: "pv-num" }, formatRows(node.est_total ?? node.est_rows)),
       el("span", { class: "pv-num" }, formatRows(node.actual_total)),
       el("span", { class: "pv-num" }, formatRows(node.starts)),
-      err, el("span", { class: "pv-mark" }, mark)]);
+      err]);
     row.addEventListener("click", () => this.select(node.id));
     return row;
   }

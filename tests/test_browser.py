@@ -1,0 +1,313 @@
+"""The review in a real browser: inside JupyterLab, and as the exported page opened offline.
+
+Chromium is Debian's, driven by Playwright (see tests/browser_harness.py). Locally a missing
+browser skips these tests; in CI (CI=true) it fails them. Screenshots go to
+example_notebooks/screenshots/.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import re
+import shutil
+import sys
+import tempfile
+from pathlib import Path
+
+import pytest
+
+sys.path.insert(0, os.path.dirname(os.path.abspath(__file__)))
+
+from browser_harness import (  # noqa: E402
+    browser_context,
+    jupyter_lab,
+    offline,
+    require_chromium,
+    run_all_cells,
+    wait_kernel_idle,
+)
+
+import planview  # noqa: E402
+
+pytestmark = pytest.mark.browser
+
+REPO = Path(__file__).resolve().parent.parent
+PLANS = REPO / "plans" / "postgresql" / "pg16"
+NOTEBOOK = REPO / "example_notebooks" / "review_walkthrough.ipynb"
+SHOTS = REPO / "example_notebooks" / "screenshots"
+FIRST_PLAN = PLANS / "multi.json"  # the plan the walkthrough's first review shows
+
+# Markup and template strings put where a plan carries names and conditions. Each one, if it
+# ever ran, would set window.__pvHit; none may become an element.
+PAYLOADS = {
+    "Relation Name": '<script>window.__pvHit = "script"</script>owners',
+    "Alias": '<img src=x onerror="window.__pvHit = \'img\'">',
+    "Index Name": '<svg onload="window.__pvHit = \'svg\'"></svg>idx',
+    "Filter": "(town = '{{7*7}}' AND postcode = '${window.__pvHit = \"tpl\"}' OR x = '<b>bold</b>')",
+}
+
+
+@pytest.fixture(scope="module")
+def browser():
+    require_chromium()
+    with browser_context() as context:
+        yield context
+
+
+def _origin_finding(report, node_id):
+    return next(f for f in report["findings"] if f["node"] == node_id)
+
+
+def _hostile_plan(tmp_path: Path) -> Path:
+    """A captured PG 16 plan with its names and filters replaced by the payloads."""
+    data = json.loads((PLANS / "nested_loop_inherited.json").read_text())
+    todo = [statement["Plan"] for statement in data]
+    while todo:
+        node = todo.pop()
+        for key, value in PAYLOADS.items():
+            if key in node:
+                node[key] = value
+        todo.extend(node.get("Plans", []))
+    path = tmp_path / "hostile.json"
+    path.write_text(json.dumps(data))
+    return path
+
+
+# -- the exported page, offline ------------------------------------------------------------------
+
+def test_export_page_offline_renders_selects_and_keeps_markup_as_text(browser, tmp_path):
+    plan = planview.load(_hostile_plan(tmp_path))
+    report = plan.report()
+    assert report["findings"], "the captured plan should still have its origin"
+    page_path = tmp_path / "review.html"
+    plan.to_html(page_path)
+    page = browser.new_page()
+    blocked = offline(browser)
+    dialogs, errors = [], []
+    page.on("dialog", lambda d: (dialogs.append(d.message), d.dismiss()))
+    page.on("pageerror", lambda e: errors.append(str(e)))
+    try:
+        page.goto(page_path.as_uri())
+        page.wait_for_selector(".pv-review[data-drawn]", timeout=10_000)
+        rows = page.locator(".pv-tree .pv-row[data-id]")
+        assert rows.count() == len(report["nodes"])
+        # selecting an origin shows its cause and its fix with the caution beside it
+        origin = report["findings"][0]["node"]
+        finding = _origin_finding(report, origin)
+        page.locator(f'.pv-row[data-id="{origin}"]').click()
+        detail = page.locator(".pv-detail")
+        assert page.locator(f'.pv-row[data-id="{origin}"]').get_attribute("aria-selected") == "true"
+        assert detail.locator(".pv-cause").get_attribute("data-cause") == (finding["cause"] or "")
+        if finding["fix"]:
+            assert detail.locator(".pv-fix").inner_text().strip() == finding["fix"].strip()
+            assert (finding["caution"] or "")[:40] in detail.locator(".pv-caution").inner_text()
+        assert page.evaluate("location.hash") == f"#node-{origin}"
+        # the inherited error links to its origin
+        inherited = next(n for n in report["nodes"] if n["inherits_from"])
+        page.locator(f'.pv-row[data-id="{inherited["id"]}"]').click()
+        detail.locator(".pv-origin-link").first.click()
+        assert page.locator(".pv-row.pv-selected").get_attribute("data-id") == str(inherited["inherits_from"][0])
+        # the charts: a click on a point selects its node
+        judged = next(n for n in report["nodes"] if n["judged"] and not n["origin"])
+        page.locator(f'circle.pv-point[data-id="{judged["id"]}"]').first.click(force=True)
+        assert page.locator(".pv-row.pv-selected").get_attribute("data-id") == str(judged["id"])
+        # every payload is on the page as text, none as an element, none ran
+        page.locator(f'.pv-row[data-id="{origin}"]').click()
+        text = page.locator(".pv-review").inner_text()
+        for payload in ("{{7*7}}", "${window.__pvHit", "<b>bold</b>"):
+            assert payload in text
+        assert "<script>" in page.locator(".pv-tree").inner_text() or "<img" in page.locator(".pv-tree").inner_text()
+        found = page.evaluate("""() => ({
+            hit: window.__pvHit === undefined ? null : String(window.__pvHit),
+            scripts: document.querySelectorAll('script').length,
+            imgs: document.querySelectorAll('img').length,
+            bold: document.querySelectorAll('b').length,
+            foreignSvg: [...document.querySelectorAll('svg')].filter(s => !s.classList.contains('pv-chart')).length,
+            handlers: [...document.querySelectorAll('*')].filter(e => [...e.attributes].some(a => /^on/i.test(a.name))).length,
+        })""")
+        assert found == {"hit": None, "scripts": 2, "imgs": 0, "bold": 0, "foreignSvg": 0, "handlers": 0}
+        assert dialogs == [] and errors == []
+        assert blocked == []
+        SHOTS.mkdir(parents=True, exist_ok=True)
+        page.screenshot(path=str(SHOTS / "export-offline.png"), full_page=True)
+    finally:
+        browser.unroute("**/*")
+        page.close()
+
+
+def test_export_page_walks_origins_by_rank_with_buttons_and_keys(browser, tmp_path):
+    plan = planview.load(PLANS / "multi.json")
+    ranked = [f["node"] for f in sorted(plan.report()["findings"], key=lambda f: f["rank"])]
+    assert len(ranked) >= 2
+    page_path = tmp_path / "multi.html"
+    plan.to_html(page_path)
+    page = browser.new_page()
+    offline(browser)
+    try:
+        page.goto(page_path.as_uri())
+        page.wait_for_selector(".pv-review[data-drawn]", timeout=10_000)
+        selected = lambda: page.locator(".pv-row.pv-selected").get_attribute("data-id")  # noqa: E731
+        page.locator(".pv-next").click()
+        assert selected() == str(ranked[0])
+        page.locator(".pv-next").click()
+        assert selected() == str(ranked[1])
+        page.locator(".pv-prev").click()
+        assert selected() == str(ranked[0])
+        page.locator(".pv-review").focus()
+        page.keyboard.press("n")
+        assert selected() == str(ranked[1])
+        page.keyboard.press("p")
+        assert selected() == str(ranked[0])
+        assert "origin 1 of" in page.locator(".pv-position").inner_text()
+        # only the origins and the path down to them
+        page.locator(".pv-only").check()
+        shown = {int(x) for x in page.locator(".pv-tree .pv-row[data-id]").evaluate_all(
+            "rows => rows.map(r => r.getAttribute('data-id'))")}
+        by_id = {n["id"]: n for n in plan.report()["nodes"]}
+        expected = set()
+        for origin in ranked:
+            node = by_id[origin]
+            expected.add(origin)
+            while node["parent"] is not None:
+                expected.add(node["parent"])
+                node = by_id[node["parent"]]
+        assert shown == expected
+        # a folded subtree hides its rows, unfolding brings them back
+        page.locator(".pv-only").uncheck()
+        before = page.locator(".pv-tree .pv-row[data-id]").count()
+        page.locator(".pv-row[data-id] .pv-toggle").first.click()
+        assert page.locator(".pv-tree .pv-row[data-id]").count() < before
+        page.locator(".pv-open-all").click()
+        assert page.locator(".pv-tree .pv-row[data-id]").count() == len(by_id)
+    finally:
+        browser.unroute("**/*")
+        page.close()
+
+
+def test_large_export_opens_with_only_the_paths_to_origins(browser, tmp_path):
+    """All captured PG 16 JSON plans in one paste (one statement each): a plan too big to
+    open whole, so it opens folded to the origins."""
+    statements = []
+    decoder = json.JSONDecoder()
+    for path in sorted(PLANS.glob("*.json")):
+        text, at = path.read_text(), 0
+        while text[at:].strip():  # a file may hold one JSON document per statement
+            value, at = decoder.raw_decode(text, len(text) - len(text[at:].lstrip()))
+            statements.extend(value)
+    plan = planview.load(json.dumps(statements))
+    report = plan.report()
+    assert len(report["nodes"]) > 80 and report["findings"]
+    page_path = tmp_path / "all.html"
+    plan.to_html(page_path)
+    page = browser.new_page()
+    offline(browser)
+    try:
+        page.goto(page_path.as_uri())
+        page.wait_for_selector(".pv-review[data-drawn]", timeout=10_000)
+        shown = {int(x) for x in page.locator(".pv-tree .pv-row[data-id]").evaluate_all(
+            "rows => rows.map(r => r.getAttribute('data-id'))")}
+        origins = {f["node"] for f in report["findings"]}
+        roots = {n["id"] for n in report["nodes"] if n["parent"] is None}
+        assert origins <= shown and roots <= shown
+        assert len(shown) < len(report["nodes"])
+        # every row shown is a root, an origin, or a child of an open node on a path to one
+        by_id = {n["id"]: n for n in report["nodes"]}
+        on_path = set()
+        for origin in origins:
+            node = by_id[origin]
+            while node["parent"] is not None:
+                on_path.add(node["parent"])
+                node = by_id[node["parent"]]
+        for node_id in shown - roots:
+            assert by_id[node_id]["parent"] in on_path
+        assert page.locator(".pv-folded").count() > 0
+    finally:
+        browser.unroute("**/*")
+        page.close()
+
+
+# -- inside JupyterLab -------------------------------------------------------------------------
+
+@pytest.fixture(scope="module")
+def lab():
+    require_chromium()
+    root = Path(tempfile.mkdtemp(prefix="planview-lab-root-"))
+    try:
+        (root / "example_notebooks").mkdir()
+        shutil.copy(NOTEBOOK, root / "example_notebooks" / NOTEBOOK.name)
+        (root / "plans").symlink_to(REPO / "plans")
+        with jupyter_lab(root) as server:
+            yield server
+    finally:
+        shutil.rmtree(root, ignore_errors=True)
+
+
+def test_review_in_jupyterlab(lab, browser):
+    report = planview.load(FIRST_PLAN).report()
+    page = browser.new_page()
+    blocked = offline(browser, allowed_prefixes=(lab.base,))
+    try:
+        page.goto(lab.url(f"lab/tree/example_notebooks/{NOTEBOOK.name}"))
+        run_all_cells(page)
+        reviews = page.locator(".pv-review")
+        reviews.nth(2).wait_for(timeout=90_000)
+        wait_kernel_idle(page)
+        first = reviews.first
+        first.scroll_into_view_if_needed()
+        # click the top-ranked origin; the detail shows its cause and fix
+        top = report["findings"][0]
+        first.locator(f'.pv-row[data-id="{top["node"]}"]').click()
+        detail = first.locator(".pv-detail")
+        assert detail.locator(".pv-cause").get_attribute("data-cause") == (top["cause"] or "")
+        if top["fix"]:
+            assert detail.locator(".pv-fix").inner_text().strip() == top["fix"].strip()
+            assert detail.locator(".pv-caution").is_visible()
+        SHOTS.mkdir(parents=True, exist_ok=True)
+        page.wait_for_timeout(300)
+        first.screenshot(path=str(SHOTS / "jupyterlab-review.png"))
+        # the kernel sees the selection: run the last cell again, it prints w.selected
+        last = page.locator(".jp-Notebook .jp-Cell").last
+        last.locator(".jp-InputArea-editor").click()
+        page.keyboard.press("Shift+Enter")
+        expected = f"selected: {top['node']} {report['nodes'][top['node']]['label']}"
+        page.wait_for_function(
+            "text => [...document.querySelectorAll('.jp-Notebook .jp-Cell')].slice(-2)"
+            ".some(c => (c.querySelector('.jp-OutputArea') || {}).textContent?.includes(text))",
+            arg=expected, timeout=30_000)
+        # and Python moves the selection: type into the new cell at the end
+        other = report["findings"][1]["node"] if len(report["findings"]) > 1 else 0
+        wait_kernel_idle(page)
+        page.keyboard.type(f"w.selected = {other}")
+        page.keyboard.press("Shift+Enter")
+        page.wait_for_function(
+            "id => document.querySelector('.pv-review .pv-row.pv-selected')?.getAttribute('data-id') === id",
+            arg=str(other), timeout=30_000)
+        # a click on a chart point selects its node (plotly's click reaches the kernel and back)
+        ids = [n["id"] for n in report["nodes"] if n["judged"] and n["est_total"] is not None
+               and n["actual_total"] is not None]
+        plot = page.locator(".js-plotly-plot").first
+        plot.scroll_into_view_if_needed()
+        point = plot.locator(".scatterlayer .trace").nth(3).locator("path.point").first
+        box = point.bounding_box()
+        index = point.evaluate("p => p.__data__ && p.__data__.i")
+        page.mouse.move(box["x"] + box["width"] / 2, box["y"] + box["height"] / 2)
+        page.wait_for_timeout(200)
+        page.mouse.click(box["x"] + box["width"] / 2, box["y"] + box["height"] / 2)
+        page.wait_for_function(
+            "id => document.querySelector('.pv-review .pv-row.pv-selected')?.getAttribute('data-id') === id",
+            arg=str(ids[index]), timeout=30_000)
+        # the save button writes the page and the ticket text next to the notebook
+        first.locator(".pv-save").click()
+        status = first.locator(".pv-save-status")
+        page.wait_for_function("el => /saved/.test(el.textContent)", arg=status.element_handle(), timeout=30_000)
+        saved = re.findall(r"[\w.-]+\.(?:html|md)", status.inner_text())
+        assert len(saved) == 2
+        folder = lab.root / "example_notebooks"
+        assert all((folder / name).is_file() for name in saved)
+        page_text = (folder / next(n for n in saved if n.endswith(".html"))).read_text()
+        assert 'id="planview-data"' in page_text
+        assert blocked == [], f"the review asked the network for {blocked[:3]}"
+    finally:
+        browser.unroute("**/*")
+        page.close()
