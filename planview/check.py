@@ -68,7 +68,10 @@ class Role:
       leaves out (a filter pushed down from a join at run time), with the reason. Their actual
       count is only a lower bound, so this node's own error is taken against their printed
       counts (judged or not), which bounds it from above: an underestimate of its own cannot
-      be told from theirs and does not make it an origin; an overestimate still does.
+      be told from theirs and does not make it an origin; an overestimate still does;
+    - `stopped`: the node itself stopped before its end, with the reason (a scan that read
+      far fewer rows than its table holds, under a LIMIT the plan does not show): it and the
+      inputs it stopped are not judged.
     """
 
     rule: str = "source"
@@ -81,6 +84,7 @@ class Role:
     preserved: str | None = None
     reads: int | None = None
     cut_inputs: dict[int, str] | None = None
+    stopped: str | None = None
 
 
 def check(parsed: ParsedPlan, engine, options: CheckOptions | None = None) -> list[Finding]:
@@ -145,7 +149,7 @@ def _judge(nodes: list[PlanNode], roles: list[Role]) -> None:
     """Mark nodes that must not be judged, and why. Top-down: an early stop flows down."""
     cut: dict[int, str] = {}
     for node, role in zip(nodes, roles):
-        reason = cut.get(node.id)
+        reason = cut.get(node.id) or role.stopped
         node.own_rule = role.rule
         if node.executed is None or node.actual_total is None:
             node.not_judged_reason = "no actuals" if node.executed is None else "never executed"
