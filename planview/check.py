@@ -269,6 +269,8 @@ def _inheritance(nodes: list[PlanNode], roles: list[Role], threshold: float) -> 
     Bottom-up over the pre-order list. A node that re-reads another (a CTE Scan) may come
     after what it reads in pre-order, so a second pass picks those links up.
     """
+    if not any(node.origin for node in nodes):
+        return
     below: dict[int, list[int]] = {}
     passes = 2 if any(r.reads is not None for r in roles) else 1
     for _ in range(passes):
@@ -279,13 +281,15 @@ def _inheritance(nodes: list[PlanNode], roles: list[Role], threshold: float) -> 
 def _collect(node: PlanNode, nodes: list[PlanNode], roles: list[Role], below: dict[int, list[int]],
              threshold: float) -> None:
     found: list[int] = []
-    feeds = [c for c in node.children if nodes[c].is_input_edge]
-    if roles[node.id].reads is not None:
+    feeds = [c for c in node.children if c in below and nodes[c].is_input_edge]
+    if roles[node.id].reads is not None and roles[node.id].reads in below:
         feeds.append(roles[node.id].reads)
     for child in feeds:
-        for origin in below.get(child, ()):
+        for origin in below[child]:
             if origin not in found:
                 found.append(origin)
+    if not found and not node.origin:
+        return
     if node.origin:
         found = [node.id] + found
     below[node.id] = found[:50]

@@ -154,6 +154,9 @@ def parallel_divisor(workers: int, leader_participates: bool = True) -> float:
 
 def role(node: PlanNode, nodes: list[PlanNode], parsed: ParsedPlan) -> Role:
     """What the check needs to know about a node (see planview.check.Role)."""
+    if not node.children and node.operator != "CTE Scan":
+        return Role(rule=INPUT_RULES.get(node.operator, "source"),
+                    partial=_partial_divisor(node, nodes, parsed))
     inputs = [nodes[c] for c in node.children if nodes[c].is_input_edge]
     by_rel = {c.parent_relationship: c.id for c in inputs}
     inner = by_rel.get("Inner")
@@ -170,9 +173,10 @@ def role(node: PlanNode, nodes: list[PlanNode], parsed: ParsedPlan) -> Role:
     if node.operator == "Merge Join":
         result.overestimate_unjudged = tuple(c.id for c in inputs)
     result.preserved = PRESERVED.get(node.join_type or "")
-    texts = " ".join(c.text for c in node.conditions)
-    for child in (nodes[c] for c in node.children):
-        if child.parent_relationship == "SubPlan" and child.subplan_name:
+    subplans = [nodes[c] for c in node.children if nodes[c].parent_relationship == "SubPlan"]
+    texts = " ".join(c.text for c in node.conditions) if subplans else ""
+    for child in subplans:
+        if child.subplan_name:
             name = child.subplan_name
             if re.search(rf"(EXISTS\s*\(|ANY \(|alternatives: ){re.escape(name)}\b", texts):
                 result.stops_inputs = dict(result.stops_inputs or {})
@@ -300,6 +304,13 @@ def clean_paste(text: str) -> tuple[list[str], list[int]]:
     psql's aligned display adds a centred ``QUERY PLAN`` header, a dashed rule, a leading
     space, a ``+`` at the end of each continued line and a ``(N rows)`` footer.
     """
+    if not _decorated(text):
+        lines = text.splitlines()
+        first = next((x for x in lines if x.strip()), "")
+        if not first.startswith((" ", "\t")):  # raw server output: nothing to take off
+            while lines and not lines[-1].strip():
+                lines.pop()
+            return lines, range(1, len(lines) + 1)
     lines: list[str] = []
     numbers: list[int] = []
     for number, raw in enumerate(text.splitlines(), 1):
@@ -541,7 +552,7 @@ def _xml_to_dict(top, numbers: list[int]) -> Any:
 _FIGURES = re.compile(
     r"(?:  \(cost=(?P<sc>[\d.]+)\.\.(?P<tc>[\d.]+) rows=(?P<rows>\d+) width=(?P<width>\d+)\))?"
     r"(?: ?\((?:actual (?:time=(?P<ast>[\d.]+)\.\.(?P<att>[\d.]+) )?rows=(?P<ar>[\d.]+) loops=(?P<loops>\d+)"
-    r"|(?P<never>never executed))\))?$"
+    r"|(?P<never>never executed))\))?\s*$"
 )
 
 
@@ -1166,6 +1177,15 @@ _NUM_FIELDS = {
 _LATER_NUMBERS = {"Actual Loops", "Actual Rows", "Actual Startup Time", "Actual Total Time",
                   "Workers Planned", "Workers Launched"}
 _SKIP = {"Node Type", "Plans", "Workers", "Parallel Aware"}
+# key -> (what to do, field): one dictionary look-up a key while building a node
+_ACTIONS: dict[str, tuple[int, str | None]] = {
+    **{k: (0, v) for k, v in _STR_FIELDS.items()},
+    **{k: (1, v) for k, v in _NUM_FIELDS.items()},
+    **{k: (2, None) for k in _LATER_NUMBERS},
+    **{k: (3, v) for k, v in CONDITION_KEYS.items()},
+    **{k: (4, None) for k in BUFFER_NAMES},
+    **{k: (5, None) for k in _SKIP},
+}
 
 
 def _node_from_dict(raw: dict, node_id: int, parent: int | None, depth: int, stmt_no: int,
@@ -1180,38 +1200,33 @@ def _node_from_dict(raw: dict, node_id: int, parent: int | None, depth: int, stm
                     depth=depth)
     extra = node.extra
     numbers: dict[str, float | None] = {}
+    actions = _ACTIONS
     for key, value in raw.items():
-        attr = _STR_FIELDS.get(key)
-        if attr is not None:
+        action = actions.get(key)
+        if action is None:
+            if key.startswith(ROWS_REMOVED_PREFIX):
+                count = _num(value, key, path, fmt, line)
+                if count:
+                    node.rows_removed[key[16:]] = count
+            elif not key.startswith("__"):
+                extra[key] = value
+            continue
+        code, attr = action
+        if code == 0:  # a text field
             if value is not None:
-                setattr(node, attr, value if type(value) is str else _text(value, key, path, fmt, line))
-            continue
-        attr = _NUM_FIELDS.get(key)
-        if attr is not None:
+                setattr(node, attr, value if value.__class__ is str else _text(value, key, path, fmt, line))
+        elif code == 1:  # a number field
             setattr(node, attr, _num(value, key, path, fmt, line))
-            continue
-        if key in _LATER_NUMBERS:
+        elif code == 2:  # a number read after the loop
             numbers[key] = _num(value, key, path, fmt, line)
-            continue
-        kind = CONDITION_KEYS.get(key)
-        if kind is not None:
+        elif code == 3:  # a condition
             if value is not None and value != "":
-                text = value if type(value) is str else _text(value, key, path, fmt, line)
-                node.conditions.append(Condition(kind=kind, text=text, key=key))
-            continue
-        if key in BUFFER_NAMES:
+                text = value if value.__class__ is str else _text(value, key, path, fmt, line)
+                node.conditions.append(Condition(kind=attr, text=text, key=key))
+        elif code == 4:  # a buffer count
             count = _num(value, key, path, fmt, line)
             if count:
                 node.buffers[key] = count
-            continue
-        if key.startswith(ROWS_REMOVED_PREFIX):
-            count = _num(value, key, path, fmt, line)
-            if count:
-                node.rows_removed[key[len(ROWS_REMOVED_PREFIX):]] = count
-            continue
-        if key in _SKIP or key.startswith("__"):
-            continue
-        extra[key] = value
     if len(node.conditions) > 1:
         order = {k: i for i, k in enumerate(CONDITION_KEYS)}
         node.conditions.sort(key=lambda c: order[c.key])
