@@ -44,8 +44,11 @@ def assert_same(plan, reference, what):
     got = plan.report()["nodes"]
     want = reference.report()["nodes"]
     assert len(got) == len(want), what
+    per_run = ("starts", "est_total", "executed")  # how many processes ran varies with load
     for a, b in zip(got, want):
         for key in CORE:
+            if b["id"] in variable and key in per_run:
+                continue
             assert a[key] == b[key], (what, a["id"], key, a[key], b[key])
         if b["id"] not in variable:
             for key in ACTUALS:
