@@ -27,13 +27,15 @@ def core(plan, with_actuals=True):
 
 def run_variable(plan) -> set[int]:
     """Nodes whose actual rows legitimately vary between two executions: those cut short
-    (their count depends on when the consumer stopped) and those below a Gather (how rows
-    split between processes, so the rounded per-loop average, varies)."""
+    (their count depends on when the consumer stopped), and a Gather with all below it (how
+    many workers start, and how rows split between processes, varies with load: with no
+    worker launched a Gather over partial aggregates returns a third of the rows)."""
     out = set()
     for node in plan.nodes:
         parent = plan.nodes[node.parent] if node.parent is not None else None
         if (node.not_judged_reason or "").startswith(("stopped early", "may have")) or \
-                (parent is not None and (parent.id in out or parent.operator in ("Gather", "Gather Merge"))):
+                node.operator in ("Gather", "Gather Merge") or \
+                (parent is not None and parent.id in out):
             out.add(node.id)
     return out
 
