@@ -60,7 +60,13 @@ class Context:
 
     @property
     def is_scan(self) -> bool:
-        return self.node.operator.lower().replace("_", " ").endswith("scan")
+        """A leaf that reads a relation (whatever the engine calls its access method)."""
+        node = self.node
+        if node.relation is None:
+            return False
+        nodes = self.plan.nodes
+        return not any(nodes[c].is_input_edge and not nodes[c].operator.lower().startswith("bitmap")
+                       for c in node.children)
 
     @property
     def is_join(self) -> bool:

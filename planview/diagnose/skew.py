@@ -14,6 +14,12 @@ from __future__ import annotations
 from .context import Candidate, Context, fmt_rows, fmt_sel
 
 
+def _own_names(ctx: Context) -> set:
+    """The names this scan's own columns may be qualified with (alias, relation, none)."""
+    node = ctx.node
+    return {None, node.alias, node.relation}
+
+
 def frequency_ratio(estimated: float, actual: float) -> float:
     return actual / estimated if estimated else float("inf")
 
@@ -21,13 +27,16 @@ def frequency_ratio(estimated: float, actual: float) -> float:
 def rule(ctx: Context) -> Candidate | None:
     restrictions = [c for c in ctx.restriction_clauses() if c.op_class in ("equality", "in_list")
                     and c.bare and c.columns]
-    single = [c for c in restrictions if len({x.name for x in c.columns}) == 1 and len(c.columns) == 1]
+    own = _own_names(ctx)
+    single = [c for c in restrictions if len(c.columns) == 1
+              or (c.is_join and ctx.is_scan and sum(1 for x in c.columns if x.qualifier in own) == 1)]
     others = [c for c in ctx.restriction_clauses() if c not in single and not c.has_parameter
               and c.op_class not in ("subplan",)]
     if len(single) != 1 or others:
         return None
     clause = single[0]
-    column = clause.columns[0].name
+    mine = [x for x in clause.columns if len(clause.columns) == 1 or x.qualifier in own]
+    column = mine[0].name
     parameterised = clause.has_parameter or clause.is_join
     lines = [f"One {'IN list' if clause.op_class == 'in_list' else 'equality'} on {column}: "
              f"{clause.text}."]
@@ -52,5 +61,6 @@ def rule(ctx: Context) -> Candidate | None:
         score -= 0.1
     return Candidate(cause="skew", score=score,
                      reason="a single equality on one column, off by more than tenfold",
-                     lines=lines, fields=fields, table=ctx.table_of(clause) or ctx.relation_of.get(None),
+                     lines=lines, fields=fields,
+                     table=ctx.relation_of.get(mine[0].qualifier) or ctx.relation_of.get(None),
                      columns=[column])
