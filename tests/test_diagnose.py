@@ -176,3 +176,19 @@ def test_nine_rows_three_values_live(pg_servers):
     never = planview.load(db.explain("SELECT * FROM nine WHERE a = 1 AND b = 2", "text"))
     assert (never.nodes[0].est_rows, never.nodes[0].actual_rows) == (1, 0)
     assert never.findings == []  # 1 row vs none: within the default tenfold
+
+
+@pytest.mark.pg
+@pytest.mark.parametrize("case", sorted(PLANTED) + ["well_estimated", "limit"])
+def test_planted_defects_live(scenario_db, case):
+    """Live: each planted case run now on each real server gives its cause at its node
+    (and the well-estimated and LIMIT plans give no finding at all)."""
+    plan = planview.load(scenario_db.explain_case(case, "json"))
+    if case in ("well_estimated", "limit"):
+        assert plan.findings == []
+        return
+    cause, relation, words = PLANTED[case]
+    assert [f.cause for f in plan.findings] == [cause], (case, scenario_db.version)
+    node = plan.nodes[plan.findings[0].node]
+    assert node.relation == relation if relation else node.own_rule == "join"
+    assert all(word in plan.findings[0].fix for word in words)
