@@ -22,6 +22,7 @@ from ..check import Role
 from ..errors import PlanParseError
 from ..model import Condition, ParsedPlan, PlanNode, Statement
 from ..source import MAX_DEPTH
+from ._dispatch import dispatch
 
 NAME = "duckdb"
 FORMATS = ("json", "text")
@@ -124,15 +125,7 @@ def detect(text: str) -> tuple[str, float] | None:
 
 
 def parse(text: str, fmt: str) -> ParsedPlan:
-    if not text.strip():
-        raise PlanParseError("the input is empty", line=1, engine=NAME, fmt=fmt)
-    if fmt == "json":
-        return _parse_json(text)
-    if fmt == "text":
-        return _parse_text(text)
-    raise PlanParseError(f"unknown format {fmt!r}; DuckDB formats: {', '.join(FORMATS)}",
-                         engine=NAME, fmt=fmt)
-
+    return dispatch(NAME, "DuckDB", {"json": _parse_json, "text": _parse_text}, text, fmt)
 
 # ---------------------------------------------------------------------------------------
 # JSON

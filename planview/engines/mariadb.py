@@ -21,6 +21,7 @@ from typing import Any
 from ..check import Role
 from ..errors import PlanParseError
 from ..model import Condition, ParsedPlan, PlanNode, Statement
+from ._dispatch import dispatch
 
 NAME = "mariadb"
 FORMATS = ("json", "table")
@@ -68,15 +69,7 @@ def detect(text: str) -> tuple[str, float] | None:
 
 
 def parse(text: str, fmt: str) -> ParsedPlan:
-    if not text.strip():
-        raise PlanParseError("the input is empty", line=1, engine=NAME, fmt=fmt)
-    if fmt == "json":
-        return _parse_json(text)
-    if fmt == "table":
-        return _parse_table(text)
-    raise PlanParseError(f"unknown format {fmt!r}; MariaDB formats: {', '.join(FORMATS)}",
-                         engine=NAME, fmt=fmt)
-
+    return dispatch(NAME, "MariaDB", {"json": _parse_json, "table": _parse_table}, text, fmt)
 
 # ---------------------------------------------------------------------------------------
 # JSON

@@ -21,6 +21,7 @@ from ..check import Role
 from ..errors import PlanParseError
 from ..model import Condition, ParsedPlan, PlanNode, Statement
 from ..source import MAX_DEPTH
+from ._dispatch import dispatch
 
 NAME = "mysql"
 FORMATS = ("tree", "json")
@@ -94,15 +95,7 @@ def detect(text: str) -> tuple[str, float] | None:
 
 
 def parse(text: str, fmt: str) -> ParsedPlan:
-    if not text.strip():
-        raise PlanParseError("the input is empty", line=1, engine=NAME, fmt=fmt)
-    if fmt == "tree":
-        return _parse_tree(text)
-    if fmt == "json":
-        return _parse_json(text)
-    raise PlanParseError(f"unknown format {fmt!r}; MySQL formats: {', '.join(FORMATS)}", engine=NAME,
-                         fmt=fmt)
-
+    return dispatch(NAME, "MySQL", {"tree": _parse_tree, "json": _parse_json}, text, fmt)
 
 # ---------------------------------------------------------------------------------------
 # Operation text into the node's fields (shared by both formats)
