@@ -25,7 +25,7 @@ class Condition:
     key: str = ""
 
 
-@dataclass
+@dataclass(slots=True)
 class PlanNode:
     """One operator. Row counts are *per start*, exactly as the engine printed them.
 
