@@ -136,8 +136,23 @@ const GENERIC_CAUTION =
 // ---------------------------------------------------------------------------------------------
 // the plan, indexed once
 
+// The exported page packs the nodes as columns and rows (its size is then about half); the
+// widget gets them as the report has them.
+function unpackNodes(report) {
+  const packed = report.nodes_packed;
+  if (!packed || !Array.isArray(packed.columns) || !Array.isArray(packed.rows)) {
+    return Array.isArray(report.nodes) ? report.nodes : [];
+  }
+  const columns = packed.columns;
+  return packed.rows.map((row) => {
+    const node = {};
+    for (let i = 0; i < columns.length; i++) if (row[i] !== null && row[i] !== undefined) node[columns[i]] = row[i];
+    return node;
+  });
+}
+
 function indexPlan(report) {
-  const nodes = Array.isArray(report.nodes) ? report.nodes : [];
+  const nodes = unpackNodes(report);
   const byId = new Map();
   for (const node of nodes) byId.set(node.id, node);
   const findings = (Array.isArray(report.findings) ? report.findings : [])
@@ -232,6 +247,7 @@ class Review {
     });
     host.appendChild(this.root);
     this.listen(model, "change:report", () => this.load());
+    this.listen(model, "change:chart_mode", () => this.load());
     this.listen(model, "change:selected", () => this.showSelection());
     this.listen(model, "msg:custom", (msg) => this.onMessage(msg));
     this.keyHandler = (event) => this.onKey(event);
@@ -284,6 +300,13 @@ class Review {
     }
     this.drawTree();
     this.root.setAttribute("data-drawn", String(this.plan.nodes.length));
+    if (typeof requestAnimationFrame === "function" && typeof performance !== "undefined") {
+      requestAnimationFrame(() => this.root.setAttribute("data-painted-ms", performance.now().toFixed(1)));
+    }
+    if (!this.announced) {
+      this.announced = true;
+      this.model.send({ kind: "drawn" });  // the kernel adds the charts once the tree is up
+    }
     this.showSelection();
     if (this.chartPane) {
       const draw = () => this.drawCharts();
@@ -874,17 +897,27 @@ class SvgCharts {
   }
 
   plotPoints(box, points, px, py) {
-    const group = svg("g", { class: "pv-points" });
+    const group = document.createElementNS(SVG_NS, "g");
+    group.setAttribute("class", "pv-points");
     for (const n of points) {
-      const mark = svg("circle", {
-        cx: px(n).toFixed(1), cy: py(n).toFixed(1), r: n.origin ? 5.5 : 3.5,
-        class: n.origin ? "pv-point pv-point-origin" : "pv-point", "data-id": n.id,
-        fill: ratioColour(n.log10_ratio),
-      });
-      mark.appendChild(svg("title", {}, `#${n.id} ${n.label || n.operator || ""}: estimated ${formatRows(n.est_total)}, actual ${formatRows(n.actual_total)}`));
+      const mark = document.createElementNS(SVG_NS, "circle");
+      mark.setAttribute("cx", px(n).toFixed(1));
+      mark.setAttribute("cy", py(n).toFixed(1));
+      mark.setAttribute("r", n.origin ? "5.5" : "3.5");
+      mark.setAttribute("class", n.origin ? "pv-point pv-point-origin" : "pv-point");
+      mark.setAttribute("data-id", String(n.id));
+      mark.setAttribute("fill", ratioColour(n.log10_ratio));
       group.appendChild(mark);
     }
     box.appendChild(group);
+    const readout = svg("text", { x: box.viewBox.baseVal.width - 8, y: 15, class: "pv-readout", "text-anchor": "end" });
+    box.appendChild(readout);
+    group.addEventListener("mouseover", (event) => {
+      const id = event.target.getAttribute("data-id");
+      const n = id === null ? null : this.plan.byId.get(Number(id));
+      readout.textContent = n ? `#${n.id} ${n.label || n.operator || ""}: est. ${formatRows(n.est_total)}, actual ${formatRows(n.actual_total)}` : "";
+    });
+    group.addEventListener("mouseout", () => { readout.textContent = ""; });
     const ring = svg("circle", { r: 9, class: "pv-point-ring", visibility: "hidden" });
     box.appendChild(ring);
     this.marks.push({ ring, px, py });
