@@ -1017,6 +1017,18 @@ def _text(value: Any, key: str, path: str, fmt: str, line: int | None) -> str | 
                          line=line, engine=NAME, fmt=fmt)
 
 
+_PLAIN_IDENT = re.compile(r"[a-z_][a-z0-9_$]*")
+
+
+def _quote_ident(ident: str | None) -> str:
+    """An identifier as PostgreSQL prints it: bare when it can be, else double-quoted."""
+    if ident is None:
+        return ""
+    if _PLAIN_IDENT.fullmatch(ident):
+        return ident
+    return '"' + ident.replace('"', '""') + '"'
+
+
 def compose_label(node: PlanNode) -> str:
     """The label the text format prints for a node, rebuilt from its keys."""
     op = node.operator
@@ -1045,12 +1057,7 @@ def compose_label(node: PlanNode) -> str:
     if op == "Custom Scan" and node.extra.get("Custom Plan Provider"):
         name += f" ({node.extra['Custom Plan Provider']})"
 
-    def quote(ident: str | None) -> str:
-        if ident is None:
-            return ""
-        if re.fullmatch(r"[a-z_][a-z0-9_$]*", ident):
-            return ident
-        return '"' + ident.replace('"', '""') + '"'
+    quote = _quote_ident
 
     def target(obj: str | None) -> str:
         qualified = f"{quote(node.schema)}.{quote(obj)}" if node.schema else quote(obj)
@@ -1174,14 +1181,16 @@ _NUM_FIELDS = {
     "Plan Rows": "est_rows", "Startup Cost": "startup_cost", "Total Cost": "total_cost",
     "Plan Width": "width",
 }
-_LATER_NUMBERS = {"Actual Loops", "Actual Rows", "Actual Startup Time", "Actual Total Time",
-                  "Workers Planned", "Workers Launched"}
+_LATER_NUMBERS = {"Actual Loops": "starts", "Actual Rows": "actual_rows",
+                  "Actual Startup Time": "actual_startup_ms", "Actual Total Time": "actual_total_ms",
+                  "Workers Planned": "workers_planned", "Workers Launched": "workers_launched"}
 _SKIP = {"Node Type", "Plans", "Workers", "Parallel Aware"}
+_INF = float("inf")
 # key -> (what to do, field): one dictionary look-up a key while building a node
 _ACTIONS: dict[str, tuple[int, str | None]] = {
     **{k: (0, v) for k, v in _STR_FIELDS.items()},
     **{k: (1, v) for k, v in _NUM_FIELDS.items()},
-    **{k: (2, None) for k in _LATER_NUMBERS},
+    **{k: (1, v) for k, v in _LATER_NUMBERS.items()},
     **{k: (3, v) for k, v in CONDITION_KEYS.items()},
     **{k: (4, None) for k in BUFFER_NAMES},
     **{k: (5, None) for k in _SKIP},
@@ -1199,7 +1208,6 @@ def _node_from_dict(raw: dict, node_id: int, parent: int | None, depth: int, stm
     node = PlanNode(id=node_id, parent=parent, operator=node_type, label="", statement=stmt_no,
                     depth=depth)
     extra = node.extra
-    numbers: dict[str, float | None] = {}
     actions = _ACTIONS
     for key, value in raw.items():
         action = actions.get(key)
@@ -1216,9 +1224,10 @@ def _node_from_dict(raw: dict, node_id: int, parent: int | None, depth: int, stm
             if value is not None:
                 setattr(node, attr, value if value.__class__ is str else _text(value, key, path, fmt, line))
         elif code == 1:  # a number field
-            setattr(node, attr, _num(value, key, path, fmt, line))
-        elif code == 2:  # a number read after the loop
-            numbers[key] = _num(value, key, path, fmt, line)
+            if (value.__class__ is float or value.__class__ is int) and 0 <= value < _INF:
+                setattr(node, attr, float(value))
+            else:
+                setattr(node, attr, _num(value, key, path, fmt, line))
         elif code == 3:  # a condition
             if value is not None and value != "":
                 text = value if value.__class__ is str else _text(value, key, path, fmt, line)
@@ -1236,19 +1245,18 @@ def _node_from_dict(raw: dict, node_id: int, parent: int | None, depth: int, stm
         node.join_type = "Inner"
     if node.operator == "Aggregate" and node.partial_mode is None:
         node.partial_mode = "Simple"
-    loops = numbers.get("Actual Loops")
-    rows = numbers.get("Actual Rows")
-    if loops is not None or rows is not None:
-        node.starts = loops if loops is not None else 1.0
-        node.executed = bool(node.starts) and not raw.get("__never__")
-        node.actual_rows = rows if node.executed else None
-        if node.executed:
-            node.actual_startup_ms = numbers.get("Actual Startup Time")
-            node.actual_total_ms = numbers.get("Actual Total Time")
-    planned = numbers.get("Workers Planned")
-    launched = numbers.get("Workers Launched")
-    node.workers_planned = int(planned) if planned is not None else None
-    node.workers_launched = int(launched) if launched is not None else None
+    if node.starts is not None or node.actual_rows is not None:
+        if node.starts is None:
+            node.starts = 1.0
+        node.executed = bool(node.starts) and "__never__" not in raw
+        if not node.executed:
+            node.actual_rows = node.actual_startup_ms = node.actual_total_ms = None
+    else:
+        node.actual_startup_ms = node.actual_total_ms = None
+    if node.workers_planned is not None:
+        node.workers_planned = int(node.workers_planned)
+    if node.workers_launched is not None:
+        node.workers_launched = int(node.workers_launched)
     workers = raw.get("Workers")
     if isinstance(workers, list):
         for i, worker in enumerate(workers):
