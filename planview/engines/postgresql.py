@@ -709,39 +709,44 @@ def _next_is_arrow(lines: list[str], index: int, col: int) -> bool:
     return False
 
 
+_BAD_FIGURES = re.compile(r"\((cost|actual)[ =]|\bloops=")
+
+
 def _text_node(text: str, lineno: int) -> dict:
     match = _NODE_LINE.match(text)
-    if match is None or not match.group("label").strip():
-        raise PlanParseError(f"cannot read operator line {text[:80]!r}", line=lineno,
-                             engine=NAME, fmt="text")
-    label = match.group("label").strip()
-    if re.search(r"\((cost|actual)[ =]|\bloops=", label) or (
-            match.group("rows") is None and match.group("ar") is None and not match.group("never")
-            and re.search(r"\((cost|actual)[ =]|\bloops=", text)):
-        figures = text[text.find("("):][:80]
-        raise PlanParseError(f"cannot read the figures {figures!r} (expected cost=S..T rows=N "
+    label = match.label.strip()
+    figures = match.figures
+    sc, tc, rows, width, ast, att, ar, loops, never = (
+        figures.groups() if figures is not None else (None,) * 9)
+    if not label or _BAD_FIGURES.search(label) or (
+            rows is None and ar is None and not never and _BAD_FIGURES.search(text)):
+        if not label:
+            raise PlanParseError(f"cannot read operator line {text[:80]!r}", line=lineno,
+                                 engine=NAME, fmt="text")
+        shown = text[text.find("("):][:80]
+        raise PlanParseError(f"cannot read the figures {shown!r} (expected cost=S..T rows=N "
                              "width=W and actual time=A..B rows=N loops=L, all non-negative)",
                              line=lineno, engine=NAME, fmt="text")
-    node: dict[str, Any] = {"__line__": lineno}
-    node.update(_label_to_keys(label, lineno))
+    node: dict[str, Any] = _label_to_keys(label, lineno)
+    node["__line__"] = lineno
     node["__label__"] = label
-    if match.group("rows") is not None:
-        node["Startup Cost"] = float(match.group("sc"))
-        node["Total Cost"] = float(match.group("tc"))
-        node["Plan Rows"] = float(match.group("rows"))
-        node["Plan Width"] = float(match.group("width"))
-    if match.group("never"):
+    if rows is not None:
+        node["Startup Cost"] = float(sc)
+        node["Total Cost"] = float(tc)
+        node["Plan Rows"] = float(rows)
+        node["Plan Width"] = float(width)
+    if never:
         node["Actual Rows"] = 0.0
         node["Actual Loops"] = 0.0
         node["__never__"] = True
-    elif match.group("ar") is not None:
-        node["Actual Rows"] = float(match.group("ar"))
-        node["Actual Loops"] = float(match.group("loops"))
-        if "." in match.group("ar"):
+    elif ar is not None:
+        node["Actual Rows"] = float(ar)
+        node["Actual Loops"] = float(loops)
+        if "." in ar:
             node["__decimal_rows__"] = True
-        if match.group("ast") is not None:
-            node["Actual Startup Time"] = float(match.group("ast"))
-            node["Actual Total Time"] = float(match.group("att"))
+        if ast is not None:
+            node["Actual Startup Time"] = float(ast)
+            node["Actual Total Time"] = float(att)
     return node
 
 
@@ -751,8 +756,15 @@ def _unquote(name: str) -> str:
     return name
 
 
+_IDENT_RE = re.compile(_IDENT)
+
+
 def _split_qualified(name: str) -> list[str]:
-    return [_unquote(p) for p in re.findall(_IDENT, name)] if name else []
+    return [_unquote(p) for p in _IDENT_RE.findall(name)] if name else []
+
+
+_JOIN_LABEL = re.compile(
+    r"^(Nested Loop|Hash|Merge)(?: (Left|Right Semi|Right Anti|Right|Full|Semi|Anti))?(?: Join)?$")
 
 
 def _label_to_keys(label: str, lineno: int) -> dict[str, Any]:
@@ -777,7 +789,7 @@ def _label_to_keys(label: str, lineno: int) -> dict[str, Any]:
             keys["Operation"] = op
             _target(keys, rest[len(op) + 4:], "relation")
             return keys
-    join = re.match(r"^(Nested Loop|Hash|Merge)(?: (Left|Right Semi|Right Anti|Right|Full|Semi|Anti))?(?: Join)?$", rest)
+    join = _JOIN_LABEL.match(rest) if rest.startswith(("Nested Loop", "Hash", "Merge")) else None
     if join and (join.group(1) == "Nested Loop" or rest.endswith("Join")):
         keys["Node Type"] = "Nested Loop" if join.group(1) == "Nested Loop" else f"{join.group(1)} Join"
         keys["Join Type"] = join.group(2) or "Inner"
