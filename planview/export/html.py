@@ -220,6 +220,10 @@ def render_static_tree(plan) -> str:
                    f"here ({esc(factor(f['q_error']))} in all)"
                    + (f"; cause: {esc(cause_words(f['cause']) or '')}" if f.get("cause") else "; not diagnosed yet")
                    + "</p>")
+        conditions = node.get("conditions") or []
+        if conditions:
+            out.append("<ul>" + "".join(f"<li>{esc(c.get('key') or c.get('kind') or '')}: <code>{esc(c.get('text') or '')}</code></li>"
+                                        for c in conditions) + "</ul>")
         if f.get("summary"):
             out.append(f"<p>{esc(f['summary'])}</p>")
         lines, pairs = evidence_items(f.get("evidence"))

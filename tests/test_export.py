@@ -1,0 +1,225 @@
+"""The exports on real captured plans: the offline page, the static tree, the ticket Markdown.
+
+The markup tests put markup and template strings where a captured plan carries its names
+and conditions, then parse what each export wrote with a real parser (the standard library's
+HTML parser, mistune for Markdown with raw HTML let through) and look for elements.
+"""
+
+from __future__ import annotations
+
+import base64
+import hashlib
+import html.parser
+import json
+import re
+from pathlib import Path
+
+import pytest
+
+import planview
+from planview.cli import main as cli_main
+from planview.export.common import VIK, cause_words
+from planview.export.html import compact_report, render_static_tree
+
+REPO = Path(__file__).resolve().parent.parent
+PG16 = REPO / "plans" / "postgresql" / "pg16"
+CAPTURED = sorted(p for p in PG16.glob("*") if p.suffix in (".json", ".txt", ".xml", ".yaml"))
+
+PAYLOADS = {
+    "Relation Name": '<script>window.__pvHit = "script"</script>owners',
+    "Alias": '<img src=x onerror="window.__pvHit = 1">',
+    "Index Name": '<svg onload="window.__pvHit = 2"></svg>idx',
+    "Filter": "(town = '{{7*7}}' AND postcode = '${alert(1)}' OR note = '<b>bold</b>' OR x = '`|*_[a](javascript:x)')",
+}
+
+
+def hostile(path: Path = PG16 / "nested_loop_inherited.json"):
+    data = json.loads(path.read_text())
+    todo = [statement["Plan"] for statement in data]
+    while todo:
+        node = todo.pop()
+        for key, value in PAYLOADS.items():
+            if key in node:
+                node[key] = value
+        todo.extend(node.get("Plans", []))
+    return planview.load(json.dumps(data))
+
+
+class Elements(html.parser.HTMLParser):
+    """Every start tag with its attributes, and the text, as a browser's parser sees them."""
+
+    def __init__(self):
+        super().__init__(convert_charrefs=True)
+        self.tags: list[tuple[str, dict]] = []
+        self.text: list[str] = []
+        self.raw: dict[str, list[str]] = {}
+        self._in: str | None = None
+
+    def handle_starttag(self, tag, attrs):
+        self.tags.append((tag, dict(attrs)))
+        if tag in ("script", "style"):
+            self._in = tag
+
+    def handle_endtag(self, tag):
+        if tag == self._in:
+            self._in = None
+
+    def handle_data(self, data):
+        if self._in:
+            self.raw.setdefault(self._in, []).append(data)
+        else:
+            self.text.append(data)
+
+
+def parse(markup: str) -> Elements:
+    parser = Elements()
+    parser.feed(markup)
+    parser.close()
+    return parser
+
+
+def unpack(packed: dict) -> list[dict]:
+    columns = packed["nodes_packed"]["columns"]
+    return [{k: v for k, v in zip(columns, row) if v is not None} for row in packed["nodes_packed"]["rows"]]
+
+
+# -- the offline page ------------------------------------------------------------------------
+
+@pytest.mark.parametrize("path", CAPTURED, ids=lambda p: p.name)
+def test_every_captured_plan_exports_a_self_contained_page(path):
+    plan = planview.load(path)
+    page = plan.to_html()
+    parsed = parse(page)
+    tags = [t for t, _ in parsed.tags]
+    assert tags.count("script") == 2 and "link" not in tags and "iframe" not in tags
+    for _tag, attrs in parsed.tags:
+        for name, value in attrs.items():
+            assert not (name in ("src", "href", "action") and value and not value.startswith("#")), (name, value)
+    assert not re.search(r"https?://(?!www\.w3\.org/2000/svg)", page), "no address outside the page"
+    # the data is the report, packed; the module's hash is the one the policy allows
+    data = json.loads(next(d for d in parsed.raw["script"] if d.lstrip().startswith("{")))
+    report = plan.report()
+    nodes = unpack(data["report"])
+    assert [n["id"] for n in nodes] == [n["id"] for n in report["nodes"]]
+    for packed, full in zip(nodes, report["nodes"]):
+        assert {k: v for k, v in full.items() if v not in (None, [], {}, "")} == packed
+    assert data["report"]["findings"] == report["findings"]
+    policy = next(a["content"] for t, a in parsed.tags if t == "meta" and a.get("http-equiv") == "Content-Security-Policy")
+    module = next(d for d in parsed.raw["script"] if "localModel" in d)
+    digest = base64.b64encode(hashlib.sha256(module.encode()).digest()).decode()
+    assert f"script-src 'sha256-{digest}'" in policy and "default-src 'none'" in policy
+
+
+def test_page_keeps_plan_markup_inside_its_data():
+    plan = hostile()
+    page = plan.to_html()
+    parsed = parse(page)
+    assert [t for t, _ in parsed.tags].count("script") == 2
+    assert not [t for t, _ in parsed.tags if t in ("img", "svg", "b")]
+    assert not [(t, a) for t, a in parsed.tags for name in a if name.startswith("on")]
+    data_text = next(d for d in parsed.raw["script"] if d.lstrip().startswith("{"))
+    assert "<" not in data_text and ">" not in data_text
+    data = json.loads(data_text)
+    relations = {n.get("relation") for n in unpack(data["report"])}
+    assert PAYLOADS["Relation Name"] in relations
+
+
+def test_widget_module_and_python_share_the_colour_scale():
+    module = (REPO / "planview" / "widget" / "review.js").read_text()
+    listed = re.search(r"export const VIK = \[(.*?)\];", module, re.S).group(1)
+    assert tuple(re.findall(r'"(#[0-9a-f]{6})"', listed)) == VIK
+    assert "innerHTML" not in module and "insertAdjacentHTML" not in module and "eval(" not in module
+
+
+# -- the static tree ---------------------------------------------------------------------------
+
+def test_static_tree_lists_every_operator_and_keeps_markup_as_text():
+    plan = hostile()
+    report = plan.report()
+    parsed = parse(render_static_tree(plan))
+    assert {t for t, _ in parsed.tags} <= {"style", "div", "p", "strong", "em", "span", "table", "thead",
+                                           "tbody", "tr", "th", "td", "h4", "ul", "li", "pre", "code"}
+    assert not [(t, a) for t, a in parsed.tags for name in a if name.startswith("on")]
+    text = "".join(parsed.text)
+    for node in report["nodes"]:
+        assert node["label"] in text
+    assert PAYLOADS["Filter"] in text  # the origin's condition
+    rows = [a for t, a in parsed.tags if t == "tr" and a.get("class")]
+    assert len(rows) == len(report["nodes"])
+    assert sum(1 for a in rows if a["class"] == "origin") == len(report["findings"])
+    for finding in report["findings"]:
+        if finding["fix"]:
+            assert finding["fix"] in text and (finding["caution"] or "") in text
+
+
+def test_static_tree_of_a_large_plan_shows_the_paths_to_origins():
+    statements = []
+    decoder = json.JSONDecoder()
+    for path in sorted(PG16.glob("*.json")):
+        text, at = path.read_text(), 0
+        while text[at:].strip():
+            value, at = decoder.raw_decode(text, len(text) - len(text[at:].lstrip()))
+            statements.extend(value)
+    big = statements * 4
+    plan = planview.load(json.dumps(big))
+    report = plan.report()
+    assert len(report["nodes"]) > 300
+    parsed = parse(render_static_tree(plan))
+    rows = [a for t, a in parsed.tags if t == "tr" and a.get("class")]
+    assert len(rows) < len(report["nodes"])
+    assert sum(1 for a in rows if a["class"] == "origin") == len(report["findings"])
+    assert "operators are left out here" in "".join(parsed.text)
+
+
+# -- the ticket text ---------------------------------------------------------------------------
+
+def test_markdown_ticket_has_each_origin_with_cause_fix_and_caution():
+    plan = planview.load(PG16 / "multi.json")
+    report = plan.report()
+    text = plan.to_markdown()
+    assert report["findings"]
+    table = [line for line in text.splitlines() if line.startswith("| ")]
+    assert len(table) == 1 + len(report["findings"])
+    for finding in report["findings"]:
+        row = next(line for line in table if line.startswith(f"| {finding['rank']} |"))
+        assert f"#{finding['node']}" in row
+        if finding["cause"]:
+            assert cause_words(finding["cause"]).split()[0] in row
+        if finding["fix"]:
+            assert finding["fix"].strip() in text
+            assert "Before you run it" in text
+        if finding["caution"]:
+            assert finding["caution"].split(".")[0] in text.replace("\\", "")
+
+
+def test_markdown_renders_plan_markup_as_text():
+    mistune = pytest.importorskip("mistune")
+    plan = hostile()
+    text = plan.to_markdown()
+    rendered = mistune.create_markdown(escape=False, plugins=["table"])(text)
+    parsed = parse(rendered)
+    assert not [t for t, _ in parsed.tags if t in ("script", "img", "svg", "b", "a", "iframe")]
+    assert not [(t, a) for t, a in parsed.tags for name in a if name.startswith("on")]
+    shown = "".join(parsed.text)
+    assert "{{7*7}}" in shown and "${alert(1)}" in shown
+    origin = plan.report()["nodes"][plan.report()["findings"][0]["node"]]
+    assert origin["label"] in shown  # the label, quotes and markup and all, as text
+
+
+def test_markdown_of_a_plan_without_origins():
+    plan = planview.load(PG16 / "well_estimated.json")
+    assert not plan.report()["findings"]
+    text = plan.to_markdown()
+    assert "No operator's estimate is off" in text and "| # |" not in text
+
+
+# -- the command line --------------------------------------------------------------------------
+
+def test_cli_writes_the_page_and_the_ticket(tmp_path, capsys):
+    page, ticket = tmp_path / "r.html", tmp_path / "r.md"
+    code = cli_main(["check", str(PG16 / "stale.json"), "--html", str(page), "--markdown", str(ticket)])
+    assert code == 1  # the plan has an origin at or above the default --fail-at
+    plan = planview.load(PG16 / "stale.json")
+    assert page.read_text() == plan.to_html()
+    assert ticket.read_text() == plan.to_markdown()
+    assert compact_report(plan.report())["findings"] == plan.report()["findings"]

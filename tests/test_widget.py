@@ -1,0 +1,153 @@
+"""The widget's Python side, the review entry points and the IPython magic, on captured plans."""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+
+import pytest
+import traitlets
+
+import planview
+from planview.export.html import compact_report
+from planview.widget import PlanTree, PlanWidget, ReviewError, review
+
+REPO = Path(__file__).resolve().parent.parent
+PG16 = REPO / "plans" / "postgresql" / "pg16"
+
+
+@pytest.fixture
+def multi():
+    return planview.load(PG16 / "multi.json")
+
+
+def test_widget_syncs_the_report_and_the_selection(multi):
+    w = PlanWidget(multi)
+    assert isinstance(w.tree, PlanTree)
+    assert w.tree.report == json.loads(json.dumps(compact_report(multi.report())))
+    assert w.report is multi.report()
+    assert w.tree.trait_metadata("report", "sync") and w.tree.trait_metadata("selected", "sync")
+    assert w.selected is None
+    origin = multi.report()["findings"][0]["node"]
+    w.selected = origin
+    assert w.tree.selected == origin
+    w.tree.selected = 0  # what a click in the front end does
+    assert w.selected == 0 and w.selected_node["id"] == 0
+    with pytest.raises(traitlets.TraitError):
+        w.selected = len(multi.report()["nodes"])
+    assert w.selected == 0
+
+
+def test_next_origin_walks_in_rank_order_and_wraps(multi):
+    w = PlanWidget(multi)
+    ranked = [f["node"] for f in sorted(multi.report()["findings"], key=lambda f: f["rank"])]
+    seen = [w.next_origin() for _ in range(len(ranked) + 1)]
+    assert seen == ranked + ranked[:1]
+    assert w.next_origin(-1) == ranked[-1]
+
+
+def test_mime_bundle_carries_widget_view_and_static_fallback(multi):
+    bundle = PlanWidget(multi)._repr_mimebundle_()
+    assert "application/vnd.jupyter.widget-view+json" in bundle
+    assert bundle["text/html"] == multi._repr_html_()
+    assert bundle["text/plain"] == repr(multi)
+    plan_bundle = multi._repr_mimebundle_()
+    assert "application/vnd.jupyter.widget-view+json" in plan_bundle and "text/html" in plan_bundle
+
+
+def test_charts_come_once_the_tree_is_drawn_and_clicks_select(multi):
+    w = PlanWidget(multi)
+    assert w.charts is None and w.children == (w.tree,)
+    w._on_front_message(w.tree, {"kind": "drawn"}, [])
+    assert w.charts is not None and w.children == (w.tree, w.charts.figure)
+    w._on_front_message(w.tree, {"kind": "drawn"}, [])  # a second view of the same widget
+    assert len(w.children) == 2
+    scatter = w.charts.figure.data[3]
+    ids = [int(c[0]) for c in scatter.customdata]
+    report = multi.report()
+    assert ids == [n["id"] for n in report["nodes"] if n["judged"] and n["est_total"] is not None
+                   and n["actual_total"] is not None]
+
+    class Points:
+        point_inds = [ids.index(report["findings"][0]["node"])]
+
+    w.charts._clicked(scatter, Points(), None)
+    assert w.selected == report["findings"][0]["node"]
+    ring = w.charts.figure.data[5]
+    node = report["nodes"][w.selected]
+    assert list(ring.x) == [max(node["est_total"], 1.0)] and list(ring.y) == [max(node["actual_total"], 1.0)]
+    w.selected = None
+    assert list(w.charts.figure.data[5].x) == []
+
+
+def test_save_writes_page_and_ticket_and_answers_the_front_end(multi, tmp_path):
+    w = PlanWidget(multi, save_dir=tmp_path)
+    sent = []
+    w.tree.send = sent.append
+    w._on_front_message(w.tree, {"kind": "save"}, [])
+    assert sent and sent[0]["kind"] == "saved"
+    html_name, md_name = sent[0]["paths"]
+    assert (tmp_path / html_name).read_text() == multi.to_html()
+    assert (tmp_path / md_name).read_text() == multi.to_markdown()
+    w._on_front_message(w.tree, {"kind": "save"}, [])
+    assert len(sorted(tmp_path.glob("*.html"))) == 2  # a second save never overwrites the first
+    blocked = tmp_path / "file"
+    blocked.write_text("")
+    w.save_dir = blocked / "sub"
+    w._on_front_message(w.tree, {"kind": "save"}, [])
+    assert sent[-1]["kind"] == "save-failed" and sent[-1]["message"]
+
+
+def test_review_takes_text_path_or_plan(multi):
+    text = (PG16 / "stale.text.txt").read_text()
+    assert isinstance(review(text), PlanWidget)
+    assert isinstance(review(PG16 / "stale.json"), PlanWidget)
+    assert review(multi).plan is multi
+    assert planview.review is not None and planview.review(multi).plan is multi
+    assert review(text, threshold=1e9).report["findings"] == []
+
+
+def test_review_of_bad_input_shows_one_line_not_a_traceback():
+    result = review("SELECT 1; -- not a plan")
+    assert isinstance(result, ReviewError) and not result
+    assert "\n" not in repr(result) and repr(result).startswith("planview: ")
+    assert "&lt;" in ReviewError(planview.PlanParseError("<b>x</b>"))._repr_html_()
+    with pytest.raises(planview.PlanParseError):
+        review("SELECT 1; -- not a plan", errors="raise")
+
+
+@pytest.fixture
+def shell():
+    from IPython.testing.globalipapp import get_ipython, start_ipython
+
+    ip = start_ipython() or get_ipython()  # one shell per process; later calls get it back
+    ip.run_line_magic("load_ext", "planview")
+    yield ip
+    ip.user_ns.pop("w", None)
+
+
+def test_cell_magic_reviews_a_pasted_plan_with_options(shell):
+    text = (PG16 / "join_correlated.text.txt").read_text()
+    result = shell.run_cell_magic("planview", "--threshold 10 --name w", text)
+    assert isinstance(result, PlanWidget) and shell.user_ns["w"] is result
+    assert result.report == planview.load(text).report()
+    strict = shell.run_cell_magic("planview", "-t 1e9", text)
+    assert strict.report["findings"] == []
+    forced = shell.run_cell_magic("planview", "--engine postgresql --format text", text)
+    assert forced.plan.format == "text"
+
+
+def test_line_magic_reviews_a_file(shell):
+    result = shell.run_line_magic("planview", str(PG16 / "skewed.json"))
+    assert isinstance(result, PlanWidget)
+    assert result.report == planview.load(PG16 / "skewed.json").report()
+
+
+def test_magic_prints_one_line_for_bad_input(shell, capsys):
+    assert shell.run_cell_magic("planview", "", "this is not a plan") is None
+    out = capsys.readouterr().out
+    assert out.startswith("planview: ") and out.count("\n") == 1
+    assert shell.run_cell_magic("planview", "--format xml", (PG16 / "stale.json").read_text()) is None
+    assert capsys.readouterr().out.startswith("planview: ")
+    assert shell.run_cell_magic("planview", "--name 1x", "x") is None
+    assert "not a Python name" in capsys.readouterr().out
