@@ -161,6 +161,8 @@ def _judge(nodes: list[PlanNode], roles: list[Role]) -> None:
             node.not_judged_reason = reason
         else:
             node.judged = True
+        if not node.children:
+            continue
         inputs = [nodes[c] for c in node.children if nodes[c].is_input_edge]
         if role.limit and node.executed and node.est_total is not None \
                 and node.actual_total is not None and node.actual_total >= node.est_total:
@@ -203,20 +205,26 @@ def _judged_lr(node: PlanNode) -> float:
     return node.log10_ratio if node.judged and node.log10_ratio is not None else 0.0
 
 
+_NO_CUT: dict[int, str] = {}
+
+
 def _own_errors(nodes: list[PlanNode], roles: list[Role]) -> None:
     for node, role in zip(nodes, roles):
         if not node.judged or node.log10_ratio is None:
             continue
         lr = node.log10_ratio
-        inputs = [nodes[c] for c in node.children if nodes[c].is_input_edge]
         rule = node.own_rule
-        cut = role.cut_inputs or {}
+        if rule == "source":
+            node.own_log10_ratio = lr
+            continue
+        inputs = [nodes[c] for c in node.children if nodes[c].is_input_edge]
+        cut = role.cut_inputs or _NO_CUT
 
         def _input_lr(child: PlanNode, cut=cut) -> float:
             if child.id in cut and child.log10_ratio is not None:
                 return child.log10_ratio
             return _judged_lr(child)
-        if rule == "source" or not inputs and rule != "cte":
+        if not inputs and rule != "cte":
             own = lr
         elif rule == "pass":
             own = lr - _input_lr(inputs[0])
