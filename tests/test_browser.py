@@ -264,8 +264,11 @@ def test_review_in_jupyterlab(lab, browser):
             assert detail.locator(".pv-fix").inner_text().strip() == top["fix"].strip()
             assert detail.locator(".pv-caution").is_visible()
         SHOTS.mkdir(parents=True, exist_ok=True)
-        page.wait_for_timeout(300)
+        output = first.locator("xpath=ancestor::div[contains(@class, 'jp-OutputArea-output')]").first
+        output.locator(".js-plotly-plot").wait_for(timeout=60_000)  # the charts follow the tree
+        page.wait_for_timeout(500)
         first.screenshot(path=str(SHOTS / "jupyterlab-review.png"))
+        output.locator(".js-plotly-plot").first.screenshot(path=str(SHOTS / "jupyterlab-charts.png"))
         # the kernel sees the selection: run the last cell again, it prints w.selected
         last = page.locator(".jp-Notebook .jp-Cell").last
         last.locator(".jp-InputArea-editor").click()

@@ -317,8 +317,16 @@ class Review {
 
   buildHeader() {
     const r = this.plan.report;
-    const statement = (r.statements || [])[0] || {};
+    const statements = r.statements || [];
+    const statement = statements.length === 1 ? statements[0] : {
+      execution_ms: statements.some((s) => s.execution_ms !== null && s.execution_ms !== undefined)
+        ? statements.reduce((sum, s) => sum + (s.execution_ms || 0), 0) : null,
+      planning_ms: statements.some((s) => s.planning_ms !== null && s.planning_ms !== undefined)
+        ? statements.reduce((sum, s) => sum + (s.planning_ms || 0), 0) : null,
+      query_text: statements.map((s) => s.query_text).filter(Boolean).join("\n\n") || null,
+    };
     const facts = [
+      [statements.length > 1, `${statements.length} statements`],
       [r.engine, r.engine_version ? `${r.engine} ${r.engine_version}` : r.engine],
       [r.format, `${r.format} format`],
       [true, `${this.plan.nodes.length.toLocaleString("en-US")} operators`],
