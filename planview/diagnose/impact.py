@@ -40,13 +40,19 @@ def impact_of(plan, origin) -> dict:
     text = ""
     if decision is not None:
         inner = [nodes[c] for c in decision.children if nodes[c].parent_relationship == "Inner"]
+        outer = [nodes[c] for c in decision.children if nodes[c].parent_relationship == "Outer"]
         side = inner[0] if inner else None
-        if side is not None and origin.id in _subtree_ids(nodes, side) and side.starts and side.starts > 1:
+        in_inner = side is not None and origin.id in _subtree_ids(nodes, side)
+        if side is not None and not in_inner and side.starts and side.starts > 1 and outer:
             text = (f"{decision.label} (#{decision.id}) ran its inner side {side.starts:,.0f} times "
-                    f"where {fmt_rows(_expected_starts(nodes, decision))} were expected")
-        elif side is not None and origin.id in _subtree_ids(nodes, side):
-            text = (f"{decision.label} (#{decision.id}) built for {fmt_rows(side.est_total)} rows of "
-                    f"its inner input and got {fmt_rows(side.actual_total)}")
+                    f"where {fmt_rows(outer[0].est_total)} were expected")
+        elif in_inner and side.starts and side.starts > 1:
+            text = (f"{decision.label} (#{decision.id}) got {fmt_rows(side.actual_rows)} rows per "
+                    f"start of its inner side where {fmt_rows(side.est_rows)} were expected, "
+                    f"over {side.starts:,.0f} starts")
+        elif in_inner:
+            text = (f"{decision.label} (#{decision.id}) was built for {fmt_rows(side.est_total)} rows "
+                    f"of its inner input and got {fmt_rows(side.actual_total)}")
         else:
             text = (f"{decision.label} (#{decision.id}) was chosen for {fmt_rows(walker.est_total)} "
                     f"input rows and got {fmt_rows(walker.actual_total)}")
@@ -69,8 +75,3 @@ def _subtree_ids(nodes, top) -> set[int]:
         out.add(current)
         todo.extend(nodes[current].children)
     return out
-
-
-def _expected_starts(nodes, join) -> float:
-    outer = [nodes[c] for c in join.children if nodes[c].parent_relationship == "Outer"]
-    return outer[0].est_total if outer and outer[0].est_total is not None else 0.0
