@@ -129,9 +129,10 @@ def _strip_parens(text: str) -> str:
     return text
 
 
-def _balanced(text: str) -> bool:
+def _outside_quotes(text: str):
+    """(position, character, depth) of every character outside single quotes."""
     depth, quote = 0, False
-    for ch in text:
+    for i, ch in enumerate(text):
         if ch == "'":
             quote = not quote
         elif not quote:
@@ -139,29 +140,26 @@ def _balanced(text: str) -> bool:
                 depth += 1
             elif ch == ")":
                 depth -= 1
-                if depth < 0:
-                    return False
-    return depth == 0 and not quote
+            yield i, ch, depth
+
+
+def _balanced(text: str) -> bool:
+    depth = 0
+    for _, _, depth in _outside_quotes(text):
+        if depth < 0:
+            return False
+    return depth == 0 and text.count("'") % 2 == 0
 
 
 def _top_level_split(text: str, separator: str) -> list[str]:
-    out, depth, quote, start, i = [], 0, False, 0, 0
+    out, start = [], 0
     upper = text.upper()
-    while i < len(text):
-        ch = text[i]
-        if ch == "'":
-            quote = not quote
-        elif not quote:
-            if ch == "(":
-                depth += 1
-            elif ch == ")":
-                depth -= 1
-            elif depth == 0 and upper.startswith(separator, i):
-                out.append(text[start:i])
-                i += len(separator)
-                start = i
-                continue
-        i += 1
+    for i, ch, depth in _outside_quotes(text):
+        if i < start or depth != 0 or ch in "()":
+            continue
+        if upper.startswith(separator, i):
+            out.append(text[start:i])
+            start = i + len(separator)
     out.append(text[start:])
     return [x.strip() for x in out]
 

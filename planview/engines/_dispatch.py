@@ -18,3 +18,17 @@ def dispatch(engine: str, label: str, readers: dict[str, Callable[[str], ParsedP
         raise PlanParseError(f"unknown format {fmt!r}; {label} formats: {', '.join(readers)}",
                              engine=engine, fmt=fmt)
     return reader(text)
+
+
+def json_document(body: str, engine: str):
+    """`json.loads` with the errors every engine reports the same way (line and column)."""
+    import json
+
+    try:
+        return json.loads(body)
+    except json.JSONDecodeError as exc:
+        raise PlanParseError(f"invalid JSON: {exc.msg} (column {exc.colno})", line=exc.lineno,
+                             engine=engine, fmt="json") from None
+    except RecursionError:
+        raise PlanParseError("JSON nested too deeply for the JSON reader; refused", engine=engine,
+                             fmt="json") from None

@@ -13,7 +13,6 @@ show actual rows only, so such a plan is accepted and says that its estimates ar
 
 from __future__ import annotations
 
-import json
 import re
 from typing import Any
 
@@ -22,7 +21,7 @@ from ..check import Role
 from ..errors import PlanParseError
 from ..model import Condition, ParsedPlan, PlanNode, Statement
 from ..source import MAX_DEPTH
-from ._dispatch import dispatch
+from ._dispatch import dispatch, json_document
 
 NAME = "duckdb"
 FORMATS = ("json", "text")
@@ -133,14 +132,7 @@ def parse(text: str, fmt: str) -> ParsedPlan:
 
 def _parse_json(text: str) -> ParsedPlan:
     body = text.lstrip("\ufeff")
-    try:
-        doc = json.loads(body)
-    except json.JSONDecodeError as exc:
-        raise PlanParseError(f"invalid JSON: {exc.msg} (column {exc.colno})", line=exc.lineno,
-                             engine=NAME, fmt="json") from None
-    except RecursionError:
-        raise PlanParseError(f"JSON nested too deeply (over {MAX_DEPTH} levels); refused",
-                             engine=NAME, fmt="json") from None
+    doc = json_document(body, NAME)
     statement = Statement(root=0)
     version = None
     if isinstance(doc, dict) and isinstance(doc.get("operator"), list):

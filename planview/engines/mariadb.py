@@ -21,7 +21,7 @@ from typing import Any
 from ..check import Role
 from ..errors import PlanParseError
 from ..model import Condition, ParsedPlan, PlanNode, Statement
-from ._dispatch import dispatch
+from ._dispatch import dispatch, json_document
 
 NAME = "mariadb"
 FORMATS = ("json", "table")
@@ -431,13 +431,7 @@ def _parse_json(text: str) -> ParsedPlan:
     # the client's -B output escapes newlines as \n when --raw is not given
     if body.startswith("{") and "\n" not in body and "\\n" in body:
         body = body.replace("\\n", "\n").replace("\\t", "\t")
-    try:
-        doc = json.loads(body)
-    except json.JSONDecodeError as exc:
-        raise PlanParseError(f"invalid JSON: {exc.msg} (column {exc.colno})", line=exc.lineno,
-                             engine=NAME, fmt="json") from None
-    except RecursionError:
-        raise PlanParseError("JSON nested too deeply; refused", engine=NAME, fmt="json") from None
+    doc = json_document(body, NAME)
     if not isinstance(doc, dict) or not isinstance(doc.get("query_block"), dict):
         raise PlanParseError("expected an object with a \"query_block\"", key="query_block",
                              engine=NAME, fmt="json")

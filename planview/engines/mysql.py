@@ -12,7 +12,6 @@ fact in ``extra`` and, for a subquery, becomes a sub-plan of the node above.
 
 from __future__ import annotations
 
-import json
 import re
 from typing import Any
 
@@ -21,7 +20,7 @@ from ..check import Role
 from ..errors import PlanParseError
 from ..model import Condition, ParsedPlan, PlanNode, Statement
 from ..source import MAX_DEPTH
-from ._dispatch import dispatch
+from ._dispatch import dispatch, json_document
 
 NAME = "mysql"
 FORMATS = ("tree", "json")
@@ -303,13 +302,7 @@ def _relationships(nodes: list[PlanNode]) -> None:
 def _parse_json(text: str) -> ParsedPlan:
     body = re.sub(r"^\s*(EXPLAIN|@\w+):\s*", "", text.lstrip("\ufeff"))
     body = re.sub(r"\n\d+ rows? in set.*$", "", body.strip(), flags=re.S)
-    try:
-        doc = json.loads(body)
-    except json.JSONDecodeError as exc:
-        raise PlanParseError(f"invalid JSON: {exc.msg} (column {exc.colno})", line=exc.lineno,
-                             engine=NAME, fmt="json") from None
-    except RecursionError:
-        raise PlanParseError("JSON nested too deeply; refused", engine=NAME, fmt="json") from None
+    doc = json_document(body, NAME)
     if not isinstance(doc, dict):
         raise PlanParseError("expected a JSON object", key="$", engine=NAME, fmt="json")
     if "query_block" in doc and "query_plan" not in doc and "operation" not in doc:
