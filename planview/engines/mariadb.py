@@ -731,13 +731,22 @@ def suggest_fix(cause: str, table: str | None, columns: list[str] | tuple[str, .
                "and change the plans of every query on the table. optimizer_use_condition_selectivity "
                "must be at least 4 (the default) for histograms to be used. Whether and when to run "
                "it is for your change process and a DBA to decide.")
+    fix = _fix_for(cause, target, listed, analyze)
+    if fix is None:
+        return None
+    note = (f"-- `{target}` is the name in the plan: MariaDB shows a table's alias when the query "
+            "gives one; put the table's own name there.\n")
+    return note + fix, caution
+
+
+def _fix_for(cause: str, target: str, listed: str, analyze: str) -> str | None:
     if cause in ("skew", "range_gap", "stale_statistics"):
         size = 255 if cause != "stale_statistics" else None
         lines = ["SET SESSION histogram_type = JSON_HB;  -- 10.8 and later; DOUBLE_PREC_HB before"]
         if size:
             lines.append(f"SET SESSION histogram_size = {size};  -- buckets (the most there can be)")
         lines.append(analyze)
-        return "\n".join(lines), caution
+        return "\n".join(lines)
     if cause == "correlation":
         sql = ("SET SESSION histogram_type = JSON_HB;\n"
                "SET SESSION histogram_size = 255;\n"
@@ -745,12 +754,12 @@ def suggest_fix(cause: str, table: str | None, columns: list[str] | tuple[str, .
                "-- MariaDB has no multi-column statistics: histograms sharpen each column, but "
                "the optimizer still multiplies their selectivities. An index on "
                f"({listed}) lets it count the combination from the index instead.")
-        return sql, caution
+        return sql
     if cause == "default_selectivity":
         sql = (f"{analyze}\n"
                "-- Without statistics on a column MariaDB guesses its selectivity; a column wrapped "
                "in a function gets no statistics at all: compare the bare column instead.")
-        return sql, caution
+        return sql
     return None
 
 
