@@ -47,7 +47,7 @@ def log_ratio(est_total: float, actual_total: float) -> float:
     return math.log10(max(actual_total, 1.0) / max(est_total, 1.0))
 
 
-@dataclass
+@dataclass(slots=True)
 class Role:
     """What an engine module says about one node, so the check needs no operator names.
 

@@ -152,42 +152,47 @@ def parallel_divisor(workers: int, leader_participates: bool = True) -> float:
     return divisor or 1.0
 
 
+_LOOP_JOINS = ("Nested Loop", "Merge Join")
+_COMPLETE_INNER = ("Nested Loop", "Hash Join")
+
+
 def role(node: PlanNode, nodes: list[PlanNode], parsed: ParsedPlan) -> Role:
-    """What the check needs to know about a node (see planview.check.Role)."""
-    if not node.children and node.operator != "CTE Scan":
-        return Role(rule=INPUT_RULES.get(node.operator, "source"),
-                    partial=_partial_divisor(node, nodes, parsed))
-    inputs = [nodes[c] for c in node.children if nodes[c].is_input_edge]
-    by_rel = {c.parent_relationship: c.id for c in inputs}
-    inner = by_rel.get("Inner")
-    result = Role(rule=input_rule(node, nodes))
-    result.blocking = node.operator in BLOCKING or (
-        node.operator == "Aggregate" and node.strategy in ("Plain", "Hashed", "Mixed"))
-    result.limit = node.operator == "Limit"
-    if node.operator in ("Nested Loop", "Hash Join") and inner is not None:
-        result.complete_inputs = (inner,)
-    if node.operator in ("Nested Loop", "Merge Join") and node.join_type in ("Semi", "Anti") \
-            and inner is not None:
-        result.stops_inputs = {inner: f"stopped early: a {node.join_type.lower()} join reads its "
-                                      "inner input only up to the first match"}
-    if node.operator == "Merge Join":
-        result.overestimate_unjudged = tuple(c.id for c in inputs)
-    result.preserved = PRESERVED.get(node.join_type or "")
+    """What the check needs to know about a node (see planview.check.Role).
+
+    Asked once a node, in pre-order; the common cases take the shortest path.
+    """
+    op = node.operator
+    partial = _partial_divisor(node, nodes, parsed)
+    if not node.children and op != "CTE Scan":
+        return Role(rule=INPUT_RULES.get(op, "source"), partial=partial)
+    result = Role(rule=input_rule(node, nodes), partial=partial)
+    result.blocking = op in BLOCKING or (op == "Aggregate" and node.strategy in ("Plain", "Hashed", "Mixed"))
+    result.limit = op == "Limit"
+    join_type = node.join_type
+    if join_type is not None:
+        inner = next((c for c in node.children if nodes[c].parent_relationship == "Inner"), None)
+        if op in _COMPLETE_INNER and inner is not None:
+            result.complete_inputs = (inner,)
+        if op in _LOOP_JOINS and join_type in ("Semi", "Anti") and inner is not None:
+            result.stops_inputs = {inner: f"stopped early: a {join_type.lower()} join reads its "
+                                          "inner input only up to the first match"}
+        if op == "Merge Join":
+            result.overestimate_unjudged = tuple(c for c in node.children if nodes[c].is_input_edge)
+        result.preserved = PRESERVED.get(join_type)
     subplans = [nodes[c] for c in node.children if nodes[c].parent_relationship == "SubPlan"]
-    texts = " ".join(c.text for c in node.conditions) if subplans else ""
-    for child in subplans:
-        if child.subplan_name:
+    if subplans:
+        texts = " ".join(c.text for c in node.conditions)
+        for child in subplans:
             name = child.subplan_name
-            if re.search(rf"(EXISTS\s*\(|ANY \(|alternatives: ){re.escape(name)}\b", texts):
+            if name and re.search(rf"(EXISTS\s*\(|ANY \(|alternatives: ){re.escape(name)}\b", texts):
                 result.stops_inputs = dict(result.stops_inputs or {})
                 result.stops_inputs[child.id] = f"stopped early: {name} stops at its first match"
-    if node.operator == "CTE Scan" and node.cte_name:
+    if op == "CTE Scan" and node.cte_name:
         wanted = f"CTE {node.cte_name}"
         for other in nodes:
             if other.statement == node.statement and other.subplan_name == wanted:
                 result.reads = other.id
                 break
-    result.partial = _partial_divisor(node, nodes, parsed)
     return result
 
 
