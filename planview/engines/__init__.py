@@ -66,6 +66,8 @@ def get(name: str) -> ModuleType:
 
 def detect(text: str, engine: str | None = None, fmt: str | None = None) -> tuple[ModuleType, str]:
     """The engine module and format a text is written in, by the best score any module gives."""
+    if not text.strip():
+        raise PlanParseError("the input is empty", line=1)
     candidates = [get(engine)] if engine else list(engines().values())
     best: tuple[float, ModuleType, str] | None = None
     for module in candidates:
@@ -83,6 +85,10 @@ def detect(text: str, engine: str | None = None, fmt: str | None = None) -> tupl
         if engine and fmt:
             return get(engine), fmt
         first = next((i for i, line in enumerate(text.splitlines(), 1) if line.strip()), 1)
+        if engine:
+            formats = ", ".join(get(engine).FORMATS)
+            raise PlanParseError(f"this does not look like a {engine} plan ({formats})"
+                                 + (f" in {fmt} format" if fmt else ""), line=first)
         raise PlanParseError(
             "this does not look like a query plan of any known engine "
             f"({', '.join(sorted(engines()))}); pass engine= and fmt= to force one",
