@@ -1,9 +1,9 @@
-"""A real browser and a real JupyterLab for the review's tests and its benchmark.
+"""A real browser and a real JupyterLab (or Notebook 7) for the review's tests and its benchmark.
 
 Chromium is Debian's (``/usr/bin/chromium``), driven by Playwright's Python package; its own
-browser download cannot work on these machines. JupyterLab runs on 127.0.0.1 with a token and
-throw-away settings, runtime, config, data and workspace folders, the news pop-up turned off
-through the settings folder. Every wait has a deadline and every process started here is
+browser download cannot work on these machines. JupyterLab and Notebook 7 run on 127.0.0.1
+with a token and throw-away settings, runtime, config, data and workspace folders, the news
+pop-up turned off through the settings folder (Notebook 7 reads JupyterLab's). Every wait has a deadline and every process started here is
 stopped in a ``finally``.
 """
 
@@ -140,7 +140,23 @@ def _write_lab_settings(settings: Path) -> None:
 @contextlib.contextmanager
 def jupyter_lab(root: Path, timeout: float = LAB_START_TIMEOUT) -> Iterator[LabServer]:
     """JupyterLab serving `root`, stopped (and its folders removed) when the block ends."""
-    state = Path(tempfile.mkdtemp(prefix="planview-lab-"))
+    with _jupyter_server("jupyterlab", root, timeout) as server:
+        yield server
+
+
+@contextlib.contextmanager
+def jupyter_notebook(root: Path, timeout: float = LAB_START_TIMEOUT) -> Iterator[LabServer]:
+    """Jupyter Notebook 7 serving `root` (notebooks open at ``/notebooks/<path>``), with the
+    same throw-away folders and news pop-up off as `jupyter_lab`; stopped when the block ends."""
+    with _jupyter_server("notebook", root, timeout) as server:
+        yield server
+
+
+@contextlib.contextmanager
+def _jupyter_server(module: str, root: Path, timeout: float) -> Iterator[LabServer]:
+    """`python -m <module>` (jupyterlab or notebook: both are Jupyter Server applications that
+    read JupyterLab's settings folder) on 127.0.0.1, a free port and a fresh token."""
+    state = Path(tempfile.mkdtemp(prefix=f"planview-{module}-"))
     env = dict(os.environ)
     folders = {
         "JUPYTERLAB_SETTINGS_DIR": state / "settings",
@@ -157,9 +173,9 @@ def jupyter_lab(root: Path, timeout: float = LAB_START_TIMEOUT) -> Iterator[LabS
     _write_lab_settings(folders["JUPYTERLAB_SETTINGS_DIR"])
     port = free_port()
     token = secrets.token_hex(16)
-    log = state / "lab.log"
+    log = state / f"{module}.log"
     command = [
-        sys.executable, "-m", "jupyterlab", "--no-browser", "--ServerApp.ip=127.0.0.1",
+        sys.executable, "-m", module, "--no-browser", "--ServerApp.ip=127.0.0.1",
         f"--ServerApp.port={port}", "--ServerApp.port_retries=0", f"--IdentityProvider.token={token}",
         f"--ServerApp.root_dir={root}", "--ServerApp.open_browser=False",
         "--LabApp.check_for_updates_class=jupyterlab.NeverCheckForUpdate",
@@ -182,7 +198,7 @@ def _wait_until_up(server: LabServer, timeout: float) -> None:
     last = ""
     while time.monotonic() < deadline:
         if server.process.poll() is not None:
-            raise RuntimeError(f"JupyterLab exited with {server.process.returncode}:\n{server.log_tail()}")
+            raise RuntimeError(f"{server.process.args[2]} exited with {server.process.returncode}:\n{server.log_tail()}")
         try:
             with urllib.request.urlopen(server.url("api/status"), timeout=5) as response:
                 if response.status == 200:
@@ -190,7 +206,7 @@ def _wait_until_up(server: LabServer, timeout: float) -> None:
         except OSError as exc:
             last = str(exc)
         time.sleep(0.3)
-    raise TimeoutError(f"JupyterLab did not answer within {timeout:.0f} s ({last}):\n{server.log_tail()}")
+    raise TimeoutError(f"{server.process.args[2]} did not answer within {timeout:.0f} s ({last}):\n{server.log_tail()}")
 
 
 def _stop(process: subprocess.Popen) -> None:
@@ -209,7 +225,8 @@ def _stop(process: subprocess.Popen) -> None:
 
 
 def run_all_cells(page, timeout_ms: int = 90_000) -> None:
-    """Run every cell of the open notebook through JupyterLab's own menu, once its kernel is idle."""
+    """Run every cell of the open notebook through the menu bar, once its kernel is idle. JupyterLab
+    and Notebook 7 share it (Lumino's, Run → Run All Cells) and the toolbar's execution indicator."""
     page.locator(".jp-Notebook").first.wait_for(timeout=timeout_ms)
     wait_kernel_idle(page, timeout_ms)
     page.locator(".lm-MenuBar-item", has_text="Run").first.click()

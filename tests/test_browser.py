@@ -1,4 +1,5 @@
-"""The review in a real browser: inside JupyterLab, and as the exported page opened offline.
+"""The review in a real browser: inside JupyterLab, inside Notebook 7, and as the exported page
+opened offline.
 
 Chromium is Debian's, driven by Playwright (see tests/browser_harness.py). Locally a missing
 browser skips these tests; in CI (CI=true) it fails them. Screenshots go to
@@ -22,6 +23,7 @@ sys.path.insert(0, os.path.dirname(os.path.abspath(__file__)))
 from browser_harness import (  # noqa: E402
     browser_context,
     jupyter_lab,
+    jupyter_notebook,
     offline,
     require_chromium,
     run_all_cells,
@@ -229,18 +231,30 @@ def test_large_export_opens_with_only_the_paths_to_origins(browser, tmp_path):
 
 # -- inside JupyterLab -------------------------------------------------------------------------
 
-@pytest.fixture(scope="module")
-def lab():
-    require_chromium()
+def _served_copy(start):
+    """The walkthrough (and the plans it reads) in a fresh folder, served by `start`; the
+    server is stopped and the folder removed however the tests end."""
     root = Path(tempfile.mkdtemp(prefix="planview-lab-root-"))
     try:
         (root / "example_notebooks").mkdir()
         shutil.copy(NOTEBOOK, root / "example_notebooks" / NOTEBOOK.name)
         (root / "plans").symlink_to(REPO / "plans")
-        with jupyter_lab(root) as server:
+        with start(root) as server:
             yield server
     finally:
         shutil.rmtree(root, ignore_errors=True)
+
+
+@pytest.fixture(scope="module")
+def lab():
+    require_chromium()
+    yield from _served_copy(jupyter_lab)
+
+
+@pytest.fixture(scope="module")
+def notebook7():
+    require_chromium()
+    yield from _served_copy(jupyter_notebook)
 
 
 def test_review_in_jupyterlab(lab, browser):
@@ -311,6 +325,72 @@ def test_review_in_jupyterlab(lab, browser):
         page_text = (folder / next(n for n in saved if n.endswith(".html"))).read_text()
         assert 'id="planview-data"' in page_text
         assert blocked == [], f"the review asked the network for {blocked[:3]}"
+    finally:
+        browser.unroute("**/*")
+        page.close()
+
+
+# -- inside Notebook 7 -------------------------------------------------------------------------
+
+def _last_outputs_contain(page, text, timeout_ms=30_000):
+    page.wait_for_function(
+        "text => [...document.querySelectorAll('.jp-Notebook .jp-Cell')].slice(-2)"
+        ".some(c => (c.querySelector('.jp-OutputArea') || {}).textContent?.includes(text))",
+        arg=text, timeout=timeout_ms)
+
+
+def test_review_in_notebook7(notebook7, browser):
+    report = planview.load(FIRST_PLAN).report()
+    top = report["findings"][0]
+    page = browser.new_page()
+    blocked = offline(browser, allowed_prefixes=(notebook7.base,))
+    errors = []
+    page.on("pageerror", lambda e: errors.append(e))
+    try:
+        page.goto(notebook7.url(f"notebooks/example_notebooks/{NOTEBOOK.name}"))
+        page.locator("#main-panel .jp-NotebookPanel").first.wait_for(timeout=60_000)  # Notebook 7's shell
+        assert page.locator(".jp-LabShell").count() == 0, "this is JupyterLab, not Notebook 7"
+        run_all_cells(page)  # Notebook 7's menu bar is Lumino's, as in JupyterLab: Run → Run All Cells
+        reviews = page.locator(".pv-review")
+        reviews.nth(2).wait_for(timeout=60_000)
+        wait_kernel_idle(page)
+        # nothing is selected yet, and the last cell printed so
+        _last_outputs_contain(page, "selected: None None")
+        first = reviews.first
+        row = first.locator(f'.pv-row[data-id="{top["node"]}"]')
+        assert row.get_attribute("aria-selected") != "true"
+        first.scroll_into_view_if_needed()
+        # click the top-ranked origin; the detail shows its cause and fix
+        row.click()
+        assert row.get_attribute("aria-selected") == "true"
+        detail = first.locator(".pv-detail")
+        assert detail.locator(".pv-cause").get_attribute("data-cause") == (top["cause"] or "")
+        if top["fix"]:
+            assert detail.locator(".pv-fix").inner_text().strip() == top["fix"].strip()
+            assert detail.locator(".pv-caution").is_visible()
+        first.locator("xpath=ancestor::div[contains(@class, 'jp-OutputArea-output')]").first \
+            .locator(".js-plotly-plot").wait_for(timeout=30_000)
+        page.wait_for_timeout(500)
+        SHOTS.mkdir(parents=True, exist_ok=True)
+        first.evaluate("el => el.scrollIntoView({block: 'start'})")
+        page.screenshot(path=str(SHOTS / "notebook7-review.png"))
+        # the kernel sees the selection: run the last cell again, it prints w.selected
+        last = page.locator(".jp-Notebook .jp-Cell").last
+        last.locator(".jp-InputArea-editor").click()
+        page.keyboard.press("Shift+Enter")
+        _last_outputs_contain(page, f"selected: {top['node']} {report['nodes'][top['node']]['label']}")
+        # and Python moves the selection: type into the new cell at the end
+        other = next(f["node"] for f in report["findings"] if f["node"] != top["node"])
+        wait_kernel_idle(page)
+        page.keyboard.type(f"w.selected = {other}")
+        page.keyboard.press("Shift+Enter")
+        page.wait_for_function(
+            "id => document.querySelector('.pv-review .pv-row.pv-selected')?.getAttribute('data-id') === id",
+            arg=str(other), timeout=30_000)
+        assert blocked == [], f"the review asked the network for {blocked[:3]}"
+        # Notebook 7 itself throws one error while it loads its settings; none may come from the review
+        ours = [str(e) for e in errors if "/static/notebook/" not in (e.stack or "")]
+        assert ours == []
     finally:
         browser.unroute("**/*")
         page.close()
