@@ -28,6 +28,8 @@ def _parser() -> argparse.ArgumentParser:
     check.add_argument("--html", metavar="OUT", help="also write the self-contained review page")
     check.add_argument("--markdown", metavar="OUT", help="also write the ticket body")
     check.add_argument("--width", type=int, help="terminal width for the table")
+    check.add_argument("--probe", metavar="DSN",
+                       help="test each cause on a live PostgreSQL, read-only (a connection string)")
     demo = sub.add_parser("demo", help="review every bundled plan (no server needed)")
     demo.add_argument("--out", default="planview-demo", help="folder for the HTML and Markdown")
     demo.add_argument("--plans", help="folder of plans (default: the bundled plans/)")
@@ -57,6 +59,13 @@ def _check(args) -> int:
         sys.stdout.write(plan.to_json() + "\n")
     else:
         sys.stdout.write(plan.to_text(width=args.width, color=sys.stdout.isatty()))
+    if args.probe:
+        from .probe import probe
+
+        for result in probe(plan, args.probe):
+            sys.stdout.write(f"probe #{result.node} {result.cause}: {result.verdict}: {result.summary}\n")
+            for item in result.checks:
+                sys.stdout.write(f"   {item.says}\n")
     if args.html:
         plan.to_html(args.html)
     if args.markdown:

@@ -82,6 +82,9 @@ def _fill(plan, finding, node, ctx: Context, candidates: list[Candidate], checke
         evidence["lines"] += best.lines
         evidence.update({k: v for k, v in best.fields.items() if k not in evidence or evidence[k] is None})
         evidence["also_fits"] = {c.cause: c.reason for c in candidates[1:]}
+        evidence["table"] = best.table
+        evidence["columns"] = evidence.get("columns") or list(best.columns)
+        evidence["expressions"] = list(best.expressions)
         fix = _suggest(plan, best)
         finding.fix, finding.caution = fix if fix else (None, None)
         finding.summary = f"{best.cause.replace('_', ' ')}: {best.reason}."
