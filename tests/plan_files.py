@@ -22,3 +22,17 @@ def path(version: str, case: str, fmt: str) -> Path:
 
 def all_case_ids() -> list[tuple[str, str]]:
     return [(v, c) for v in VERSIONS for c in cases(v)]
+
+
+def with_payloads(plan_path: Path, payloads: dict[str, str]) -> list:
+    """A captured JSON plan with the named keys (names, conditions) replaced on every node:
+    real structure and numbers, hostile strings where a plan carries text."""
+    data = json.loads(plan_path.read_text())
+    todo = [statement["Plan"] for statement in data]
+    while todo:
+        node = todo.pop()
+        for key, value in payloads.items():
+            if key in node:
+                node[key] = value
+        todo.extend(node.get("Plans", []))
+    return data

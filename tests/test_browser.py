@@ -29,6 +29,7 @@ from browser_harness import (  # noqa: E402
     run_all_cells,
     wait_kernel_idle,
 )
+from plan_files import with_payloads  # noqa: E402
 
 import planview  # noqa: E402
 
@@ -63,16 +64,8 @@ def _origin_finding(report, node_id):
 
 def _hostile_plan(tmp_path: Path) -> Path:
     """A captured PG 16 plan with its names and filters replaced by the payloads."""
-    data = json.loads((PLANS / "nested_loop_inherited.json").read_text())
-    todo = [statement["Plan"] for statement in data]
-    while todo:
-        node = todo.pop()
-        for key, value in PAYLOADS.items():
-            if key in node:
-                node[key] = value
-        todo.extend(node.get("Plans", []))
     path = tmp_path / "hostile.json"
-    path.write_text(json.dumps(data))
+    path.write_text(json.dumps(with_payloads(PLANS / "nested_loop_inherited.json", PAYLOADS)))
     return path
 
 

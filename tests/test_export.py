@@ -15,6 +15,7 @@ import re
 from pathlib import Path
 
 import pytest
+from plan_files import with_payloads
 
 import planview
 from planview.cli import main as cli_main
@@ -34,15 +35,7 @@ PAYLOADS = {
 
 
 def hostile(path: Path = PG16 / "nested_loop_inherited.json"):
-    data = json.loads(path.read_text())
-    todo = [statement["Plan"] for statement in data]
-    while todo:
-        node = todo.pop()
-        for key, value in PAYLOADS.items():
-            if key in node:
-                node[key] = value
-        todo.extend(node.get("Plans", []))
-    return planview.load(json.dumps(data))
+    return planview.load(json.dumps(with_payloads(path, PAYLOADS)))
 
 
 class Elements(html.parser.HTMLParser):
