@@ -36,6 +36,7 @@ RULES = {
     "uncounted": "not judged: the engine does not count this node's rows (BitmapAnd, BitmapOr)",
 }
 
+
 @dataclass
 class CheckOptions:
     threshold: float = 10.0
