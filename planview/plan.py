@@ -12,6 +12,8 @@ from .errors import PlanParseError
 from .model import Finding, ParsedPlan, PlanNode, Statement
 from .source import read_text
 
+READER_ERROR = "could not read this plan: the reader failed on it"
+
 
 class Plan:
     """A plan with every node checked and every origin diagnosed.
@@ -137,6 +139,11 @@ def load(source: str | bytes | os.PathLike, *, engine: str | None = None, fmt: s
         raise
     except RecursionError:
         raise PlanParseError("plan nested too deeply to read; refused", engine=module.NAME,
+                             fmt=found_fmt) from None
+    except (ValueError, TypeError, KeyError, IndexError, AttributeError) as exc:
+        # A reader's own bug must still reach the user as one clear line, never a traceback;
+        # the fuzz tests fail on this message, so such bugs are found and fixed, not hidden.
+        raise PlanParseError(f"{READER_ERROR} ({type(exc).__name__}: {exc})", engine=module.NAME,
                              fmt=found_fmt) from None
     if not parsed.nodes:
         raise PlanParseError("no operator found", engine=module.NAME, fmt=found_fmt)

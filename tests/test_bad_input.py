@@ -62,6 +62,16 @@ def test_negative_count_in_text_names_the_line():
     assert err.value.line == 1
 
 
+def test_number_with_two_decimal_points_names_the_line():
+    """Found by review: '1.2.3' matched a loose number pattern and float() raised ValueError."""
+    bad = REAL_TEXT.replace("rows=", "rows=1.2.", 1)
+    with pytest.raises(PlanParseError) as err:
+        planview.load(bad, engine="postgresql", fmt="text")
+    assert err.value.line == 1 and "figures" in err.value.message
+    worker = "Seq Scan on t  (cost=0.00..1.00 rows=1 width=4)\n  Worker 0:  actual time=0.1..0.2 rows=1.2.3 loops=1"
+    planview.load(worker)  # the worker line is kept as text, not misread
+
+
 def test_garbage_text():
     with pytest.raises(PlanParseError) as err:
         planview.load("hello\nthis is not a plan\n")

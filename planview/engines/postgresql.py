@@ -554,9 +554,10 @@ def _xml_to_dict(top, numbers: list[int]) -> Any:
 # The text format into the same dicts
 # ---------------------------------------------------------------------------------------
 
+_NUM = r"\d+(?:\.\d+)?"
 _FIGURES = re.compile(
-    r"(?:  \(cost=(?P<sc>[\d.]+)\.\.(?P<tc>[\d.]+) rows=(?P<rows>\d+) width=(?P<width>\d+)\))?"
-    r"(?: ?\((?:actual (?:time=(?P<ast>[\d.]+)\.\.(?P<att>[\d.]+) )?rows=(?P<ar>[\d.]+) loops=(?P<loops>\d+)"
+    rf"(?:  \(cost=(?P<sc>{_NUM})\.\.(?P<tc>{_NUM}) rows=(?P<rows>\d+) width=(?P<width>\d+)\))?"
+    rf"(?: ?\((?:actual (?:time=(?P<ast>{_NUM})\.\.(?P<att>{_NUM}) )?rows=(?P<ar>{_NUM}) loops=(?P<loops>\d+)"
     r"|(?P<never>never executed))\))?\s*$"
 )
 
@@ -598,7 +599,7 @@ _NODE_LINE = _NodeLine
 _HEADER_LINE = re.compile(r"^(?:(?P<init>InitPlan \d+)(?: \(returns .*\))?|(?P<sub>SubPlan \d+)|CTE (?P<cte>.+))$")
 _WORKER_LINE = re.compile(r"^Worker (?P<n>\d+):\s+(?P<rest>.*)$")
 _ACTUAL_PART = re.compile(
-    r"actual (?:time=(?P<ast>[\d.]+)\.\.(?P<att>[\d.]+) )?rows=(?P<ar>[\d.]+) loops=(?P<loops>\d+)")
+    rf"actual (?:time=(?P<ast>{_NUM})\.\.(?P<att>{_NUM}) )?rows=(?P<ar>{_NUM}) loops=(?P<loops>\d+)")
 _IDENT = r'(?:"(?:[^"]|"")+"|[^\s".]+)'
 _TARGET = re.compile(rf"^(?P<name>{_IDENT}(?:\.{_IDENT})*)(?: (?P<alias>{_IDENT}))?$")
 
