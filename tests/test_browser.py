@@ -14,6 +14,7 @@ import re
 import shutil
 import sys
 import tempfile
+from contextlib import contextmanager
 from pathlib import Path
 
 import pytest
@@ -69,22 +70,48 @@ def _hostile_plan(tmp_path: Path) -> Path:
     return path
 
 
-# -- the exported page, offline ------------------------------------------------------------------
-
-def test_export_page_offline_renders_selects_and_keeps_markup_as_text(browser, tmp_path):
-    plan = planview.load(_hostile_plan(tmp_path))
-    report = plan.report()
-    assert report["findings"], "the captured plan should still have its origin"
-    page_path = tmp_path / "review.html"
-    plan.to_html(page_path)
+@contextmanager
+def exported_page(browser, plan, path: Path):
+    """The plan's exported review opened from file:// with the network blocked, drawn; yields
+    the page and what it tried: (page, blocked requests, dialogs, page errors)."""
+    plan.to_html(path)
     page = browser.new_page()
     blocked = offline(browser)
     dialogs, errors = [], []
     page.on("dialog", lambda d: (dialogs.append(d.message), d.dismiss()))
     page.on("pageerror", lambda e: errors.append(str(e)))
     try:
-        page.goto(page_path.as_uri())
+        page.goto(path.as_uri())
         page.wait_for_selector(".pv-review[data-drawn]", timeout=10_000)
+        yield page, blocked, dialogs, errors
+    finally:
+        browser.unroute("**/*")
+        page.close()
+
+
+def _shown_rows(page) -> set[int]:
+    return {int(x) for x in page.locator(".pv-tree .pv-row[data-id]").evaluate_all(
+        "rows => rows.map(r => r.getAttribute('data-id'))")}
+
+
+def _ancestors(by_id: dict, node_ids) -> set[int]:
+    """Every ancestor of the given nodes (the path down to each)."""
+    out = set()
+    for node_id in node_ids:
+        node = by_id[node_id]
+        while node["parent"] is not None:
+            out.add(node["parent"])
+            node = by_id[node["parent"]]
+    return out
+
+
+# -- the exported page, offline ------------------------------------------------------------------
+
+def test_export_page_offline_renders_selects_and_keeps_markup_as_text(browser, tmp_path):
+    plan = planview.load(_hostile_plan(tmp_path))
+    report = plan.report()
+    assert report["findings"], "the captured plan should still have its origin"
+    with exported_page(browser, plan, tmp_path / "review.html") as (page, blocked, dialogs, errors):
         rows = page.locator(".pv-tree .pv-row[data-id]")
         assert rows.count() == len(report["nodes"])
         # selecting an origin shows its cause and its fix with the caution beside it
@@ -126,22 +153,13 @@ def test_export_page_offline_renders_selects_and_keeps_markup_as_text(browser, t
         assert blocked == []
         SHOTS.mkdir(parents=True, exist_ok=True)
         page.screenshot(path=str(SHOTS / "export-offline.png"), full_page=True)
-    finally:
-        browser.unroute("**/*")
-        page.close()
 
 
 def test_export_page_walks_origins_by_rank_with_buttons_and_keys(browser, tmp_path):
     plan = planview.load(PLANS / "multi.json")
     ranked = [f["node"] for f in sorted(plan.report()["findings"], key=lambda f: f["rank"])]
     assert len(ranked) >= 2
-    page_path = tmp_path / "multi.html"
-    plan.to_html(page_path)
-    page = browser.new_page()
-    offline(browser)
-    try:
-        page.goto(page_path.as_uri())
-        page.wait_for_selector(".pv-review[data-drawn]", timeout=10_000)
+    with exported_page(browser, plan, tmp_path / "multi.html") as (page, _, _, _):
         selected = lambda: page.locator(".pv-row.pv-selected").get_attribute("data-id")  # noqa: E731
         page.locator(".pv-next").click()
         assert selected() == str(ranked[0])
@@ -157,17 +175,8 @@ def test_export_page_walks_origins_by_rank_with_buttons_and_keys(browser, tmp_pa
         assert "origin 1 of" in page.locator(".pv-position").inner_text()
         # only the origins and the path down to them
         page.locator(".pv-only").check()
-        shown = {int(x) for x in page.locator(".pv-tree .pv-row[data-id]").evaluate_all(
-            "rows => rows.map(r => r.getAttribute('data-id'))")}
         by_id = {n["id"]: n for n in plan.report()["nodes"]}
-        expected = set()
-        for origin in ranked:
-            node = by_id[origin]
-            expected.add(origin)
-            while node["parent"] is not None:
-                expected.add(node["parent"])
-                node = by_id[node["parent"]]
-        assert shown == expected
+        assert _shown_rows(page) == set(ranked) | _ancestors(by_id, ranked)
         # a folded subtree hides its rows, unfolding brings them back
         page.locator(".pv-only").uncheck()
         before = page.locator(".pv-tree .pv-row[data-id]").count()
@@ -175,9 +184,6 @@ def test_export_page_walks_origins_by_rank_with_buttons_and_keys(browser, tmp_pa
         assert page.locator(".pv-tree .pv-row[data-id]").count() < before
         page.locator(".pv-open-all").click()
         assert page.locator(".pv-tree .pv-row[data-id]").count() == len(by_id)
-    finally:
-        browser.unroute("**/*")
-        page.close()
 
 
 def test_large_export_opens_with_only_the_paths_to_origins(browser, tmp_path):
@@ -193,33 +199,18 @@ def test_large_export_opens_with_only_the_paths_to_origins(browser, tmp_path):
     plan = planview.load(json.dumps(statements))
     report = plan.report()
     assert len(report["nodes"]) > 80 and report["findings"]
-    page_path = tmp_path / "all.html"
-    plan.to_html(page_path)
-    page = browser.new_page()
-    offline(browser)
-    try:
-        page.goto(page_path.as_uri())
-        page.wait_for_selector(".pv-review[data-drawn]", timeout=10_000)
-        shown = {int(x) for x in page.locator(".pv-tree .pv-row[data-id]").evaluate_all(
-            "rows => rows.map(r => r.getAttribute('data-id'))")}
+    with exported_page(browser, plan, tmp_path / "all.html") as (page, _, _, _):
+        shown = _shown_rows(page)
         origins = {f["node"] for f in report["findings"]}
         roots = {n["id"] for n in report["nodes"] if n["parent"] is None}
         assert origins <= shown and roots <= shown
         assert len(shown) < len(report["nodes"])
         # every row shown is a root, an origin, or a child of an open node on a path to one
         by_id = {n["id"]: n for n in report["nodes"]}
-        on_path = set()
-        for origin in origins:
-            node = by_id[origin]
-            while node["parent"] is not None:
-                on_path.add(node["parent"])
-                node = by_id[node["parent"]]
+        on_path = _ancestors(by_id, origins)
         for node_id in shown - roots:
             assert by_id[node_id]["parent"] in on_path
         assert page.locator(".pv-folded").count() > 0
-    finally:
-        browser.unroute("**/*")
-        page.close()
 
 
 # -- inside JupyterLab -------------------------------------------------------------------------
