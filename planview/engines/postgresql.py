@@ -486,7 +486,7 @@ def _read_xml(text: str, numbers: list[int]) -> list[dict]:
             if etree.QName(query).localname != "Query":
                 raise PlanParseError(f"expected <Query>, found <{etree.QName(query).localname}>",
                                      line=_src_line(query, numbers), engine=NAME, fmt="xml")
-            item = _xml_to_dict(query, numbers)
+            item = _xml_to_dict(query)
             if not isinstance(item, dict) or "Plan" not in item:
                 raise PlanParseError("<Query> without <Plan>", line=_src_line(query, numbers),
                                      engine=NAME, fmt="xml")
@@ -509,7 +509,7 @@ def _src_line(element, numbers: list[int]) -> int | None:
     return line
 
 
-def _xml_to_dict(top, numbers: list[int]) -> Any:
+def _xml_to_dict(top) -> Any:
     """Element to dict/list/str without recursion (an explicit stack)."""
     from lxml import etree
 
@@ -545,8 +545,7 @@ def _xml_to_dict(top, numbers: list[int]) -> Any:
                 value = convert_leaf(child)
             if isinstance(target, dict):
                 target[key] = value
-    # sort out ordering: the stack reversed child order of Plans lists? No: lists are filled
-    # in document order above; only nested dicts are filled later, in place.
+    # lists are filled in document order; nested dicts are filled later, in place
     return result
 
 
@@ -1306,7 +1305,6 @@ DEFAULT_SELECTIVITIES = {
     "DEFAULT_MATCHING_SEL": 0.010,
     "DEFAULT_NOT_UNK_SEL": 0.995,
 }
-DEFAULT_SELECTIVITIES_ONLY = dict(DEFAULT_SELECTIVITIES)
 DEFAULT_SELECTIVITIES["DEFAULT_NUM_DISTINCT"] = 200.0  # groups, not a selectivity
 
 _CHANGE_PROCESS = ("Run it first on a copy or a test system; your change process and a DBA decide "
