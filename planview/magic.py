@@ -68,5 +68,24 @@ def _magics_class():
     return PlanviewMagics
 
 
+def plan_mimebundle(plan) -> dict:
+    """A `Plan` shown as a cell's value: the interactive review, with the static tree for
+    front ends without widgets (and as the whole answer where the widget libraries fail)."""
+    data = {"text/plain": repr(plan), "text/html": plan._repr_html_()}
+    try:
+        from .widget import PlanWidget
+    except ImportError:
+        return data
+    bundle = PlanWidget(plan)._repr_mimebundle_()
+    data.update(bundle[0] if isinstance(bundle, tuple) else bundle)
+    return data
+
+
 def load_ipython_extension(ipython) -> None:
+    """``%load_ext planview``: the magics, and a `Plan` as a cell's value becomes its review.
+
+    The display hook lives here, not on `Plan`, so the core never imports the notebook layer."""
+    from .plan import Plan
+
     ipython.register_magics(_magics_class())
+    ipython.display_formatter.mimebundle_formatter.for_type(Plan, plan_mimebundle)

@@ -107,21 +107,6 @@ class Plan:
 
         return render_static_tree(self)
 
-    def _repr_mimebundle_(self, include=None, exclude=None):
-        try:
-            from .widget import PlanWidget
-
-            widget = PlanWidget(self)
-            bundle = widget._repr_mimebundle_(include=include, exclude=exclude)
-        except Exception:  # no widget front end or widget libs: fall back to static HTML
-            bundle = None
-        data = {"text/plain": repr(self), "text/html": self._repr_html_()}
-        if isinstance(bundle, tuple):
-            bundle = bundle[0]
-        if isinstance(bundle, dict):
-            data.update(bundle)
-        return data
-
 
 def load(source: str | bytes | os.PathLike, *, engine: str | None = None, fmt: str | None = None,
          threshold: float = 10.0) -> Plan:

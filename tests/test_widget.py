@@ -51,8 +51,7 @@ def test_mime_bundle_carries_widget_view_and_static_fallback(multi):
     assert "application/vnd.jupyter.widget-view+json" in bundle
     assert bundle["text/html"] == multi._repr_html_()
     assert bundle["text/plain"] == repr(multi)
-    plan_bundle = multi._repr_mimebundle_()
-    assert "application/vnd.jupyter.widget-view+json" in plan_bundle and "text/html" in plan_bundle
+    assert not hasattr(multi, "_repr_mimebundle_")  # the core carries no notebook hook
 
 
 def test_charts_come_once_the_tree_is_drawn_and_clicks_select(multi):
@@ -151,3 +150,9 @@ def test_magic_prints_one_line_for_bad_input(shell, capsys):
     assert capsys.readouterr().out.startswith("planview: ")
     assert shell.run_cell_magic("planview", "--name 1x", "x") is None
     assert "not a Python name" in capsys.readouterr().out
+
+
+def test_load_ext_registers_the_review_as_a_plans_display(multi, shell):
+    """After ``%load_ext planview`` a Plan as a cell's value is the widget review."""
+    data, _ = shell.display_formatter.format(multi)
+    assert "application/vnd.jupyter.widget-view+json" in data and data["text/html"] == multi._repr_html_()
