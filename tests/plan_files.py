@@ -12,6 +12,11 @@ FORMAT_FILES = {"text": "text.txt", "json": "json", "xml": "xml", "yaml": "yaml"
                 "psql_text": "psql.txt", "psql_json": "psql.json.txt"}
 
 
+def is_capture(plan_path: Path) -> bool:
+    """False for the files beside the captures that are not plans (plans/FIXTURES.md)."""
+    return not plan_path.name.endswith(".expected.json") and plan_path.name != "manifest.json"
+
+
 def cases(version: str) -> dict:
     return MANIFEST["servers"][version]["cases"]
 

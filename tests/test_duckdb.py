@@ -13,6 +13,7 @@ from pathlib import Path
 import duckdb
 import duckdb_scenario as scenario
 import pytest
+from plan_files import is_capture
 
 import planview
 from planview.engines import duckdb as engine
@@ -45,11 +46,12 @@ def test_installed_version_writes_intermediate_rows(con):
     raw = json.loads(scenario.analyze_json(con, query("skewed_bike")))
     assert "operator" in raw
     text = json.dumps(raw)
-    if duckdb.__version__.startswith("2."):
-        assert '"intermediate_rows"' in text and '"operator_cardinality"' not in text
     plan = planview.load(scenario.analyze_json(con, query("skewed_bike")))
     assert plan.engine == "duckdb" and plan.format == "json"
     assert plan.engine_version == ("2.x" if '"intermediate_rows"' in text else "1.x")
+    if not duckdb.__version__.startswith("2."):
+        pytest.skip(f"DuckDB {duckdb.__version__}: the intermediate_rows key is 2.x's")
+    assert '"intermediate_rows"' in text and '"operator_cardinality"' not in text
 
 
 def test_wrappers_are_not_operators(con):
@@ -129,14 +131,15 @@ def test_dynamic_filter_does_not_blame_the_join(con):
     scan = scan_of(plan, "trips")
     join = next(n for n in plan.nodes if n.operator == "HASH_JOIN")
     static = true_count(con, "FROM trips WHERE bike_id = 7")
-    if scan.extra.get("dynamic_filters"):
-        # source: the real run; the scan's count is below its static filter's count because
-        # the join pushed a filter on end_station into it while running
-        assert scan.actual_total < static
-        assert not join.origin and scan.id in join.inherits_from
-        assert any("dynamic filter" in d for d in join.derived)
     assert scan.origin and plan.findings[0].node == scan.id
     assert plan.findings[0].cause == "skew"  # the run-time filter is not taken for a clause
+    if not scan.extra.get("dynamic_filters"):
+        pytest.skip(f"DuckDB {duckdb.__version__} pushed no run-time filter into the probe side")
+    # source: the real run; the scan's count is below its static filter's count because
+    # the join pushed a filter on end_station into it while running
+    assert scan.actual_total < static
+    assert not join.origin and scan.id in join.inherits_from
+    assert any("dynamic filter" in d for d in join.derived)
 
 
 def test_dynamic_filter_overestimate_is_not_judged():
@@ -171,11 +174,12 @@ def test_text_rendering_has_the_same_tree_and_actuals(con):
 
 def test_text_rendering_without_estimates_says_so(con):
     plan = planview.load(scenario.analyze_text(con, query("skewed_bike")))
-    if duckdb.__version__ >= "1.1":
-        assert all(n.est_rows is None for n in plan.nodes)
-        assert any("estimates are missing" in note and "FORMAT json" in note for note in plan.notes)
-        assert plan.findings == []
-        assert {n.not_judged_reason for n in plan.nodes} == {"no estimate"}
+    if duckdb.__version__ < "1.1":
+        pytest.skip(f"DuckDB {duckdb.__version__} prints estimates in its EXPLAIN ANALYZE text")
+    assert all(n.est_rows is None for n in plan.nodes)
+    assert any("estimates are missing" in note and "FORMAT json" in note for note in plan.notes)
+    assert plan.findings == []
+    assert {n.not_judged_reason for n in plan.nodes} == {"no estimate"}
 
 
 def test_explain_without_analyze(con):
@@ -204,12 +208,13 @@ def test_materialized_cte_is_read_by_its_scans(con):
     plan = planview.load(scenario.analyze_json(con, sql))
     cte = [n for n in plan.nodes if n.operator == "CTE"]
     scans = [n for n in plan.nodes if n.operator == "CTE_SCAN"]
-    if cte:
-        assert not cte[0].judged  # DuckDB prints 0 rows for the CTE node itself (real run)
-        assert scans and all(s.own_rule == "cte" for s in scans)
     # source: real count
     assert next(n for n in plan.nodes if n.relation == "trips").actual_total == \
         true_count(con, "FROM trips WHERE bike_id = 7")
+    if not cte:
+        pytest.skip(f"DuckDB {duckdb.__version__} inlined the materialized CTE: no CTE node")
+    assert not cte[0].judged  # DuckDB prints 0 rows for the CTE node itself (real run)
+    assert scans and all(s.own_rule == "cte" for s in scans)
 
 
 @pytest.mark.parametrize("cause", ["stale_statistics", "correlation", "skew", "range_gap",
@@ -232,8 +237,9 @@ def test_limit_cuts_its_input(con):
     scan = scan_of(plan, "trips")
     assert limit.actual_total == 5
     # source: real run; the scan stopped once the limit had its rows, so it is not judged
-    if scan.actual_total < true_count(con, "FROM trips WHERE bike_id = 7"):
-        assert not scan.judged and "stopped early" in scan.not_judged_reason
+    if scan.actual_total >= true_count(con, "FROM trips WHERE bike_id = 7"):
+        pytest.skip("the scan read all of bike 7's trips before the limit stopped it")
+    assert not scan.judged and "stopped early" in scan.not_judged_reason
 
 
 def test_top_n_reached_is_not_an_origin(con):
@@ -248,7 +254,7 @@ def test_top_n_reached_is_not_an_origin(con):
     assert [f.node for f in plan.findings] == [under_top[0].id]
 
 
-@pytest.mark.parametrize("path", sorted(PLANS.rglob("*.json")) + sorted(PLANS.rglob("*.txt")),
+@pytest.mark.parametrize("path", sorted(filter(is_capture, [*PLANS.rglob("*.json"), *PLANS.rglob("*.txt")])),
                          ids=lambda p: str(p.relative_to(PLANS)))
 def test_bundled_captures_read(path):
     # source: real outputs captured by plans/capture_engines.py (versions in plans/ENGINES.md)
@@ -256,7 +262,7 @@ def test_bundled_captures_read(path):
     assert plan.engine == "duckdb" and plan.nodes
 
 
-@pytest.mark.parametrize("path", sorted((PLANS / "v0.10.3").glob("*.json")) if (PLANS / "v0.10.3").is_dir() else [],
+@pytest.mark.parametrize("path", sorted(filter(is_capture, (PLANS / "v0.10.3").glob("*.json"))) if (PLANS / "v0.10.3").is_dir() else [],
                          ids=lambda p: p.name)
 def test_legacy_profile_has_estimates_and_actuals(path):
     # source: real 0.10.3 profile (captured); EC: N in the extra_info string, "cardinality"

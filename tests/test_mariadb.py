@@ -13,6 +13,7 @@ from pathlib import Path
 import mariadb_harness as h
 import pytest
 from mariadb_harness import mariadb_server  # noqa: F401
+from plan_files import is_capture
 
 import planview
 from planview.engines import mariadb as engine
@@ -135,9 +136,10 @@ def test_never_scanned_table(mariadb_server):  # noqa: F811
     raws = raw_tables(json.loads(text))
     plan = planview.load(text)
     inner = tables(plan, "r")
-    if inner and any(t["table_name"] == "r" and t.get("r_rows") is None for t in raws):
-        # source: the real JSON's r_rows is null for the table no row reached
-        assert inner[0].executed is False and inner[0].not_judged_reason == "never executed"
+    if not (inner and any(t["table_name"] == "r" and t.get("r_rows") is None for t in raws)):
+        pytest.skip("this MariaDB printed r_rows for the inner table, so no table is shown as never reached")
+    # source: the real JSON's r_rows is null for the table no row reached
+    assert inner[0].executed is False and inner[0].not_judged_reason == "never executed"
 
 
 def test_subqueries_derived_and_union(mariadb_server):  # noqa: F811
@@ -174,8 +176,8 @@ def test_tabular_output_reads_like_the_json(mariadb_server, name):  # noqa: F811
     assert [(n.relation, n.operator) for n in shown] == [(n.relation, n.operator) for n in judged]
     for a, b in zip(shown, judged):
         assert a.est_total == pytest.approx(b.est_total, rel=0.02, abs=1)
-        if b.actual_total is not None:
-            assert a.actual_total == pytest.approx(b.actual_total, rel=0.02, abs=1)
+        assert (a.actual_total == pytest.approx(b.actual_total, rel=0.02, abs=1)
+                if b.actual_total is not None else a.actual_total is None)
     assert [as_table.nodes[f.node].relation for f in as_table.findings] == \
         [as_json.nodes[f.node].relation for f in as_json.findings]
 
@@ -201,7 +203,7 @@ def test_evidence_q_error_of_the_filter(mariadb_server):  # noqa: F811
     assert math.isclose(scan.q_error, sel["q_error"], rel_tol=0.01)
 
 
-@pytest.mark.parametrize("path", sorted(PLANS.glob("*.json")) + sorted(PLANS.glob("*.txt")),
+@pytest.mark.parametrize("path", sorted(filter(is_capture, [*PLANS.glob("*.json"), *PLANS.glob("*.txt")])),
                          ids=lambda p: p.name)
 def test_bundled_captures_read(path):
     # source: real outputs captured by plans/capture_engines.py from MariaDB 10.11
