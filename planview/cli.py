@@ -82,6 +82,11 @@ def bundled_plans_dir() -> Path:
     raise PlanviewError("the bundled plans/ folder was not found; pass --plans")
 
 
+def _beside_the_plans(path: Path) -> bool:
+    """Files kept beside the bundled plans that are not plans: expected results, the capture manifest."""
+    return path.name.endswith(".expected.json") or path.name == "manifest.json"
+
+
 def _demo(args) -> int:
     from .errors import PlanParseError
     from .plan import load
@@ -90,7 +95,7 @@ def _demo(args) -> int:
     out = Path(args.out)
     out.mkdir(parents=True, exist_ok=True)
     files = sorted(p for p in root.rglob("*") if p.is_file() and p.suffix in (".txt", ".json", ".xml", ".yaml")
-                   and not p.name.startswith("README"))
+                   and not p.name.startswith("README") and not _beside_the_plans(p))
     total_findings = 0
     for path in files:
         rel = path.relative_to(root)

@@ -15,7 +15,7 @@ import re
 from pathlib import Path
 
 import pytest
-from plan_files import with_payloads
+from plan_files import is_capture, with_payloads
 
 import planview
 from planview.cli import main as cli_main
@@ -24,7 +24,7 @@ from planview.export.html import compact_report, render_static_tree
 
 REPO = Path(__file__).resolve().parent.parent
 PG16 = REPO / "plans" / "postgresql" / "pg16"
-CAPTURED = sorted(p for p in PG16.glob("*") if p.suffix in (".json", ".txt", ".xml", ".yaml"))
+CAPTURED = sorted(p for p in PG16.glob("*") if p.suffix in (".json", ".txt", ".xml", ".yaml") and is_capture(p))
 
 PAYLOADS = {
     "Relation Name": '<script>window.__pvHit = "script"</script>owners',
@@ -148,7 +148,7 @@ def test_static_tree_lists_every_operator_and_keeps_markup_as_text():
 def test_static_tree_of_a_large_plan_shows_the_paths_to_origins():
     statements = []
     decoder = json.JSONDecoder()
-    for path in sorted(PG16.glob("*.json")):
+    for path in sorted(p for p in PG16.glob("*.json") if is_capture(p)):
         text, at = path.read_text(), 0
         while text[at:].strip():
             value, at = decoder.raw_decode(text, len(text) - len(text[at:].lstrip()))
