@@ -1,8 +1,14 @@
-"""The terminal table: the tree with its numbers, origins marked, and the findings below."""
+"""The terminal table: the tree with its numbers, origins marked, and the findings below.
+
+Every line passes through `visible`: a plan name holding an ESC sequence or a direction
+override reaches the terminal as its escape (``\\x1b[2J``), never raw.
+"""
 
 from __future__ import annotations
 
 import shutil
+
+from .inert import visible
 
 
 def _num(value) -> str:
@@ -41,11 +47,11 @@ def render(plan, width: int | None = None, color: bool = False) -> str:
     by_id = {n["id"]: n for n in nodes}
     label_width = max(24, min(60, width - 68))
     lines = [
-        f"planview: {report['engine']} ({report['format']}"
+        visible(f"planview: {report['engine']} ({report['format']}"
         + (f", version {report['engine_version']}" if report["engine_version"] else "")
-        + f"), {len(nodes)} operators, {len(report['findings'])} origin(s) at q >= {report['threshold']:g}",
+        + f"), {len(nodes)} operators, {len(report['findings'])} origin(s) at q >= {report['threshold']:g}"),
     ]
-    lines += [f"note: {note}" for note in report["notes"]]
+    lines += [visible(f"note: {note}") for note in report["notes"]]
     header = f"{'#':>4}  {'operator':<{label_width}} {'est total':>11} {'actual':>11} {'starts':>8} {'q-error':>9} {'dir':<5}  mark"
     lines += [header, "-" * min(width, len(header) + 20)]
     for node in nodes:
@@ -53,35 +59,37 @@ def render(plan, width: int | None = None, color: bool = False) -> str:
         rel = node["parent_relationship"]
         if rel in ("InitPlan", "SubPlan") and node["subplan_name"]:
             prefix += f"[{node['subplan_name']}] "
-        label = (prefix + node["label"])
+        label = visible(prefix + node["label"])
         if len(label) > label_width:
             label = label[: label_width - 1] + "~"
         q = node["q_error"]
         q_text = "-" if q is None else (f"{q:,.1f}" if q < 1000 else f"{q:.2e}")
-        row = (f"{node['id']:>4}  {label:<{label_width}} {_num(node['est_total']):>11} "
-               f"{_num(node['actual_total']):>11} {_num(node['starts']):>8} {q_text:>9} "
-               f"{_direction(node):<5}  {_mark(node, by_id)}")
+        row = visible(f"{node['id']:>4}  {label:<{label_width}} {_num(node['est_total']):>11} "
+                      f"{_num(node['actual_total']):>11} {_num(node['starts']):>8} {q_text:>9} "
+                      f"{_direction(node):<5}  {_mark(node, by_id)}").rstrip()
         if color and node["origin"]:
             row = f"\x1b[1m{row}\x1b[0m"
-        lines.append(row.rstrip())
+        lines.append(row)
+    below: list[str] = []
     if report["findings"]:
-        lines += ["", "Origins (where an error was introduced), most impact first:"]
+        below += ["", "Origins (where an error was introduced), most impact first:"]
     for finding in report["findings"]:
         node = by_id[finding["node"]]
-        lines.append(
+        below.append(
             f"{finding['rank']}. #{node['id']} {node['label']}: {finding['direction']}estimated "
             f"x{finding['own_q_error']:,.1f} here (x{finding['q_error']:,.1f} in all)"
         )
         if finding["cause"]:
             confidence = finding["confidence"]
-            lines.append(f"   cause: {finding['cause']}"
+            below.append(f"   cause: {finding['cause']}"
                          + (f" (confidence {confidence:.2f})" if confidence is not None else "")
                          + (f"; also: {', '.join(finding['also'])}" if finding["also"] else ""))
         if finding["summary"]:
-            lines.append(f"   {finding['summary']}")
+            below.append(f"   {finding['summary']}")
         if finding["fix"]:
-            lines.append("   fix:")
-            lines += [f"     {line}" for line in finding["fix"].splitlines()]
+            below.append("   fix:")
+            below += [f"     {line}" for line in finding["fix"].splitlines()]
         if finding["caution"]:
-            lines.append(f"   caution: {finding['caution']}")
+            below.append(f"   caution: {finding['caution']}")
+    lines += [visible(line) for line in below]
     return "\n".join(lines) + "\n"

@@ -115,8 +115,9 @@ def test_subquery_heading_becomes_a_sub_plan():
                                    "default_selectivity"])
 def test_fixes_are_histogram_statements(cause):
     sql, caution = engine.suggest_fix(cause, "shop.orders", ["status"])
-    # statement form from the MySQL manual, ANALYZE TABLE Statement (histogram statistics)
-    assert "ANALYZE TABLE orders UPDATE HISTOGRAM ON status WITH" in sql and "BUCKETS;" in sql
+    # statement form from the MySQL manual, ANALYZE TABLE Statement (histogram statistics), with
+    # the names in backticks (manual, "Schema Object Names")
+    assert "ANALYZE TABLE `orders` UPDATE HISTOGRAM ON `status` WITH" in sql and "BUCKETS;" in sql
     assert "change process" in caution and "DBA" in caution and "lock" in caution
 
 

@@ -9,6 +9,7 @@ The fix SQL comes from the engine module (`suggest_fix`), so it speaks the engin
 
 from __future__ import annotations
 
+from ..inert import UnquotableName, refused_fix
 from . import correlation, default_selectivity, range_gap, skew, stale_statistics
 from .context import Candidate, Context, build_context, fmt_rows
 from .impact import impact_of
@@ -27,6 +28,7 @@ __all__ = ["CAUSES", "RULES", "Candidate", "Context", "diagnose"]
 
 def diagnose(plan, rules=RULES) -> None:
     """Fill cause, evidence, fix, caution and impact of every finding, then rank them."""
+    names = table_parts(plan)
     for finding in plan.findings:
         node = plan.nodes[finding.node]
         ctx = build_context(plan, node)
@@ -43,7 +45,7 @@ def diagnose(plan, rules=RULES) -> None:
             else:
                 candidates.append(candidate)
         candidates.sort(key=lambda c: -c.score)
-        _fill(plan, finding, node, ctx, candidates, checked)
+        _fill(plan, finding, node, ctx, candidates, checked, names)
         finding.impact = impact_of(plan, node)
     plan.findings.sort(key=lambda f: (-(f.impact.get("ms") or 0.0), -(f.impact.get("rows") or 0.0),
                                       -f.own_q_error))
@@ -51,7 +53,8 @@ def diagnose(plan, rules=RULES) -> None:
         finding.rank = rank
 
 
-def _fill(plan, finding, node, ctx: Context, candidates: list[Candidate], checked: list[str]) -> None:
+def _fill(plan, finding, node, ctx: Context, candidates: list[Candidate], checked: list[str],
+          names: dict[str, tuple[str | None, str]]) -> None:
     direction = "underestimated" if finding.direction == "under" else "overestimated"
     head = (f"Estimated {fmt_rows(node.est_total)} rows, found {fmt_rows(node.actual_total)} "
             f"({direction} x{finding.own_q_error:,.1f} here"
@@ -85,7 +88,7 @@ def _fill(plan, finding, node, ctx: Context, candidates: list[Candidate], checke
         evidence["table"] = best.table
         evidence["columns"] = evidence.get("columns") or list(best.columns)
         evidence["expressions"] = list(best.expressions)
-        fix = _suggest(plan, best)
+        fix = _suggest(plan, best, names)
         finding.fix, finding.caution = fix if fix else (None, None)
         finding.summary = f"{best.cause.replace('_', ' ')}: {best.reason}."
     else:
@@ -99,14 +102,35 @@ def _fill(plan, finding, node, ctx: Context, candidates: list[Candidate], checke
     finding.evidence = evidence
 
 
-def _suggest(plan, candidate: Candidate):
+def table_parts(plan) -> dict[str, tuple[str | None, str]]:
+    """Each table name a rule may hand on (``schema.table`` or ``table``) to the schema and
+    name the plan gave apart, so that a fix quotes each and never splits a name at a dot."""
+    parts: dict[str, tuple[str | None, str]] = {}
+    clashes: set[str] = set()
+    for node in plan.nodes:
+        if node.relation:
+            joined = f"{node.schema}.{node.relation}" if node.schema else node.relation
+            if parts.setdefault(joined, (node.schema, node.relation)) != (node.schema, node.relation):
+                clashes.add(joined)
+    for joined in clashes:  # two different splits print alike: quote the whole as one name
+        parts[joined] = (None, joined)
+    return parts
+
+
+def _suggest(plan, candidate: Candidate, names: dict[str, tuple[str | None, str]]):
     module = plan._engine_module
     suggest = getattr(module, "suggest_fix", None)
     if suggest is None:
         return None
+    details = dict(candidate.details)
+    details["table_parts"] = names.get(candidate.table or "")
+    if details.get("other_table"):
+        details["other_table_parts"] = names.get(details["other_table"])
     try:
         return suggest(candidate.cause, candidate.table, candidate.columns,
-                       expressions=candidate.expressions, **candidate.details)
+                       expressions=candidate.expressions, **details)
+    except UnquotableName as exc:
+        return refused_fix(exc), _generic_caution(plan)
     except Exception:
         return None
 

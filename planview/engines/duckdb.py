@@ -19,6 +19,7 @@ from typing import Any
 from ..check import RULES as CHECK_RULES
 from ..check import Role
 from ..errors import PlanParseError
+from ..inert import check_name
 from ..model import Condition, ParsedPlan, PlanNode, Statement
 from ..source import MAX_DEPTH
 from ._dispatch import dispatch, json_document
@@ -756,6 +757,18 @@ _CAUTION = (
 )
 
 
+IDENT_MAX_BYTES = 1024
+"""planview's cap: DuckDB's manual names no length limit (from memory), so a longer name is
+refused as not a real one."""
+
+
+def quote_ident(name: str) -> str:
+    """A name in double quotes, any double quote doubled (DuckDB's rule, as PostgreSQL's);
+    a name no quoting makes safe is refused."""
+    check_name(name, max_bytes=IDENT_MAX_BYTES, engine="planview's cap on DuckDB")
+    return '"' + name.replace('"', '""') + '"'
+
+
 def suggest_fix(cause: str, table: str | None, columns: list[str] | tuple[str, ...] = (),
                 **details: Any) -> tuple[str, str] | None:
     """A fix in DuckDB's own terms, saying plainly which levers DuckDB has and which it lacks.
@@ -764,8 +777,12 @@ def suggest_fix(cause: str, table: str | None, columns: list[str] | tuple[str, .
     refreshed in full by ``ANALYZE``); it has no histograms, no most-common-value lists, no
     multi-column statistics and no per-column statistics target to raise.
     """
-    target = table or "the_table"
-    cols = ", ".join(columns)
+    parts = details.get("table_parts")
+    if parts:
+        target = ".".join(quote_ident(p) for p in parts if p)
+    else:
+        target = quote_ident(table) if table else "the_table"
+    cols = ", ".join(quote_ident(c) for c in columns if c)
     analyze = f"ANALYZE {target}({cols});" if cols else f"ANALYZE {target};"
     if cause == "stale_statistics":
         return (analyze,

@@ -20,6 +20,7 @@ from typing import Any
 
 from ..check import Role
 from ..errors import PlanParseError
+from ..inert import check_name
 from ..model import Condition, ParsedPlan, PlanNode, Statement
 from ._dispatch import dispatch, json_document
 
@@ -718,11 +719,24 @@ def role(node: PlanNode, nodes: list[PlanNode], parsed: ParsedPlan) -> Role:
     return result
 
 
+IDENT_MAX_CHARS = 64
+"""The longest table or column name MariaDB has ("Identifier Names" in the manual)."""
+
+
+def quote_ident(name: str) -> str:
+    """A name in backticks, any backtick doubled: read back exactly whatever the sql_mode
+    (ANSI_QUOTES changes only double quotes); a name no quoting makes safe is refused."""
+    check_name(name, max_chars=IDENT_MAX_CHARS, engine="MariaDB")
+    return "`" + name.replace("`", "``") + "`"
+
+
 def suggest_fix(cause: str, table: str | None, columns: list[str] | tuple[str, ...] = (),
                 **details: Any) -> tuple[str, str] | None:
-    """Engine-independent statistics (histograms) in MariaDB's own statements."""
-    target = _bare(table) or "the_table"
-    cols = [c for c in columns if c] or ["the_column"]
+    """Engine-independent statistics (histograms) in MariaDB's own statements; every name
+    quoted by `quote_ident`."""
+    parts = details.get("table_parts")
+    target = quote_ident(parts[-1] if parts else _bare(table)) if (parts or table) else "the_table"
+    cols = [quote_ident(c) for c in columns if c] or ["the_column"]
     listed = ", ".join(cols)
     analyze = f"ANALYZE TABLE {target} PERSISTENT FOR COLUMNS ({listed}) INDEXES ();"
     caution = (f"ANALYZE TABLE ... PERSISTENT reads the whole of {target} (a full scan, no "
@@ -734,7 +748,7 @@ def suggest_fix(cause: str, table: str | None, columns: list[str] | tuple[str, .
     fix = _fix_for(cause, target, listed, analyze)
     if fix is None:
         return None
-    note = (f"-- `{target}` is the name in the plan: MariaDB shows a table's alias when the query "
+    note = (f"-- {target} is the name in the plan: MariaDB shows a table's alias when the query "
             "gives one; put the table's own name there.\n")
     return note + fix, caution
 

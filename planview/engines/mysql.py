@@ -18,6 +18,7 @@ from typing import Any
 from ..check import RULES as CHECK_RULES
 from ..check import Role
 from ..errors import PlanParseError
+from ..inert import check_name
 from ..model import Condition, ParsedPlan, PlanNode, Statement
 from ..source import MAX_DEPTH
 from ._dispatch import dispatch, json_document
@@ -444,11 +445,24 @@ def role(node: PlanNode, nodes: list[PlanNode], parsed: ParsedPlan) -> Role:
     return result
 
 
+IDENT_MAX_CHARS = 64
+"""The longest table or column name MySQL has ("Identifier Length Limits" in the manual)."""
+
+
+def quote_ident(name: str) -> str:
+    """A name in backticks, any backtick doubled: read back exactly whatever the sql_mode;
+    a name no quoting makes safe is refused."""
+    check_name(name, max_chars=IDENT_MAX_CHARS, engine="MySQL")
+    return "`" + name.replace("`", "``") + "`"
+
+
 def suggest_fix(cause: str, table: str | None, columns: list[str] | tuple[str, ...] = (),
                 **details: Any) -> tuple[str, str] | None:
-    """Histograms in MySQL's own statements (MySQL 8.0 and later)."""
-    target = table.split(".")[-1] if table else "the_table"
-    cols = [c for c in columns if c] or ["the_column"]
+    """Histograms in MySQL's own statements (MySQL 8.0 and later); every name quoted by
+    `quote_ident`."""
+    parts = details.get("table_parts")
+    target = quote_ident(parts[-1] if parts else table.split(".")[-1]) if (parts or table) else "the_table"
+    cols = [quote_ident(c) for c in columns if c] or ["the_column"]
     listed = ", ".join(cols)
     buckets = 1024 if cause in ("skew", "range_gap") else 100
     caution = (f"ANALYZE TABLE ... UPDATE HISTOGRAM reads {target} (sampled to fit "

@@ -11,8 +11,12 @@ import json
 import re
 from typing import Any
 
+import sqlglot
+from sqlglot import exp as sqlglot_exp
+
 from ..check import Role
 from ..errors import PlanParseError
+from ..inert import check_name, comment_text
 from ..model import Condition, ParsedPlan, PlanNode, Statement
 from ..source import MAX_DEPTH
 
@@ -1315,51 +1319,129 @@ _ANALYZE_CAUTION = ("ANALYZE reads a sample of the table (I/O on a large table) 
                     "plans of other queries too.")
 
 
-def _q(ident: str) -> str:
-    return ident if re.fullmatch(r"[a-z_][a-z0-9_$]*", ident) else '"' + ident.replace('"', '""') + '"'
+IDENT_MAX_BYTES = 63
+"""NAMEDATALEN - 1: a longer name cannot be a real one (the server truncates it)."""
+
+SAFE_FUNCTIONS = frozenset({
+    "abs", "btrim", "cast", "ceil", "ceiling", "char_length", "coalesce", "date_part", "date_trunc",
+    "extract", "floor", "left", "length", "lower", "ltrim", "md5", "mod", "nullif", "right", "round",
+    "rtrim", "sign", "substr", "substring", "to_char", "trunc", "upper",
+})
+"""Built-in functions an expression in a fix may call: pure ones that wrap a column in a
+condition. Anything else goes into a comment for the reader to write out."""
+
+_EXPRESSION_TOKEN = re.compile(r"""
+    (?P<space>\ +)
+  | (?P<ident>[A-Za-z_][A-Za-z0-9_$]*)
+  | "(?P<quoted>(?:[^"]|"")*)"
+  | '(?P<string>(?:[^'\\]|'')*)'
+  | (?P<number>[0-9]+(?:\.[0-9]+)?)
+  | (?P<op>::|\|\||[-+*/%(),])
+""", re.VERBOSE)
+_EXPRESSION_NODES = (sqlglot_exp.Column, sqlglot_exp.Identifier, sqlglot_exp.Literal, sqlglot_exp.Cast,
+                     sqlglot_exp.DataType, sqlglot_exp.DataTypeParam, sqlglot_exp.Paren, sqlglot_exp.Neg,
+                     sqlglot_exp.Add, sqlglot_exp.Sub, sqlglot_exp.Mul, sqlglot_exp.Div, sqlglot_exp.Mod,
+                     sqlglot_exp.DPipe, sqlglot_exp.Var, sqlglot_exp.Func)
+_EXPRESSION_LIMIT = 300
 
 
-def _qtable(table: str) -> str:
-    return ".".join(_q(part) for part in table.split(".", 1)) if table else "the_table"
+def quote_ident(name: str) -> str:
+    """A name from the plan as PostgreSQL reads it back exactly: always double-quoted, any
+    double quote doubled; a name no quoting makes safe is refused (`UnquotableName`)."""
+    check_name(name, max_bytes=IDENT_MAX_BYTES, engine="PostgreSQL")
+    return '"' + name.replace('"', '""') + '"'
 
 
-def _stats_name(table: str, parts: list[str]) -> str:
-    base = "_".join([table.split(".")[-1], *[re.sub(r"\W+", "_", p).strip("_") for p in parts]])
-    return _q((base[:50] + "_stats").lower())
+def _qtable(table: str | None, parts: tuple[str | None, str] | None) -> str:
+    """schema.table split only where the plan gave the schema apart from the name."""
+    if parts:
+        return ".".join(quote_ident(p) for p in parts if p)
+    if not table:
+        return "the_table"
+    return quote_ident(table)
+
+
+def _made_name(parts: list[str], suffix: str) -> str:
+    """A new object's name built from plan names: letters, digits and _ only, cut to fit."""
+    base = "_".join(p for p in (re.sub(r"[^a-z0-9]+", "_", part.lower(), flags=re.ASCII).strip("_")
+                                for part in parts) if p) or "planview"
+    return quote_ident(base[: IDENT_MAX_BYTES - len(suffix)].rstrip("_") + suffix)
+
+
+def safe_expression(text: str) -> str | None:
+    """The plan's expression re-rendered token by token from what was parsed (names quoted,
+    strings re-quoted), or None when it holds anything but columns, constants, casts,
+    arithmetic and the functions in `SAFE_FUNCTIONS`: then it may only go into a comment."""
+    if not text or len(text) > _EXPRESSION_LIMIT or not text.isprintable():
+        return None
+    try:
+        tree = sqlglot.parse_one(text, read="postgres")
+    except Exception:  # sqlglot raises several types for text it cannot read
+        return None
+    if not all(isinstance(node, _EXPRESSION_NODES) for node in tree.walk()) or \
+            any(column.table for column in tree.find_all(sqlglot_exp.Column)):
+        return None
+    out: list[str] = []
+    at = 0
+    while at < len(text):
+        match = _EXPRESSION_TOKEN.match(text, at)
+        if match is None:
+            return None
+        kind, value = match.lastgroup, match.group(match.lastgroup)
+        after = text[match.end():].lstrip(" ")
+        if kind == "ident" and after.startswith("(") and value.lower() not in SAFE_FUNCTIONS:
+            return None
+        if kind == "quoted":
+            value = quote_ident(value.replace('""', '"'))
+        elif kind == "string":
+            value = "'" + value.replace("''", "'").replace("'", "''") + "'"
+        elif kind == "space":
+            value = " "
+        out.append(value)
+        at = match.end()
+    return "".join(out)
 
 
 def suggest_fix(cause: str, table: str | None, columns: list[str], **details) -> tuple[str, str] | None:
-    """The SQL that gives the optimizer what it missed, and what running it costs."""
+    """The SQL that gives the optimizer what it missed, and what running it costs.
+
+    Every name is quoted by `quote_ident`; an expression goes into SQL only as
+    `safe_expression` re-rendered it, and plan text in a comment is one inert line.
+    """
     if not table:
         return None
-    qt = _qtable(table)
-    cols = [_q(c) for c in columns]
+    qt = _qtable(table, details.get("table_parts"))
+    cols = [quote_ident(c) for c in columns]
     if cause == "correlation" and details.get("cross_table"):
-        other = _qtable(details.get("other_table") or "other_table")
-        other_cols = [_q(c) for c in details.get("other_columns") or columns]
+        other = _qtable(details.get("other_table") or "other_table", details.get("other_table_parts"))
+        other_columns = details.get("other_columns") or columns
+        other_cols = [quote_ident(c) for c in other_columns]
         glue = " || ':' || "
+        key = _made_name([*columns, "key"], "")
         key_expr = glue.join(f"{c}::text" for c in cols)
         other_key_expr = glue.join(f"{c}::text" for c in other_cols)
         sql = (f"-- {qt} and {other} are joined on {len(cols)} correlated columns; extended "
                "statistics are per table\n"
                "-- and cannot correct a join estimate. What can:\n"
-               f"-- 1. join on the key that implies the others and drop the redundant clauses, or\n"
-               f"-- 2. give both tables one combined key with statistics of its own:\n"
-               f"ALTER TABLE {qt} ADD COLUMN {'_'.join(columns)}_key text\n"
-               f"    GENERATED ALWAYS AS ({key_expr}) STORED;\n"
-               f"ALTER TABLE {other} ADD COLUMN {'_'.join(columns)}_key text\n"
-               f"    GENERATED ALWAYS AS ({other_key_expr}) STORED;\n"
-               f"ANALYZE {qt};\nANALYZE {other};\n"
-               f"-- then join ON {qt}.{'_'.join(columns)}_key = {other}.{'_'.join(columns)}_key")
-        caution = ("ALTER TABLE ... ADD COLUMN ... STORED rewrites the whole table under an ACCESS "
-                   "EXCLUSIVE lock (no reads or writes meanwhile) and needs the query rewritten. "
-                   + _ANALYZE_CAUTION + " " + _CHANGE_PROCESS)
+               "-- 1. join on the key that implies the others and drop the redundant clauses, or\n"
+               "-- 2. (heavy: rewrites both tables under an ACCESS EXCLUSIVE lock; read the caution\n"
+               "--    and take it through your change process) give both tables one combined key\n"
+               "--    with statistics of its own, then change the query to join on it:\n"
+               f"-- ALTER TABLE {qt} ADD COLUMN {key} text\n"
+               f"--     GENERATED ALWAYS AS ({key_expr}) STORED;\n"
+               f"-- ALTER TABLE {other} ADD COLUMN {key} text\n"
+               f"--     GENERATED ALWAYS AS ({other_key_expr}) STORED;\n"
+               f"-- ANALYZE {qt};\n-- ANALYZE {other};\n"
+               f"-- then join ON {qt}.{key} = {other}.{key}")
+        caution = ("Nothing here runs as pasted. The commented-out option 2 is heavy: ALTER TABLE "
+                   "... ADD COLUMN ... STORED rewrites the whole table under an ACCESS EXCLUSIVE "
+                   "lock (no reads or writes meanwhile), and the query must be rewritten to use the "
+                   "new key. " + _ANALYZE_CAUTION + " " + _CHANGE_PROCESS)
         return sql, caution
     if cause == "correlation" and len(cols) >= 2:
-        kinds = details.get("kinds") or ["dependencies", "mcv"]
-        kinds = sorted(set(kinds) | {"dependencies", "ndistinct", "mcv"})
-        name = _stats_name(table, columns)
-        sql = (f"CREATE STATISTICS IF NOT EXISTS {name} ({', '.join(kinds)})\n"
+        kinds = {"dependencies", "ndistinct", "mcv"}
+        name = _made_name([(details.get("table_parts") or (None, table))[-1], *columns], "_stats")
+        sql = (f"CREATE STATISTICS IF NOT EXISTS {name} ({', '.join(sorted(kinds))})\n"
                f"    ON {', '.join(cols)} FROM {qt};\nANALYZE {qt};")
         caution = ("CREATE STATISTICS takes a SHARE UPDATE EXCLUSIVE lock on the table and builds "
                    "nothing until the next ANALYZE; it adds a little planning time to queries on "
@@ -1383,32 +1465,47 @@ def suggest_fix(cause: str, table: str | None, columns: list[str], **details) ->
                    + _CHANGE_PROCESS)
         return sql, caution
     if cause == "default_selectivity":
-        expressions = [e for e in details.get("expressions") or [] if e]
-        if details.get("aggregate") and not expressions:
-            sql = ("-- No statistics describe an aggregate's result (a HAVING clause): the "
-                   "optimizer keeps its default.\n"
-                   "-- Options: pre-aggregate into a table that is ANALYZEd, or move the "
-                   "condition on the grouped rows\n-- into a subquery over a materialised result.")
-            return sql, ("Both options change the schema or the query. " + _CHANGE_PROCESS)
-        if expressions:
-            exprs = ", ".join(f"({e})" for e in expressions)
-            name = _stats_name(table, [re.sub(r"\W+", "_", e) for e in expressions])
-            sql = (f"-- PostgreSQL 14 and later: statistics on the expression itself\n"
-                   f"CREATE STATISTICS IF NOT EXISTS {name} ON {exprs} FROM {qt};\n"
-                   f"ANALYZE {qt};\n"
-                   f"-- any version: an expression index also gets statistics at ANALYZE\n"
-                   f"-- CREATE INDEX CONCURRENTLY ON {qt} ({exprs});\n"
-                   f"-- or rewrite the condition so that the column stands bare "
-                   f"(e.g. a range on the column instead of a function of it)")
-            caution = ("CREATE STATISTICS takes a SHARE UPDATE EXCLUSIVE lock and builds nothing "
-                       "until the next ANALYZE. CREATE INDEX CONCURRENTLY does not block writes but "
-                       "scans the table twice and cannot run inside a transaction block; a plain "
-                       "CREATE INDEX blocks writes while it builds. " + _ANALYZE_CAUTION + " "
-                       + _CHANGE_PROCESS)
-            return sql, caution
-        sql = (f"-- The estimate equals a built-in default: the optimizer had no statistics for "
-               f"the clause.\n-- Rewrite it so that a column of {qt} stands bare, or give the "
-               f"expression statistics:\n-- CREATE STATISTICS ... ON (<expression>) FROM {qt}; "
-               f"ANALYZE {qt};")
-        return sql, _ANALYZE_CAUTION + " " + _CHANGE_PROCESS
+        return _expression_fix(table, qt, [e for e in details.get("expressions") or [] if e],
+                               bool(details.get("aggregate")), details.get("table_parts"))
     return None
+
+
+def _expression_fix(table: str, qt: str, expressions: list[str], aggregate: bool,
+                    parts) -> tuple[str, str]:
+    if aggregate and not expressions:
+        sql = ("-- No statistics describe an aggregate's result (a HAVING clause): the "
+               "optimizer keeps its default.\n"
+               "-- Options: pre-aggregate into a table that is ANALYZEd, or move the "
+               "condition on the grouped rows\n-- into a subquery over a materialised result.")
+        return sql, ("Both options change the schema or the query. " + _CHANGE_PROCESS)
+    rendered = [safe_expression(e) for e in expressions]
+    safe = [r for r in rendered if r]
+    as_text = [e for e, r in zip(expressions, rendered) if not r]
+    lines: list[str] = []
+    if safe:
+        exprs = ", ".join(f"({e})" for e in safe)
+        name = _made_name([(parts or (None, table))[-1], *safe], "_stats")
+        lines += ["-- PostgreSQL 14 and later: statistics on the expression itself",
+                  f"CREATE STATISTICS IF NOT EXISTS {name} ON {exprs} FROM {qt};",
+                  f"ANALYZE {qt};",
+                  "-- any version: an expression index also gets statistics at ANALYZE",
+                  f"-- CREATE INDEX CONCURRENTLY ON {qt} ({exprs});"]
+    for text in as_text:
+        lines += ["-- an expression planview does not write as SQL (it calls a function outside "
+                  "its short list, or holds",
+                  "-- text it cannot re-render); as the plan shows it: " + comment_text(text),
+                  f"-- CREATE STATISTICS ... ON (<that expression>) FROM {qt}; ANALYZE {qt};"]
+    if not expressions:
+        lines += ["-- The estimate equals a built-in default: the optimizer had no statistics for "
+                  "the clause.",
+                  f"-- Rewrite it so that a column of {qt} stands bare, or give the expression statistics:",
+                  f"-- CREATE STATISTICS ... ON (<expression>) FROM {qt}; ANALYZE {qt};"]
+        return "\n".join(lines), _ANALYZE_CAUTION + " " + _CHANGE_PROCESS
+    lines.append("-- or rewrite the condition so that the column stands bare "
+                 "(e.g. a range on the column instead of a function of it)")
+    caution = ("CREATE STATISTICS takes a SHARE UPDATE EXCLUSIVE lock and builds nothing "
+               "until the next ANALYZE. CREATE INDEX CONCURRENTLY does not block writes but "
+               "scans the table twice and cannot run inside a transaction block; a plain "
+               "CREATE INDEX blocks writes while it builds. " + _ANALYZE_CAUTION + " "
+               + _CHANGE_PROCESS)
+    return "\n".join(lines), caution

@@ -1,8 +1,11 @@
 """The ticket body in Markdown: the query's summary, the origins with cause, q-error, evidence
 and fix, and the cautions.
 
-Plan strings are text here too: outside code they have every Markdown and HTML sign escaped;
-conditions and SQL go into code spans and fences, which no Markdown renderer reads as markup.
+Plan strings are text here too: names, labels, conditions and SQL go into code spans and
+fences, which no Markdown renderer reads as markup or turns into links; in prose every Markdown
+and HTML sign is escaped and anything a ticket system would link (an address, ``www.``, an
+e-mail or a mention) is put in a code span. Control and direction characters become visible
+escapes everywhere (`planview.inert.visible`).
 """
 
 from __future__ import annotations
@@ -10,22 +13,33 @@ from __future__ import annotations
 import re
 from typing import Any
 
+from ..inert import visible
 from .common import GENERIC_CAUTION, cause_words, evidence_items, factor, ms
 
 _SIGNS = re.compile(r"([\\`*_{}\[\]<>#|~$&])")
 
 
+_LINKISH = re.compile(r"[A-Za-z][A-Za-z0-9+.\-]*:(?=\S)|www\.|@", re.IGNORECASE)
+"""What GitHub, GitLab or Jira could turn into a link or a mention: a scheme, www., an @."""
+
+
 def md_text(value: Any) -> str:
     """Plain text for Markdown: every sign a renderer could act on is backslash-escaped,
-    `<` and `&` become entities, and line breaks become spaces (so a table row stays one)."""
-    text = " ".join(str(value).split())
-    text = _SIGNS.sub(r"\\\1", text)
-    return text.replace("\\<", "&lt;").replace("\\>", "&gt;").replace("\\&", "&amp;")
+    `<` and `&` become entities, line breaks become spaces (so a table row stays one), and
+    a word a ticket system would link goes into a code span."""
+    words = []
+    for word in " ".join(visible(value, keep="\n\r\t").split()).split(" "):
+        if _LINKISH.search(word):
+            words.append(md_code(word, in_table=True))
+            continue
+        word = _SIGNS.sub(r"\\\1", word)
+        words.append(word.replace("\\<", "&lt;").replace("\\>", "&gt;").replace("\\&", "&amp;"))
+    return " ".join(words)
 
 
 def md_code(value: Any, *, in_table: bool = False) -> str:
     """An inline code span long enough to hold any backticks in the text."""
-    text = " ".join(str(value).split())
+    text = " ".join(visible(value).split())
     ticks = "`" * (max((len(m) for m in re.findall(r"`+", text)), default=0) + 1)
     if in_table:
         text = text.replace("|", "\\|")
@@ -34,6 +48,7 @@ def md_code(value: Any, *, in_table: bool = False) -> str:
 
 
 def md_fence(text: str, lang: str = "") -> str:
+    text = visible(text, keep="\n")
     fence = "`" * max(3, max((len(m) for m in re.findall(r"`+", text)), default=0) + 1)
     return f"{fence}{lang}\n{text.rstrip()}\n{fence}"
 
@@ -58,7 +73,7 @@ def render_markdown(plan) -> str:
     worst = max(judged, key=lambda n: n.get("q_error") or 1.0, default=None)
     if worst and worst.get("q_error"):
         facts.append(f"largest error: {md_text(factor(worst['q_error']))} at "
-                     f"\\#{worst['id']} {md_text(worst['label'])}")
+                     f"\\#{worst['id']} {md_code(worst['label'])}")
     out += [f"- {fact}" for fact in facts]
     out += [f"- note: {md_text(note)}" for note in report["notes"]]
     if not report["has_actuals"]:
@@ -82,14 +97,14 @@ def render_markdown(plan) -> str:
         if f.get("confidence") is not None:
             cause += f" ({round(f['confidence'] * 100)}%)"
         out.append(
-            f"| {f['rank']} | \\#{f['node']} {md_text(node.get('label') or '')} | "
+            f"| {f['rank']} | \\#{f['node']} {md_code(node.get('label') or '', in_table=True)} | "
             f"too {'low' if f['direction'] == 'under' else 'high'} | {md_text(factor(f['own_q_error']))} "
             f"({md_text(factor(f['q_error']))}) | {cause} | {evidence} | {fix} |")
     out += ["", "### Each origin"]
     for f in findings:
         node = by_id.get(f["node"], {})
         cause = cause_words(f.get("cause"))
-        out += ["", f"#### {f['rank']}. \\#{f['node']} {md_text(node.get('label') or '')}"
+        out += ["", f"#### {f['rank']}. \\#{f['node']} {md_code(node.get('label') or '')}"
                 + (f": {md_text(cause)}" if cause else ""), ""]
         out.append(f"Estimated {md_text(_rows(node.get('est_total')))} rows, got "
                    f"{md_text(_rows(node.get('actual_total')))} over {md_text(_rows(node.get('starts')))} "
