@@ -155,6 +155,47 @@ def test_export_page_offline_renders_selects_and_keeps_markup_as_text(browser, t
         page.screenshot(path=str(SHOTS / "export-offline.png"), full_page=True)
 
 
+# A direction override (Unicode Standard Annex #9), an ECMA-48 erase-screen sequence and a line
+# separator in a table name; the page must show each as an escape and reorder nothing.
+CONTROL_NAME = "owners\u202egnp.exe\x1b[2J\u2028tail"
+# (innerText itself puts a tab between table cells, so the tab is left out here)
+RAW = re.compile("[\x00-\x08\x0b-\x1f\x7f-\x9f\u202a-\u202e\u2066-\u2069\u200b-\u200f\u061c\u2028\u2029\ufeff]")
+
+
+def test_exported_page_shows_control_and_direction_characters_as_escapes(browser, tmp_path):
+    path = tmp_path / "controls.json"
+    path.write_text(json.dumps(with_payloads(PLANS / "nested_loop_inherited.json", {"Relation Name": CONTROL_NAME})))
+    plan = planview.load(path)
+    report = plan.report()
+    node = next(n for n in report["nodes"] if n["relation"] == CONTROL_NAME and n["judged"])
+    shown = "owners\\u202egnp.exe\\x1b[2J\\u2028tail"
+    with exported_page(browser, plan, tmp_path / "controls.html") as (page, blocked, dialogs, errors):
+        page.locator(f'.pv-row[data-id="{node["id"]}"]').click()
+        text = page.locator("body").inner_text()
+        assert not RAW.search(text), RAW.search(text)
+        assert shown in page.locator(".pv-tree").inner_text()
+        assert shown in page.locator(".pv-detail-title").inner_text()
+        assert shown in page.locator(f'.pv-row[data-id="{node["id"]}"] .pv-label').get_attribute("title")
+        page.locator(f'circle.pv-point[data-id="{node["id"]}"]').first.hover(force=True)
+        assert shown in page.locator(".pv-readout").first.text_content()
+        # the data the page carries is the report's own, real strings included
+        relations = page.evaluate("() => JSON.parse(document.getElementById('planview-data').textContent)"
+                                  ".report.nodes_packed.rows.flat()")
+        assert CONTROL_NAME in relations
+        finding = report["findings"][0]
+        page.locator(f'.pv-row[data-id="{finding["node"]}"]').click()
+        assert finding["fix"], "a name planview will not write into SQL still gets its comment-only fix"
+        # the copy button copies the fix itself, not its shown form
+        page.evaluate("""() => Object.defineProperty(navigator, 'clipboard', {configurable: true,
+            value: {writeText: async (t) => { window.__pvCopied = t; }}})""")
+        page.locator(".pv-copy").click()
+        assert page.evaluate("window.isSecureContext")  # file:// is; the module then uses the clipboard
+        page.wait_for_function("() => window.__pvCopied !== undefined", timeout=5_000)
+        assert page.evaluate("window.__pvCopied") == finding["fix"]
+        assert not RAW.search(page.locator("body").inner_text())
+        assert dialogs == [] and errors == [] and blocked == []
+
+
 def test_export_page_walks_origins_by_rank_with_buttons_and_keys(browser, tmp_path):
     plan = planview.load(PLANS / "multi.json")
     ranked = [f["node"] for f in sorted(plan.report()["findings"], key=lambda f: f["rank"])]

@@ -21,6 +21,7 @@ import planview
 from planview.cli import main as cli_main
 from planview.export.common import VIK, cause_words
 from planview.export.html import compact_report, render_static_tree
+from planview.inert import visible
 
 REPO = Path(__file__).resolve().parent.parent
 PG16 = REPO / "plans" / "postgresql" / "pg16"
@@ -34,8 +35,21 @@ PAYLOADS = {
 }
 
 
-def hostile(path: Path = PG16 / "nested_loop_inherited.json"):
-    return planview.load(json.dumps(with_payloads(path, PAYLOADS)))
+# Direction controls (Unicode Standard Annex #9: U+202A-U+202E, U+2066-U+2069, U+200E/U+200F,
+# U+061C), C0/C1 controls and ESC sequences (ECMA-48), zero-width characters and the line and
+# paragraph separators, where a plan carries names and conditions.
+CONTROL_PAYLOADS = {
+    "Relation Name": "owners\u202egnp.exe\x1b[2J\u2028tail",
+    "Alias": "o\u2066\u200f\u061c\u200b\u200e",
+    "Index Name": "idx\x85\x9b31m\u2029\ufeff\u2067\u2068\u2069\u202a\u202b\u202c\u202d",
+    "Filter": "(town = '\u202ex' AND note = '\x07\r\x7f\x1b]8;;x\x07')",
+}
+BIDI = "\u202a\u202b\u202c\u202d\u202e\u2066\u2067\u2068\u2069\u200e\u200f\u061c"
+RAW = re.compile("[\x00-\x09\x0b-\x1f\x7f-\x9f" + BIDI + "\u2028\u2029\u200b-\u200d\ufeff]")
+
+
+def hostile(path: Path = PG16 / "nested_loop_inherited.json", payloads: dict = PAYLOADS):
+    return planview.load(json.dumps(with_payloads(path, payloads)))
 
 
 class Elements(html.parser.HTMLParser):
@@ -117,6 +131,22 @@ def test_page_keeps_plan_markup_inside_its_data():
     assert PAYLOADS["Relation Name"] in relations
 
 
+def test_page_shows_control_and_direction_characters_as_escapes():
+    plan = hostile(payloads=CONTROL_PAYLOADS)
+    page = plan.to_html()
+    parsed = parse(page)
+    shown = "".join(parsed.text)  # the title, the static tree in <noscript>, the ticket text
+    assert not RAW.search(shown), RAW.search(shown)
+    for _tag, attrs in parsed.tags:
+        assert not any(RAW.search(v or "") for v in attrs.values()), attrs
+    assert "\\u202e" in shown and "\\x1b[2J" in shown and "\\u2028" in shown
+    # the report's data keeps the real strings; only the views show escapes
+    data = json.loads(next(d for d in parsed.raw["script"] if d.lstrip().startswith("{")))
+    nodes = unpack(data["report"])
+    assert CONTROL_PAYLOADS["Relation Name"] in {n.get("relation") for n in nodes}
+    assert CONTROL_PAYLOADS["Relation Name"] in {n["relation"] for n in plan.report()["nodes"]}
+
+
 def test_widget_module_and_python_share_the_colour_scale():
     module = (REPO / "planview" / "widget" / "review.js").read_text()
     listed = re.search(r"export const VIK = \[(.*?)\];", module, re.S).group(1)
@@ -143,6 +173,21 @@ def test_static_tree_lists_every_operator_and_keeps_markup_as_text():
     for finding in report["findings"]:
         if finding["fix"]:
             assert finding["fix"] in text and (finding["caution"] or "") in text
+
+
+@pytest.mark.parametrize("case", ["nested_loop_inherited", "correlated", "function", "skewed"])
+def test_static_tree_shows_control_and_direction_characters_as_escapes(case):
+    plan = hostile(PG16 / f"{case}.json", CONTROL_PAYLOADS)
+    report = plan.report()
+    parsed = parse(render_static_tree(plan))
+    text = "".join(parsed.text)
+    assert not RAW.search(text), RAW.search(text)
+    assert "\\u202e" in text and "\\x1b[2J" in text and "\\u2028" in text and "\\u2066" in text
+    for node in report["nodes"]:
+        assert visible(node["label"]) in text
+    for finding in report["findings"]:
+        if finding["fix"]:
+            assert visible(finding["fix"], keep="\n\t") in text
 
 
 def test_static_tree_of_a_large_plan_shows_the_paths_to_origins():

@@ -79,6 +79,20 @@ def test_charts_come_once_the_tree_is_drawn_and_clicks_select(multi):
     assert list(w.charts.figure.data[5].x) == []
 
 
+def test_chart_hover_labels_show_direction_and_control_characters_as_escapes():
+    # U+202E (Unicode Standard Annex #9), ESC (ECMA-48), U+2028: each shown as an escape
+    from plan_files import with_payloads
+
+    name = "owners\u202egnp\x1b[2J\u2028x"
+    plan = planview.load(json.dumps(with_payloads(PG16 / "nested_loop_inherited.json", {"Relation Name": name})))
+    w = PlanWidget(plan)
+    w._on_front_message(w.tree, {"kind": "drawn"}, [])
+    labels = [str(c[1]) for trace in w.charts.figure.data[3:5] for c in trace.customdata]
+    assert any("owners\\u202egnp\\x1b[2J\\u2028x" in label for label in labels), labels
+    assert not any(ch in label for label in labels for ch in "\u202e\x1b\u2028")
+    assert w.report["nodes"] == plan.report()["nodes"] and name in {n["relation"] for n in w.report["nodes"]}
+
+
 def test_save_writes_page_and_ticket_and_answers_the_front_end(multi, tmp_path):
     w = PlanWidget(multi, save_dir=tmp_path)
     sent = []
@@ -111,6 +125,7 @@ def test_review_of_bad_input_shows_one_line_not_a_traceback():
     assert isinstance(result, ReviewError) and not result
     assert "\n" not in repr(result) and repr(result).startswith("planview: ")
     assert "&lt;" in ReviewError(planview.PlanParseError("<b>x</b>"))._repr_html_()
+    assert "x\\u202ey" in ReviewError(planview.PlanParseError("x\u202ey"))._repr_html_()
     with pytest.raises(planview.PlanParseError):
         review("SELECT 1; -- not a plan", errors="raise")
 

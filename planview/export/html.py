@@ -2,7 +2,10 @@
 with no widget front end (nbconvert, a notebook viewer, a mail client).
 
 Every string from the plan goes through `html.escape` here, or, in the page, is handed to the
-ES module as JSON data that it only ever puts into the page as text.
+ES module as JSON data that it only ever puts into the page as text. Shown text first passes
+`planview.inert.visible` (the module has its own `visible`): a direction override or a control
+character in a name is displayed as an escape and cannot reorder the text around it. The
+report's data keeps the real strings.
 """
 
 from __future__ import annotations
@@ -14,6 +17,7 @@ import json
 from importlib import resources
 from typing import Any
 
+from ..inert import visible
 from .common import (
     GENERIC_CAUTION,
     LARGE_PLAN,
@@ -103,7 +107,7 @@ def render_html(plan) -> str:
         f"<meta http-equiv=\"Content-Security-Policy\" content=\"{html.escape(policy)}\">",
         "<meta name=\"viewport\" content=\"width=device-width, initial-scale=1\">",
         "<meta name=\"generator\" content=\"planview\">",
-        f"<title>{html.escape(title)}</title>",
+        f"<title>{html.escape(visible(title))}</title>",
         "<style>", widget_css(), _PAGE_CSS, "</style></head><body>",
         "<main><div id=\"planview-root\"></div>",
         "<noscript>", render_static_tree(plan), "</noscript>",
@@ -167,7 +171,9 @@ def render_static_tree(plan) -> str:
         note = (f"<p>{len(nodes) - len(shown):,} of {len(nodes):,} operators are left out here: "
                 "this static view lists the paths to the origins. Open the interactive review "
                 "or the exported page for all of them.</p>")
-    esc = html.escape
+    def esc(text: str, keep: str = "") -> str:
+        return html.escape(visible(text, keep))
+
     out = [_STATIC_CSS, '<div class="pvs">']
     findings = report["findings"]
     statement = (report["statements"] or [{}])[0]
@@ -233,7 +239,8 @@ def render_static_tree(plan) -> str:
             out.append("<table>" + "".join(f"<tr><th>{esc(k)}</th><td>{esc(v)}</td></tr>" for k, v in pairs)
                        + "</table>")
         if f.get("fix"):
-            out.append(f"<pre>{esc(f['fix'])}</pre>")
+            fix = esc(f["fix"], keep="\n\t")
+            out.append(f"<pre>{fix}</pre>")
             out.append(f'<p class="caution"><strong>Before you run it:</strong> {esc(f.get("caution") or GENERIC_CAUTION)}</p>')
         elif f.get("caution"):
             out.append(f'<p class="caution"><strong>Caution:</strong> {esc(f["caution"])}</p>')

@@ -167,7 +167,9 @@ class ReviewError:
     def _repr_html_(self) -> str:
         import html
 
-        return f'<pre class="planview-error">planview: {html.escape(self.message)}</pre>'
+        from ..inert import visible
+
+        return f'<pre class="planview-error">planview: {html.escape(visible(self.message))}</pre>'
 
 
 def review(source, *, engine: str | None = None, fmt: str | None = None, threshold: float = 10.0,

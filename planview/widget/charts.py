@@ -11,6 +11,7 @@ import plotly.graph_objects as go
 from plotly.subplots import make_subplots
 
 from ..export.common import SCALE_LIMIT, VIK, rows
+from ..inert import visible
 
 COLOURSCALE = [[i / (len(VIK) - 1), c] for i, c in enumerate(VIK)]
 
@@ -46,10 +47,11 @@ class PlanCharts:
             "size": np.where(origin, 11, 7), "symbol": np.where(origin, "diamond", "circle"),
             "line": {"width": np.where(origin, 1.6, 0.5), "color": "#222"},
         }
-        # hover labels are plotly's own markup: the plan's strings go in escaped
+        # hover labels are plotly's own markup: the plan's strings go in escaped, with control
+        # and direction characters shown as escapes
         custom = np.empty((len(pts), 4), dtype=object)
         for i, n in enumerate(pts):
-            custom[i] = (n["id"], html.escape(n["label"] or n["operator"] or "", quote=False),
+            custom[i] = (n["id"], html.escape(visible(n["label"] or n["operator"] or ""), quote=False),
                          rows(n["est_total"]), rows(n["actual_total"]))
         template = "#%{customdata[0]} %{customdata[1]}<br>estimated %{customdata[2]}, actual %{customdata[3]}<extra></extra>"
         fig.add_trace(go.Scatter(

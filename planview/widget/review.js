@@ -4,7 +4,9 @@
 // (`render({model, el})`) and inside the exported page, where a small local object stands in
 // for the widget model. Every string that comes from a plan is put in the page as text
 // (textContent, createTextNode, setAttribute on a fixed list of names); nothing here parses
-// markup.
+// markup. Shown text passes `visible` first, so a direction override or a control character in
+// a name appears as an escape (`\u202e`) and cannot reorder or hide the text around it; the
+// report's data and the copied fix keep the real strings.
 
 // Crameri, Scientific colour maps 8, "vik", sampled at 17 evenly spaced points. It is read
 // here as log10(actual / estimated) from -4 (10^4 times too many rows estimated: blue) to +4
@@ -26,6 +28,29 @@ const SAFE_ATTRS = new Set([
 // ---------------------------------------------------------------------------------------------
 // small helpers
 
+// What Python's str.isprintable() rejects: control, format (direction marks and overrides,
+// zero-width characters), surrogate, private-use and unassigned code points, and every
+// separator except the space (line and paragraph separators included).
+const HIDDEN = /[\p{C}\p{Z}]/gu;
+const BLOCK_KEEP = "\n\t";
+
+function escapeChar(ch) {
+  const code = ch.codePointAt(0);
+  if (code < 0x100) return `\\x${code.toString(16).padStart(2, "0")}`;
+  if (code < 0x10000) return `\\u${code.toString(16).padStart(4, "0")}`;
+  return `\\U${code.toString(16).padStart(8, "0")}`;
+}
+
+// The same escapes as planview.inert.visible; the characters in `keep` stay.
+export function visible(text, keep = "") {
+  return String(text).replace(HIDDEN, (ch) => (ch === " " || keep.includes(ch) ? ch : escapeChar(ch)));
+}
+
+// Plan text for a <pre>: line breaks and tabs stay, everything else as `visible`.
+function textBlock(text) {
+  return document.createTextNode(visible(text, BLOCK_KEEP));
+}
+
 function el(tag, attrs, ...children) {
   const node = document.createElement(tag);
   setAttrs(node, attrs);
@@ -46,7 +71,7 @@ function setAttrs(node, attrs) {
   for (const [name, value] of Object.entries(attrs || {})) {
     if (value === null || value === undefined || value === false) continue;
     if (name.startsWith("data-") || SAFE_ATTRS.has(name)) {
-      node.setAttribute(name, value === true ? "" : String(value));
+      node.setAttribute(name, value === true ? "" : visible(value));
     } else {
       throw new Error(`planview: attribute ${name} is not on the allowed list`);
     }
@@ -56,7 +81,7 @@ function setAttrs(node, attrs) {
 function append(node, children) {
   for (const child of children.flat(Infinity)) {
     if (child === null || child === undefined || child === false) continue;
-    node.appendChild(child instanceof Node ? child : document.createTextNode(String(child)));
+    node.appendChild(child instanceof Node ? child : document.createTextNode(visible(child)));
   }
 }
 
@@ -340,7 +365,7 @@ class Review {
     for (const note of r.notes || []) extra.push(el("div", { class: "pv-note" }, note));
     if (statement.query_text) {
       extra.push(el("details", { class: "pv-query" }, el("summary", {}, "Query text"),
-        el("pre", {}, statement.query_text)));
+        el("pre", {}, textBlock(statement.query_text))));
     }
     return el("div", {}, header, extra);
   }
@@ -513,7 +538,7 @@ class Review {
     const err = el("span", { class: "pv-err" });
     if (ratio === null) {
       err.textContent = node.judged ? "–" : "not judged";
-      if (!node.judged && node.not_judged_reason) err.setAttribute("title", `not judged: ${node.not_judged_reason}`);
+      if (!node.judged && node.not_judged_reason) err.setAttribute("title", visible(`not judged: ${node.not_judged_reason}`));
     } else {
       const q = this.colourBy === "own" ? Math.pow(10, Math.abs(ratio)) : node.q_error;
       err.textContent = shortError(ratio, q);
@@ -607,7 +632,7 @@ class Review {
     if (!needle) return;
     const order = this.plan.order;
     const hay = (n) => [n.label, n.relation, n.alias, n.index, ...(n.conditions || []).map((c) => c.text)]
-      .filter(Boolean).join(" ").toLowerCase();
+      .filter(Boolean).map((t) => visible(t)).join(" ").toLowerCase();
     const start = Math.max(0, order.findIndex((n) => n.id === this.selected));
     for (let k = 1; k <= order.length; k++) {
       const node = order[(start + direction * k + order.length * k) % order.length];
@@ -758,7 +783,7 @@ class Review {
     }
     if (finding.fix) {
       parts.push(el("h4", {}, "Suggested fix"));
-      const code = el("pre", { class: "pv-fix" }, el("code", {}, finding.fix));
+      const code = el("pre", { class: "pv-fix" }, el("code", {}, textBlock(finding.fix)));
       const copy = el("button", { type: "button", class: "pv-copy", title: "Copy the SQL" }, "Copy SQL");
       const copied = el("span", { class: "pv-copied", "aria-live": "polite" });
       copy.addEventListener("click", () => copyText(finding.fix).then(
@@ -775,8 +800,8 @@ class Review {
 
   onMessage(msg) {
     if (!msg || typeof msg !== "object" || !this.saveStatus) return;
-    if (msg.kind === "saved") this.saveStatus.textContent = `saved ${(msg.paths || []).join(" and ")}`;
-    else if (msg.kind === "save-failed") this.saveStatus.textContent = `could not save: ${msg.message || "unknown error"}`;
+    if (msg.kind === "saved") this.saveStatus.textContent = visible(`saved ${(msg.paths || []).join(" and ")}`);
+    else if (msg.kind === "save-failed") this.saveStatus.textContent = visible(`could not save: ${msg.message || "unknown error"}`);
   }
 
   // -- charts (the standalone page, or a notebook without plotly) -----------------------------
@@ -923,7 +948,7 @@ class SvgCharts {
     group.addEventListener("mouseover", (event) => {
       const id = event.target.getAttribute("data-id");
       const n = id === null ? null : this.plan.byId.get(Number(id));
-      readout.textContent = n ? `#${n.id} ${n.label || n.operator || ""}: est. ${formatRows(n.est_total)}, actual ${formatRows(n.actual_total)}` : "";
+      readout.textContent = n ? visible(`#${n.id} ${n.label || n.operator || ""}: est. ${formatRows(n.est_total)}, actual ${formatRows(n.actual_total)}`) : "";
     });
     group.addEventListener("mouseout", () => { readout.textContent = ""; });
     const ring = svg("circle", { r: 9, class: "pv-point-ring", visibility: "hidden" });
