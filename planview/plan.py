@@ -9,6 +9,7 @@ from typing import Any
 from . import engines
 from .check import CheckOptions, check
 from .errors import PlanParseError
+from .index import PlanIndex, index_of
 from .model import Finding, ParsedPlan, PlanNode, Statement
 from .source import read_text
 
@@ -34,6 +35,7 @@ class Plan:
         self.source = source
         self._engine_module = engine_module
         self.findings: list[Finding] = check(parsed, engine_module, options)
+        self.index: PlanIndex = index_of(parsed)
         from .diagnose import diagnose
 
         diagnose(self)

@@ -10,8 +10,8 @@ The fix SQL comes from the engine module (`suggest_fix`), so it speaks the engin
 from __future__ import annotations
 
 from . import correlation, default_selectivity, range_gap, skew, stale_statistics
-from .context import Candidate, Context, build_context, fmt_rows
-from .impact import impact_of
+from .context import Candidate, Context, build_context, fmt_rows, relation_map
+from .impact import ImpactWalk
 
 RULES = (
     ("correlation", correlation.rule),
@@ -26,10 +26,15 @@ __all__ = ["CAUSES", "RULES", "Candidate", "Context", "diagnose"]
 
 
 def diagnose(plan, rules=RULES) -> None:
-    """Fill cause, evidence, fix, caution and impact of every finding, then rank them."""
+    """Fill cause, evidence, fix, caution and impact of every finding, then rank them.
+
+    What every finding shares (the relation map, the walk up to the decisions) is made once
+    here, so the work per finding stays local to its node."""
+    relation_of = relation_map(plan)
+    impact = ImpactWalk(plan)
     for finding in plan.findings:
         node = plan.nodes[finding.node]
-        ctx = build_context(plan, node)
+        ctx = build_context(plan, node, relation_of)
         candidates: list[Candidate] = []
         checked: list[str] = []
         for name, rule in rules:
@@ -44,7 +49,7 @@ def diagnose(plan, rules=RULES) -> None:
                 candidates.append(candidate)
         candidates.sort(key=lambda c: -c.score)
         _fill(plan, finding, node, ctx, candidates, checked)
-        finding.impact = impact_of(plan, node)
+        finding.impact = impact.of(node)
     plan.findings.sort(key=lambda f: (-(f.impact.get("ms") or 0.0), -(f.impact.get("rows") or 0.0),
                                       -f.own_q_error))
     for rank, finding in enumerate(plan.findings, 1):

@@ -14,11 +14,13 @@ show actual rows only, so such a plan is accepted and says that its estimates ar
 from __future__ import annotations
 
 import re
+from collections.abc import Hashable
 from typing import Any
 
 from ..check import RULES as CHECK_RULES
 from ..check import Role
 from ..errors import PlanParseError
+from ..index import index_of
 from ..model import Condition, ParsedPlan, PlanNode, Statement
 from ..source import MAX_DEPTH
 from ._dispatch import dispatch, json_document
@@ -732,15 +734,26 @@ def role(node: PlanNode, nodes: list[PlanNode], parsed: ParsedPlan) -> Role:
     result.blocking = node.operator in BLOCKING
     result.limit = node.operator in LIMITS
     if node.operator == "CTE_SCAN":
-        index = (node.extra.get("extra_info") or {}).get("CTE Index")
-        for other in nodes:
-            if other.operator == "CTE" and other.statement == node.statement and other.children \
-                    and (other.extra.get("extra_info") or {}).get("Table Index") == index:
-                result.reads = other.children[0]
-                break
+        cte_index = (node.extra.get("extra_info") or {}).get("CTE Index")
+        if isinstance(cte_index, Hashable):
+            cte = index_of(parsed).first_by(_cte_key).get((node.statement, cte_index))
+        else:  # a list or an object where a number belongs: compare by value, as rare as odd
+            cte = next((o.id for o in nodes if o.operator == "CTE" and o.children
+                        and o.statement == node.statement
+                        and (o.extra.get("extra_info") or {}).get("Table Index") == cte_index), None)
+        if cte is not None:
+            result.reads = nodes[cte].children[0]
         if result.reads is None:
             result.rule = "source"
     return result
+
+
+def _cte_key(node: PlanNode) -> tuple[int, Any] | None:
+    """A CTE by its statement and table index (what a CTE_SCAN's "CTE Index" names)."""
+    if node.operator != "CTE" or not node.children:
+        return None
+    key = (node.statement, (node.extra.get("extra_info") or {}).get("Table Index"))
+    return key if isinstance(key[1], Hashable) else None
 
 
 def _count_or_none(value: Any) -> float | None:
