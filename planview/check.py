@@ -90,30 +90,7 @@ def check(parsed: ParsedPlan, engine, options: CheckOptions | None = None) -> li
     if hasattr(engine, "repair"):
         engine.repair(parsed)
     _judge(nodes, roles)
-    for node in nodes:
-        if node.est_total is not None and node.actual_total is not None:
-            node.log10_ratio = log_ratio(node.est_total, node.actual_total)
-            node.q_error = 10 ** abs(node.log10_ratio)
-    _own_errors(nodes, roles)
-    findings: list[Finding] = []
-    for node in nodes:
-        if not node.judged or node.own_log10_ratio is None:
-            continue
-        own = node.own_log10_ratio
-        charitable = _charitable_own(node)
-        if abs(own) >= threshold - 1e-9 and abs(charitable) >= threshold - 1e-9:
-            cut = roles[node.id].cut_inputs
-            if own > 0 and cut:
-                node.derived.append("own underestimate not separable from its inputs': "
-                                    + "; ".join(cut.values()))
-                continue
-            node.origin = True
-            findings.append(Finding(
-                node=node.id, q_error=round(node.q_error, 6), own_q_error=round(10 ** abs(own), 6),
-                direction="under" if own > 0 else "over",
-            ))
-    _inheritance(nodes, roles, threshold)
-    return findings
+    return _own_errors_and_origins(nodes, roles, threshold)
 
 
 def _totals(nodes: list[PlanNode], roles: list[Role]) -> None:
@@ -135,7 +112,8 @@ def _totals(nodes: list[PlanNode], roles: list[Role]) -> None:
 
 
 def _judge(nodes: list[PlanNode], roles: list[Role]) -> None:
-    """Mark nodes that must not be judged, and why. Top-down: an early stop flows down."""
+    """Mark nodes that must not be judged, and why, and take each node's log ratio.
+    Top-down: an early stop flows down."""
     cut: dict[int, str] = {}
     for node, role in zip(nodes, roles):
         reason = cut.get(node.id) or role.stopped
@@ -150,6 +128,9 @@ def _judge(nodes: list[PlanNode], roles: list[Role]) -> None:
             node.not_judged_reason = reason
         else:
             node.judged = True
+        if node.est_total is not None and node.actual_total is not None:
+            node.log10_ratio = log_ratio(node.est_total, node.actual_total)
+            node.q_error = 10 ** abs(node.log10_ratio)
         if not node.children:
             continue
         inputs = [nodes[c] for c in node.children if nodes[c].is_input_edge]
@@ -275,20 +256,52 @@ node's log ratio, its inputs (never empty: a node without inputs keeps its own l
 its `Role`."""
 
 
-def _own_errors(nodes: list[PlanNode], roles: list[Role]) -> None:
-    for node, role in zip(nodes, roles):
-        if not node.judged or node.log10_ratio is None:
-            continue
-        lr = node.log10_ratio
-        apply = RULES.get(node.own_rule or "", _own_as_is)
-        if apply is _own_as_is:
-            node.own_log10_ratio = lr
-            continue
-        if node.own_rule == "cte":  # a CTE Scan's input is the CTE it reads, not a child
-            inputs = [nodes[role.reads]] if role.reads is not None else []
-        else:
-            inputs = [nodes[c] for c in node.children if nodes[c].is_input_edge]
-        node.own_log10_ratio = apply(lr, inputs, role) if inputs else lr
+def _own_error(node: PlanNode, role: Role, nodes: list[PlanNode]) -> float:
+    lr = node.log10_ratio
+    apply = RULES.get(node.own_rule or "", _own_as_is)
+    if apply is _own_as_is:
+        return lr
+    if node.own_rule == "cte":  # a CTE Scan's input is the CTE it reads, not a child
+        inputs = [nodes[role.reads]] if role.reads is not None else []
+    else:
+        inputs = [nodes[c] for c in node.children if nodes[c].is_input_edge]
+    return apply(lr, inputs, role) if inputs else lr
+
+
+def _own_errors_and_origins(nodes: list[PlanNode], roles: list[Role], threshold: float) -> list[Finding]:
+    """One bottom-up pass: each judged node's own error, whether it is an origin, and the
+    origins below that explain the error of a node that is not one (`inherits_from`).
+
+    A node that re-reads another (a CTE Scan) may come after what it reads in pre-order, so
+    a second pass picks those links up."""
+    findings: list[Finding] = []
+    below: dict[int, list[int]] = {}
+    for node in reversed(nodes):
+        role = roles[node.id]
+        if node.judged and node.log10_ratio is not None:
+            node.own_log10_ratio = _own_error(node, role, nodes)
+            finding = _origin(node, role, threshold)
+            if finding is not None:
+                findings.append(finding)
+        _collect(node, nodes, roles, below, threshold)
+    if findings and any(r.reads is not None for r in roles):
+        for node in reversed(nodes):
+            _collect(node, nodes, roles, below, threshold)
+    findings.reverse()
+    return findings
+
+
+def _origin(node: PlanNode, role: Role, threshold: float) -> Finding | None:
+    own = node.own_log10_ratio
+    if abs(own) < threshold - 1e-9 or abs(_charitable_own(node)) < threshold - 1e-9:
+        return None
+    if own > 0 and role.cut_inputs:
+        node.derived.append("own underestimate not separable from its inputs': "
+                            + "; ".join(role.cut_inputs.values()))
+        return None
+    node.origin = True
+    return Finding(node=node.id, q_error=round(node.q_error, 6), own_q_error=round(10 ** abs(own), 6),
+                   direction="under" if own > 0 else "over")
 
 
 def _charitable_own(node: PlanNode) -> float:
@@ -300,21 +313,6 @@ def _charitable_own(node: PlanNode) -> float:
     nearest = min(max(node.est_total, low), high)
     shift = log_ratio(node.est_total, nearest) - (node.log10_ratio or 0.0)
     return node.own_log10_ratio + shift
-
-
-def _inheritance(nodes: list[PlanNode], roles: list[Role], threshold: float) -> None:
-    """For each node with a large error but no own origin, the origins below that explain it.
-
-    Bottom-up over the pre-order list. A node that re-reads another (a CTE Scan) may come
-    after what it reads in pre-order, so a second pass picks those links up.
-    """
-    if not any(node.origin for node in nodes):
-        return
-    below: dict[int, list[int]] = {}
-    passes = 2 if any(r.reads is not None for r in roles) else 1
-    for _ in range(passes):
-        for node in reversed(nodes):
-            _collect(node, nodes, roles, below, threshold)
 
 
 def _collect(node: PlanNode, nodes: list[PlanNode], roles: list[Role], below: dict[int, list[int]],

@@ -30,6 +30,8 @@ def diagnose(plan, rules=RULES) -> None:
 
     What every finding shares (the relation map, the walk up to the decisions) is made once
     here, so the work per finding stays local to its node."""
+    if not plan.findings:
+        return
     relation_of = relation_map(plan)
     impact = ImpactWalk(plan)
     for finding in plan.findings:
