@@ -7,8 +7,8 @@ same floors, positive for an underestimate.
 
 Errors multiply up the tree, so a node's own error is its log ratio minus what its inputs
 carry in. How the inputs are taken out depends on the node's *input rule*, which its engine
-module assigns (`RULES` below says what each rule does; each engine's table says which node
-types take which rule).
+module assigns (`RULES` below maps each rule's name to the function that applies it; each
+engine's table says which node types take which rule).
 
 Every walk here is an iterative pass over the pre-order list: parents come before their
 children, so a reversed pass is bottom-up. Depth never costs recursion.
@@ -17,24 +17,11 @@ children, so a reversed pass is bottom-up. Depth never costs recursion.
 from __future__ import annotations
 
 import math
+from collections.abc import Callable
 from dataclasses import dataclass
 
+from .index import index_of
 from .model import Finding, ParsedPlan, PlanNode
-
-RULES = {
-    "source": "its own log ratio (scans, leaves, aggregates without grouping)",
-    "group": "its own log ratio, or minus its input's when that explains more: a group count is "
-             "capped by, and scales with, the input estimate (grouping nodes)",
-    "pass": "minus its input's log ratio (Hash, Sort, Materialize, Memoize, Gather, Limit...)",
-    "join": "minus the log ratios of both inputs (outer joins: of the preserved input alone "
-            "when that explains more, as they emit the preserved rows anyway)",
-    "semi_outer": "minus the outer input's log ratio (semi and anti joins)",
-    "semi_inner": "minus the inner input's log ratio (right semi and right anti joins)",
-    "bitmap_heap": "minus its bitmap child's log ratio (Bitmap Heap Scan)",
-    "sum": "against the sums of its inputs' estimated and actual rows (Append, Merge Append)",
-    "cte": "minus the log ratio of the CTE it reads (CTE Scan)",
-    "uncounted": "not judged: the engine does not count this node's rows (BitmapAnd, BitmapOr)",
-}
 
 
 @dataclass
@@ -97,35 +84,13 @@ def check(parsed: ParsedPlan, engine, options: CheckOptions | None = None) -> li
     options = options or CheckOptions()
     nodes = parsed.nodes
     threshold = math.log10(options.threshold)
+    index_of(parsed)
     roles = [engine.role(node, nodes, parsed) for node in nodes]
     _totals(nodes, roles)
     if hasattr(engine, "repair"):
         engine.repair(parsed)
     _judge(nodes, roles)
-    for node in nodes:
-        if node.est_total is not None and node.actual_total is not None:
-            node.log10_ratio = log_ratio(node.est_total, node.actual_total)
-            node.q_error = 10 ** abs(node.log10_ratio)
-    _own_errors(nodes, roles)
-    findings: list[Finding] = []
-    for node in nodes:
-        if not node.judged or node.own_log10_ratio is None:
-            continue
-        own = node.own_log10_ratio
-        charitable = _charitable_own(node)
-        if abs(own) >= threshold - 1e-9 and abs(charitable) >= threshold - 1e-9:
-            cut = roles[node.id].cut_inputs
-            if own > 0 and cut:
-                node.derived.append("own underestimate not separable from its inputs': "
-                                    + "; ".join(cut.values()))
-                continue
-            node.origin = True
-            findings.append(Finding(
-                node=node.id, q_error=round(node.q_error, 6), own_q_error=round(10 ** abs(own), 6),
-                direction="under" if own > 0 else "over",
-            ))
-    _inheritance(nodes, roles, threshold)
-    return findings
+    return _own_errors_and_origins(nodes, roles, threshold)
 
 
 def _totals(nodes: list[PlanNode], roles: list[Role]) -> None:
@@ -147,7 +112,8 @@ def _totals(nodes: list[PlanNode], roles: list[Role]) -> None:
 
 
 def _judge(nodes: list[PlanNode], roles: list[Role]) -> None:
-    """Mark nodes that must not be judged, and why. Top-down: an early stop flows down."""
+    """Mark nodes that must not be judged, and why, and take each node's log ratio.
+    Top-down: an early stop flows down."""
     cut: dict[int, str] = {}
     for node, role in zip(nodes, roles):
         reason = cut.get(node.id) or role.stopped
@@ -162,6 +128,9 @@ def _judge(nodes: list[PlanNode], roles: list[Role]) -> None:
             node.not_judged_reason = reason
         else:
             node.judged = True
+        if node.est_total is not None and node.actual_total is not None:
+            node.log10_ratio = log_ratio(node.est_total, node.actual_total)
+            node.q_error = 10 ** abs(node.log10_ratio)
         if not node.children:
             continue
         inputs = [nodes[c] for c in node.children if nodes[c].is_input_edge]
@@ -181,17 +150,24 @@ def _judge(nodes: list[PlanNode], roles: list[Role]) -> None:
                     and child.actual_total < child.est_total:
                 cut.setdefault(child_id, "may have stopped early: a merge join stops reading one "
                                          "input once the other runs out")
+    visited: set[int] = set()
     for node, role in zip(nodes, roles):
         if role.reads is not None and node.executed and node.not_judged_reason \
                 and node.not_judged_reason.startswith("stopped early"):
             _cut_subtree(nodes, roles, nodes[role.reads],
-                         "stopped early: the reader of this CTE stopped before its end")
+                         "stopped early: the reader of this CTE stopped before its end", visited)
 
 
-def _cut_subtree(nodes: list[PlanNode], roles: list[Role], top: PlanNode, reason: str) -> None:
+def _cut_subtree(nodes: list[PlanNode], roles: list[Role], top: PlanNode, reason: str,
+                 visited: set[int]) -> None:
+    """Unjudge what a stopped reader cut short. A node already `visited` by an earlier cut
+    (same reason, same walk below it) is skipped, so many readers of one CTE cost one walk."""
     todo = [top]
     while todo:
         node = todo.pop()
+        if node.id in visited:
+            continue
+        visited.add(node.id)
         if node.judged:
             node.judged = False
             node.not_judged_reason = reason
@@ -206,59 +182,126 @@ def _judged_lr(node: PlanNode) -> float:
     return node.log10_ratio if node.judged and node.log10_ratio is not None else 0.0
 
 
-_NO_CUT: dict[int, str] = {}
+def _carried(child: PlanNode, cut: dict[int, str] | None) -> float:
+    """What an input carries in; an input cut while running counts with its printed figures."""
+    if cut and child.id in cut and child.log10_ratio is not None:
+        return child.log10_ratio
+    return _judged_lr(child)
 
 
-def _own_errors(nodes: list[PlanNode], roles: list[Role]) -> None:
-    for node, role in zip(nodes, roles):
-        if not node.judged or node.log10_ratio is None:
-            continue
-        lr = node.log10_ratio
-        rule = node.own_rule
-        if rule == "source":
-            node.own_log10_ratio = lr
-            continue
+def _own_as_is(lr: float, inputs: list[PlanNode], role: Role) -> float:
+    """Its own log ratio (scans, leaves, aggregates without grouping)."""
+    return lr
+
+
+def _own_minus_first(lr: float, inputs: list[PlanNode], role: Role) -> float:
+    """Minus its input's log ratio: the one input of Hash, Sort, Materialize, Memoize, Gather,
+    Limit...; the bitmap child of a Bitmap Heap Scan; the outer input of a semi or anti join;
+    the CTE a CTE Scan reads."""
+    return lr - _carried(inputs[0], role.cut_inputs)
+
+
+def _own_minus_last(lr: float, inputs: list[PlanNode], role: Role) -> float:
+    """Minus the inner input's log ratio (right semi and right anti joins)."""
+    return lr - _carried(inputs[-1], role.cut_inputs)
+
+
+def _own_of_group(lr: float, inputs: list[PlanNode], role: Role) -> float:
+    """Its own log ratio, or minus its input's when that explains more: a group count is
+    capped by, and scales with, the input estimate (grouping nodes)."""
+    return min((lr, lr - _carried(inputs[0], role.cut_inputs)), key=abs)
+
+
+def _own_of_join(lr: float, inputs: list[PlanNode], role: Role) -> float:
+    """Minus the log ratios of both inputs (outer joins: of the preserved input alone when
+    that explains more, as they emit the preserved rows anyway)."""
+    outer = _carried(inputs[0], role.cut_inputs)
+    inner = _carried(inputs[1], role.cut_inputs) if len(inputs) > 1 else 0.0
+    candidates = [lr - outer - inner]
+    if role.preserved in ("outer", "both"):
+        candidates.append(lr - outer)
+    if role.preserved in ("inner", "both"):
+        candidates.append(lr - inner)
+    return min(candidates, key=abs)
+
+
+def _own_of_sum(lr: float, inputs: list[PlanNode], role: Role) -> float:
+    """Against the sums of its inputs' estimated and actual rows (Append, Merge Append)."""
+    counted = [c for c in inputs if c.judged]
+    if not counted:
+        return lr
+    est = sum(c.est_total or 0.0 for c in counted)
+    act = sum(c.actual_total or 0.0 for c in counted)
+    return lr - log_ratio(est, act)
+
+
+OwnErrorRule = Callable[[float, list[PlanNode], Role], float]
+
+RULES: dict[str, OwnErrorRule] = {
+    "source": _own_as_is,
+    "group": _own_of_group,
+    "pass": _own_minus_first,
+    "join": _own_of_join,
+    "semi_outer": _own_minus_first,
+    "semi_inner": _own_minus_last,
+    "bitmap_heap": _own_minus_first,
+    "sum": _own_of_sum,
+    "cte": _own_minus_first,
+    # not judged: the engine does not count this node's rows (BitmapAnd, BitmapOr)
+    "uncounted": _own_as_is,
+}
+"""How each input rule separates a node's own error from what its inputs carry in: the rule's
+name (what an engine's table assigns) to the function that applies it. Each function gets the
+node's log ratio, its inputs (never empty: a node without inputs keeps its own log ratio) and
+its `Role`."""
+
+
+def _own_error(node: PlanNode, role: Role, nodes: list[PlanNode]) -> float:
+    lr = node.log10_ratio
+    apply = RULES.get(node.own_rule or "", _own_as_is)
+    if apply is _own_as_is:
+        return lr
+    if node.own_rule == "cte":  # a CTE Scan's input is the CTE it reads, not a child
+        inputs = [nodes[role.reads]] if role.reads is not None else []
+    else:
         inputs = [nodes[c] for c in node.children if nodes[c].is_input_edge]
-        cut = role.cut_inputs or _NO_CUT
+    return apply(lr, inputs, role) if inputs else lr
 
-        def _input_lr(child: PlanNode, cut=cut) -> float:
-            if child.id in cut and child.log10_ratio is not None:
-                return child.log10_ratio
-            return _judged_lr(child)
-        if not inputs and rule != "cte":
-            own = lr
-        elif rule == "pass":
-            own = lr - _input_lr(inputs[0])
-        elif rule == "group":
-            own = min((lr, lr - _input_lr(inputs[0])), key=abs)
-        elif rule == "bitmap_heap":
-            own = lr - _input_lr(inputs[0])
-        elif rule == "join":
-            outer = _input_lr(inputs[0])
-            inner = _input_lr(inputs[1]) if len(inputs) > 1 else 0.0
-            candidates = [lr - outer - inner]
-            if role.preserved in ("outer", "both"):
-                candidates.append(lr - outer)
-            if role.preserved in ("inner", "both"):
-                candidates.append(lr - inner)
-            own = min(candidates, key=abs)
-        elif rule == "semi_outer":
-            own = lr - _input_lr(inputs[0])
-        elif rule == "semi_inner":
-            own = lr - _input_lr(inputs[-1])
-        elif rule == "sum":
-            counted = [c for c in inputs if c.judged]
-            if counted:
-                est = sum(c.est_total or 0.0 for c in counted)
-                act = sum(c.actual_total or 0.0 for c in counted)
-                own = lr - log_ratio(est, act)
-            else:
-                own = lr
-        elif rule == "cte":
-            own = lr - _input_lr(nodes[role.reads]) if role.reads is not None else lr
-        else:
-            own = lr
-        node.own_log10_ratio = own
+
+def _own_errors_and_origins(nodes: list[PlanNode], roles: list[Role], threshold: float) -> list[Finding]:
+    """One bottom-up pass: each judged node's own error, whether it is an origin, and the
+    origins below that explain the error of a node that is not one (`inherits_from`).
+
+    A node that re-reads another (a CTE Scan) may come after what it reads in pre-order, so
+    a second pass picks those links up."""
+    findings: list[Finding] = []
+    below: dict[int, list[int]] = {}
+    for node in reversed(nodes):
+        role = roles[node.id]
+        if node.judged and node.log10_ratio is not None:
+            node.own_log10_ratio = _own_error(node, role, nodes)
+            finding = _origin(node, role, threshold)
+            if finding is not None:
+                findings.append(finding)
+        _collect(node, nodes, roles, below, threshold)
+    if findings and any(r.reads is not None for r in roles):
+        for node in reversed(nodes):
+            _collect(node, nodes, roles, below, threshold)
+    findings.reverse()
+    return findings
+
+
+def _origin(node: PlanNode, role: Role, threshold: float) -> Finding | None:
+    own = node.own_log10_ratio
+    if abs(own) < threshold - 1e-9 or abs(_charitable_own(node)) < threshold - 1e-9:
+        return None
+    if own > 0 and role.cut_inputs:
+        node.derived.append("own underestimate not separable from its inputs': "
+                            + "; ".join(role.cut_inputs.values()))
+        return None
+    node.origin = True
+    return Finding(node=node.id, q_error=round(node.q_error, 6), own_q_error=round(10 ** abs(own), 6),
+                   direction="under" if own > 0 else "over")
 
 
 def _charitable_own(node: PlanNode) -> float:
@@ -272,30 +315,17 @@ def _charitable_own(node: PlanNode) -> float:
     return node.own_log10_ratio + shift
 
 
-def _inheritance(nodes: list[PlanNode], roles: list[Role], threshold: float) -> None:
-    """For each node with a large error but no own origin, the origins below that explain it.
-
-    Bottom-up over the pre-order list. A node that re-reads another (a CTE Scan) may come
-    after what it reads in pre-order, so a second pass picks those links up.
-    """
-    if not any(node.origin for node in nodes):
-        return
-    below: dict[int, list[int]] = {}
-    passes = 2 if any(r.reads is not None for r in roles) else 1
-    for _ in range(passes):
-        for node in reversed(nodes):
-            _collect(node, nodes, roles, below, threshold)
-
-
 def _collect(node: PlanNode, nodes: list[PlanNode], roles: list[Role], below: dict[int, list[int]],
              threshold: float) -> None:
     found: list[int] = []
+    seen: set[int] = set()
     feeds = [c for c in node.children if c in below and nodes[c].is_input_edge]
     if roles[node.id].reads is not None and roles[node.id].reads in below:
         feeds.append(roles[node.id].reads)
     for child in feeds:
         for origin in below[child]:
-            if origin not in found:
+            if origin not in seen:
+                seen.add(origin)
                 found.append(origin)
     if not found and not node.origin:
         return

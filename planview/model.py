@@ -8,7 +8,10 @@ keys that have no field here are kept, unchanged, in `PlanNode.extra`.
 from __future__ import annotations
 
 from dataclasses import dataclass, field
-from typing import Any
+from typing import TYPE_CHECKING, Any
+
+if TYPE_CHECKING:
+    from .index import PlanIndex
 
 
 @dataclass
@@ -119,6 +122,8 @@ class ParsedPlan:
     engine_version: str | None = None
     has_actuals: bool = True
     notes: list[str] = field(default_factory=list)
+    index: PlanIndex | None = field(default=None, repr=False, compare=False)
+    """Built once by the check (`planview.index.index_of`); every later pass reads it."""
 
 
 @dataclass

@@ -11,8 +11,8 @@ from __future__ import annotations
 
 from ..inert import UnquotableName, refused_fix
 from . import correlation, default_selectivity, range_gap, skew, stale_statistics
-from .context import Candidate, Context, build_context, fmt_rows
-from .impact import impact_of
+from .context import Candidate, Context, build_context, fmt_rows, relation_map
+from .impact import ImpactWalk
 
 RULES = (
     ("correlation", correlation.rule),
@@ -27,11 +27,18 @@ __all__ = ["CAUSES", "RULES", "Candidate", "Context", "diagnose"]
 
 
 def diagnose(plan, rules=RULES) -> None:
-    """Fill cause, evidence, fix, caution and impact of every finding, then rank them."""
+    """Fill cause, evidence, fix, caution and impact of every finding, then rank them.
+
+    What every finding shares (the relation map, the walk up to the decisions) is made once
+    here, so the work per finding stays local to its node."""
+    if not plan.findings:
+        return
+    relation_of = relation_map(plan)
+    impact = ImpactWalk(plan)
     names = table_parts(plan)
     for finding in plan.findings:
         node = plan.nodes[finding.node]
-        ctx = build_context(plan, node)
+        ctx = build_context(plan, node, relation_of)
         candidates: list[Candidate] = []
         checked: list[str] = []
         for name, rule in rules:
@@ -46,7 +53,7 @@ def diagnose(plan, rules=RULES) -> None:
                 candidates.append(candidate)
         candidates.sort(key=lambda c: -c.score)
         _fill(plan, finding, node, ctx, candidates, checked, names)
-        finding.impact = impact_of(plan, node)
+        finding.impact = impact.of(node)
     plan.findings.sort(key=lambda f: (-(f.impact.get("ms") or 0.0), -(f.impact.get("rows") or 0.0),
                                       -f.own_q_error))
     for rank, finding in enumerate(plan.findings, 1):

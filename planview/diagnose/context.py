@@ -3,10 +3,13 @@
 from __future__ import annotations
 
 import math
+from collections import ChainMap
+from collections.abc import Mapping
 from dataclasses import dataclass, field
 from itertools import combinations
 from typing import Any
 
+from ..index import relation_name
 from .clauses import Clause, merge_ranges, parse_condition
 
 RESTRICTION_KINDS = ("filter", "index_cond", "tid_cond", "recheck_cond")
@@ -33,7 +36,7 @@ class Context:
     node: Any
     plan: Any
     clauses: list[Clause]
-    relation_of: dict[str | None, str]
+    relation_of: Mapping[str | None, str]
     est_total: float
     actual_total: float
     own_log10_ratio: float
@@ -137,32 +140,24 @@ def relation_map(plan) -> dict[str | None, str]:
     """Alias (and bare relation name) to schema-qualified relation, from the plan's scans."""
     mapping: dict[str | None, str] = {}
     for node in plan.nodes:
-        if node.relation:
-            qualified = f"{node.schema}.{node.relation}" if node.schema else node.relation
+        qualified = relation_name(node)
+        if qualified:
             mapping.setdefault(node.alias or node.relation, qualified)
             mapping.setdefault(node.relation, qualified)
     return mapping
 
 
-def build_context(plan, node) -> Context:
+def build_context(plan, node, relation_of: Mapping[str | None, str] | None = None) -> Context:
+    """What the rules see of one origin. `relation_of` is the plan's `relation_map`, made
+    once per plan by the caller (made here when not given)."""
     nodes = plan.nodes
     dialect = plan.sql_dialect
-    relation_of = relation_map(plan)
-    own_relation = (f"{node.schema}.{node.relation}" if node.schema else node.relation) if node.relation else None
-    if own_relation is None:
-        # a join or grouping node: unqualified names belong to the one relation below, if one
-        below = set()
-        todo = list(node.children)
-        while todo:
-            current = nodes[todo.pop()]
-            if current.relation:
-                below.add(f"{current.schema}.{current.relation}" if current.schema else current.relation)
-            todo.extend(current.children)
-        if len(below) == 1:
-            own_relation = below.pop()
+    if relation_of is None:
+        relation_of = relation_map(plan)
+    # a join or grouping node: unqualified names belong to the one relation below, if one
+    own_relation = relation_name(node) or plan.index.sole_relation_below(node.id)
     if own_relation:
-        relation_of = dict(relation_of)
-        relation_of[None] = own_relation
+        relation_of = ChainMap({None: own_relation}, relation_of)
     sources = [node]
     # a bitmap heap scan's index conditions live on its bitmap children
     for child_id in node.children:

@@ -20,21 +20,55 @@ def node_ms(node) -> float | None:
     return node.actual_total_ms * (node.starts or 1)
 
 
-def impact_of(plan, origin) -> dict:
+JOIN_RULES = ("join", "semi_outer", "semi_inner")
+
+
+class ImpactWalk:
+    """The walk from each origin up to the decision that rode on it, for one plan.
+
+    Made once per plan: runs of pass-through parents (which carry every error) are skipped in
+    one step, and each node's `inherits_from` is a set, so a finding's walk costs one step per
+    ancestor that inherits from it, never a scan of the tree or of a list."""
+
+    def __init__(self, plan):
+        self.plan = plan
+        nodes = plan.nodes
+        climb = list(range(len(nodes)))
+        for node in plan.index.walk():  # pre-order: a parent's entry is final before its children's
+            if node.parent is not None and node.is_input_edge and nodes[node.parent].own_rule == "pass":
+                climb[node.id] = climb[node.parent]
+        self._climb = climb
+        self._inherits: dict[int, set[int]] = {}
+
+    def _inherits_from(self, node) -> set[int]:
+        found = self._inherits.get(node.id)
+        if found is None:
+            found = self._inherits[node.id] = set(node.inherits_from)
+        return found
+
+    def of(self, origin) -> dict:
+        plan = self.plan
+        nodes = plan.nodes
+        statement = plan.statements[origin.statement] if origin.statement < len(plan.statements) else None
+        query_ms = statement.execution_ms if statement else None
+        decision = None
+        walker = origin
+        while True:
+            walker = nodes[self._climb[walker.id]]
+            if walker.parent is None:
+                break
+            parent = nodes[walker.parent]
+            if not walker.is_input_edge or origin.id not in self._inherits_from(parent):
+                break
+            if parent.own_rule in JOIN_RULES:
+                decision = parent
+                break
+            walker = parent
+        return _impact(plan, origin, decision, walker, query_ms)
+
+
+def _impact(plan, origin, decision, walker, query_ms) -> dict:
     nodes = plan.nodes
-    statement = plan.statements[origin.statement] if origin.statement < len(plan.statements) else None
-    query_ms = statement.execution_ms if statement else None
-    decision = None
-    walker = origin
-    while walker.parent is not None:
-        parent = nodes[walker.parent]
-        carries = origin.id in parent.inherits_from or parent.own_rule == "pass"
-        if not carries or not walker.is_input_edge:
-            break
-        if parent.own_rule in ("join", "semi_outer", "semi_inner"):
-            decision = parent
-            break
-        walker = parent
     target = decision or origin
     ms = node_ms(target)
     text = ""
@@ -42,7 +76,7 @@ def impact_of(plan, origin) -> dict:
         inner = [nodes[c] for c in decision.children if nodes[c].parent_relationship == "Inner"]
         outer = [nodes[c] for c in decision.children if nodes[c].parent_relationship == "Outer"]
         side = inner[0] if inner else None
-        in_inner = side is not None and origin.id in _subtree_ids(nodes, side)
+        in_inner = side is not None and plan.index.contains(side.id, origin.id)
         if side is not None and not in_inner and side.starts and side.starts > 1 and outer:
             text = (f"{decision.label} (#{decision.id}) ran its inner side {side.starts:,.0f} times "
                     f"where {fmt_rows(outer[0].est_total)} were expected")
@@ -66,12 +100,3 @@ def impact_of(plan, origin) -> dict:
     return {"ms": round(ms, 3) if ms is not None else None,
             "share": round(min(1.0, ms / query_ms), 4) if ms is not None and query_ms else None,
             "node": target.id, "text": text, "rows": rows}
-
-
-def _subtree_ids(nodes, top) -> set[int]:
-    out, todo = set(), [top.id]
-    while todo:
-        current = todo.pop()
-        out.add(current)
-        todo.extend(nodes[current].children)
-    return out

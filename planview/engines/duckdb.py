@@ -14,11 +14,14 @@ show actual rows only, so such a plan is accepted and says that its estimates ar
 from __future__ import annotations
 
 import re
+from bisect import bisect_right, insort
+from collections.abc import Hashable
 from typing import Any
 
 from ..check import RULES as CHECK_RULES
 from ..check import Role
 from ..errors import PlanParseError
+from ..index import index_of
 from ..inert import check_name
 from ..model import Condition, ParsedPlan, PlanNode, Statement
 from ..source import MAX_DEPTH
@@ -419,10 +422,8 @@ _HEADERS = ("Query Profiling Information", "Total Time:")
 def _parse_text(text: str) -> ParsedPlan:
     lines = text.replace("\t", "    ").splitlines()
     boxes = _find_boxes(lines)
-    nested = [b for b in boxes if any(o is not b and o["top"] < b["top"] and o["bottom"] > b["bottom"]
-                                      and o["left"] < b["left"] and o["right"] > b["right"]
-                                      for o in boxes)]
-    boxes = [b for b in boxes if b not in nested]
+    nested = _nested_boxes(boxes)
+    boxes = [b for i, b in enumerate(boxes) if i not in nested]
     operators = []
     total_ms = None
     for box in boxes:
@@ -440,16 +441,7 @@ def _parse_text(text: str) -> ParsedPlan:
         raise PlanParseError("no operator box found in DuckDB's text rendering", line=first,
                              engine=NAME, fmt="text")
     operators.sort(key=lambda b: (b["top"], b["left"]))
-    parents: dict[int, int | None] = {}
-    for i, box in enumerate(operators):
-        best = None
-        for j, other in enumerate(operators):
-            if j == i or other["bottom"] >= box["top"] or other["left"] > box["left"]:
-                continue
-            if best is None or (other["left"], other["bottom"]) > (operators[best]["left"],
-                                                                     operators[best]["bottom"]):
-                best = j
-        parents[i] = best
+    parents = _pair_boxes(operators)
     kids: dict[int | None, list[int]] = {}
     for i in range(len(operators)):
         kids.setdefault(parents[i], []).append(i)
@@ -499,6 +491,58 @@ def _parse_text(text: str) -> ParsedPlan:
         version = "0.x"
     return ParsedPlan(engine=NAME, format="text", nodes=nodes, statements=statements,
                       engine_version=version, has_actuals=has_actuals, notes=notes)
+
+
+def _nested_boxes(boxes: list[dict]) -> set[int]:
+    """The boxes drawn inside another box (the double frame of a heading), by position.
+
+    A box lies inside another only if its top-left corner does, so each box looks for the
+    corners on its inner rows (a bisect a row) instead of comparing every pair of boxes."""
+    corners: dict[int, list[tuple[int, int]]] = {}
+    for i, box in enumerate(boxes):
+        corners.setdefault(box["top"], []).append((box["left"], i))
+    for row in corners.values():
+        row.sort()
+    nested: set[int] = set()
+    for outer in boxes:
+        for row in range(outer["top"] + 1, outer["bottom"]):
+            on_row = corners.get(row)
+            if not on_row:
+                continue
+            at = bisect_right(on_row, (outer["left"], len(boxes)))
+            while at < len(on_row) and on_row[at][0] < outer["right"]:
+                inner = boxes[on_row[at][1]]
+                if inner["bottom"] < outer["bottom"] and inner["right"] < outer["right"]:
+                    nested.add(on_row[at][1])
+                at += 1
+    return nested
+
+
+def _pair_boxes(operators: list[dict]) -> dict[int, int | None]:
+    """Each box's parent: of the boxes ending above its top and starting at or left of its
+    left edge, the one furthest right, and of those the lowest (the first when two tie).
+
+    One sweep down the page (`operators` sorted by top, then left): the boxes that have ended
+    are kept as their left edges (sorted) with the lowest box ending at each."""
+    by_bottom = sorted(range(len(operators)), key=lambda j: (operators[j]["bottom"], j))
+    lefts: list[int] = []
+    lowest_at: dict[int, tuple[int, int]] = {}  # left edge -> (bottom, index) of the lowest box
+    ended = 0
+    parents: dict[int, int | None] = {}
+    for i, box in enumerate(operators):
+        while ended < len(by_bottom) and operators[by_bottom[ended]]["bottom"] < box["top"]:
+            j = by_bottom[ended]
+            left, bottom = operators[j]["left"], operators[j]["bottom"]
+            known = lowest_at.get(left)
+            if known is None:
+                insort(lefts, left)
+                lowest_at[left] = (bottom, j)
+            elif bottom > known[0] or (bottom == known[0] and j < known[1]):
+                lowest_at[left] = (bottom, j)
+            ended += 1
+        at = bisect_right(lefts, box["left"])
+        parents[i] = lowest_at[lefts[at - 1]][1] if at else None
+    return parents
 
 
 def _find_boxes(lines: list[str]) -> list[dict]:
@@ -733,15 +777,26 @@ def role(node: PlanNode, nodes: list[PlanNode], parsed: ParsedPlan) -> Role:
     result.blocking = node.operator in BLOCKING
     result.limit = node.operator in LIMITS
     if node.operator == "CTE_SCAN":
-        index = (node.extra.get("extra_info") or {}).get("CTE Index")
-        for other in nodes:
-            if other.operator == "CTE" and other.statement == node.statement and other.children \
-                    and (other.extra.get("extra_info") or {}).get("Table Index") == index:
-                result.reads = other.children[0]
-                break
+        cte_index = (node.extra.get("extra_info") or {}).get("CTE Index")
+        if isinstance(cte_index, Hashable):
+            cte = index_of(parsed).first_by(_cte_key).get((node.statement, cte_index))
+        else:  # a list or an object where a number belongs: compare by value, as rare as odd
+            cte = next((o.id for o in nodes if o.operator == "CTE" and o.children
+                        and o.statement == node.statement
+                        and (o.extra.get("extra_info") or {}).get("Table Index") == cte_index), None)
+        if cte is not None:
+            result.reads = nodes[cte].children[0]
         if result.reads is None:
             result.rule = "source"
     return result
+
+
+def _cte_key(node: PlanNode) -> tuple[int, Any] | None:
+    """A CTE by its statement and table index (what a CTE_SCAN's "CTE Index" names)."""
+    if node.operator != "CTE" or not node.children:
+        return None
+    key = (node.statement, (node.extra.get("extra_info") or {}).get("Table Index"))
+    return key if isinstance(key[1], Hashable) else None
 
 
 def _count_or_none(value: Any) -> float | None:

@@ -16,6 +16,7 @@ from sqlglot import exp as sqlglot_exp
 
 from ..check import Role
 from ..errors import PlanParseError
+from ..index import index_of
 from ..inert import check_name, comment_text
 from ..model import Condition, ParsedPlan, PlanNode, Statement
 from ..source import MAX_DEPTH
@@ -192,12 +193,12 @@ def role(node: PlanNode, nodes: list[PlanNode], parsed: ParsedPlan) -> Role:
                 result.stops_inputs = dict(result.stops_inputs or {})
                 result.stops_inputs[child.id] = f"stopped early: {name} stops at its first match"
     if op == "CTE Scan" and node.cte_name:
-        wanted = f"CTE {node.cte_name}"
-        for other in nodes:
-            if other.statement == node.statement and other.subplan_name == wanted:
-                result.reads = other.id
-                break
+        result.reads = index_of(parsed).first_by(_subplan_key).get((node.statement, f"CTE {node.cte_name}"))
     return result
+
+
+def _subplan_key(node: PlanNode) -> tuple[int, str] | None:
+    return (node.statement, node.subplan_name) if node.subplan_name else None
 
 
 def _partial_divisor(node: PlanNode, nodes: list[PlanNode], parsed: ParsedPlan) -> float | None:

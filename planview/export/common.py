@@ -110,22 +110,19 @@ def node_state(node: dict[str, Any]) -> str:
     return "judged"
 
 
-def ancestors(by_id: dict[int, dict[str, Any]], node_id: int) -> list[int]:
-    out: list[int] = []
-    node = by_id.get(node_id)
-    while node is not None and node.get("parent") is not None and node["parent"] not in out:
-        out.append(node["parent"])
-        node = by_id.get(node["parent"])
-    return out
-
-
 def paths_to_origins(report: dict[str, Any]) -> set[int]:
-    """The origins and every node above them: what a large plan shows first."""
+    """The origins and every node above them: what a large plan shows first.
+
+    A walk up stops at the first node already kept (all above it are kept too), so the
+    paths cost one step per node kept, however many origins share them."""
     by_id = {n["id"]: n for n in report["nodes"]}
     keep: set[int] = set()
     for finding in report["findings"]:
-        keep.add(finding["node"])
-        keep.update(ancestors(by_id, finding["node"]))
+        node_id = finding["node"]
+        while node_id is not None and node_id not in keep:
+            keep.add(node_id)
+            node = by_id.get(node_id)
+            node_id = node.get("parent") if node is not None else None
     return keep
 
 
