@@ -29,7 +29,7 @@ psycopg = pytest.importorskip("psycopg")
 
 ROOT = Path(__file__).resolve().parents[1]
 MARKER = "MARKER-4711-do-not-print"
-TRAP = f"""CREATE FUNCTION trap() RETURNS int STABLE LANGUAGE plpgsql AS $$
+TRAP = """CREATE FUNCTION trap() RETURNS int STABLE LANGUAGE plpgsql AS $$
 BEGIN RAISE EXCEPTION 'TRAP %', (SELECT string_agg(note, ',') FROM secret_notes); END $$"""
 # Under standard_conforming_strings = off the server reads '\', ' as one string, so the rest,
 # up to the comment, is SQL: trap() is folded while the planner estimates b = trap()::text.

@@ -13,7 +13,7 @@ operator bracketed. What the server receives is what the tree says, nothing more
 >>> render_clause("(lower(email) = 'x'::text)")
 Traceback (most recent call last):
 ...
-planview.probe.clause_sql.UnsafeClause: it calls lower(), and only columns, constants, casts and comparisons are planned
+planview.probe.clause_sql.UnsafeClause: it calls lower()
 """
 
 from __future__ import annotations
