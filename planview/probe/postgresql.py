@@ -12,9 +12,10 @@ relation's schema and ``pg_temp`` last, a statement and a lock timeout. Catalogu
 written qualified with ``pg_catalog``.
 
 Refused: relations of the system (a relation, or a namespace other than ``public``, below
-FirstNormalObjectId, 16384, or a schema named ``pg_*`` or ``information_schema``), relations that are not tables, columns
-the connected role may not SELECT itself. Statistics of columns whose name or type marks
-them secret are counted, never shown; what is shown of other columns is capped and quoted.
+FirstNormalObjectId, 16384, or a schema named ``pg_*`` or ``information_schema``); relations
+that are not local tables (planning a foreign table may ask its remote server); columns the
+connected role may not SELECT itself. Statistics of columns whose name or type marks them
+secret are counted, never shown; what is shown of other columns is capped and quoted.
 """
 
 from __future__ import annotations
@@ -53,7 +54,7 @@ def connect(dsn: str, budget: Budget):
         import psycopg
     except ImportError:
         raise ProbeError("probing PostgreSQL needs psycopg: pip install 'psycopg[binary]'") from None
-    seconds = max(2, min(10, math.ceil(budget.remaining_ms() / 1000)))
+    seconds = max(2, min(10, math.ceil(budget.next_statement_ms() / 1000)))
     failure = None
     try:
         return psycopg.connect(dsn, autocommit=True, connect_timeout=seconds)
@@ -181,8 +182,11 @@ def _read_only(conn, budget: Budget):
             cur.execute("BEGIN TRANSACTION READ ONLY")
         cur.execute("SET LOCAL standard_conforming_strings = on")
         cur.execute(f"SET LOCAL lock_timeout = {min(budget.statement_ms, LOCK_TIMEOUT_MS)}")
+        timeout_ms = budget.next_statement_ms()
+        cur.execute(f"SET LOCAL statement_timeout = {int(timeout_ms)}")
         cur.execute("SELECT pg_catalog.current_schemas(false)::pg_catalog.text[]")
         session = _Session(cur, budget, list(cur.fetchone()[0] or []))
+        session.timeout_ms = timeout_ms
         cur.execute("SET LOCAL search_path = pg_catalog, pg_temp")
         yield session
     except ProbeError as exc:
@@ -299,8 +303,9 @@ def _relation(session: _Session, node, table: str, scans: dict) -> Relation:
     if system:
         raise ProbeError(f"{printable(nspname + '.' + relname, 120)} is a system catalogue: planview "
                          "does not probe the server's own tables")
-    if relkind not in ("r", "m", "p", "f"):
-        raise ProbeError(f"{printable(nspname + '.' + relname, 120)} is not a table (relkind {relkind!r})")
+    if relkind not in ("r", "m", "p"):  # planning a foreign table may ask its remote server
+        raise ProbeError(f"{printable(nspname + '.' + relname, 120)} is not a local table "
+                         f"(relkind {relkind!r})")
     session.cur.execute(f"SET LOCAL search_path = pg_catalog, {quote_ident(nspname)}, pg_temp")
     alias = (scan.alias if scan is not None and scan.alias else None) or relname
     return Relation(int(oid), nspname, relname, alias, float(reltuples), int(relpages))
