@@ -29,13 +29,17 @@ class _Parser(argparse.ArgumentParser):
 
 
 def _probe_arguments(argv: list[str]) -> tuple[str, ...]:
-    """The connection strings given to --probe, found before argparse (which may fail) runs."""
+    """The connection strings given to --probe (or an abbreviation argparse accepts), found
+    before argparse, which may fail, runs."""
     found = []
     for i, arg in enumerate(argv):
-        if arg == "--probe" and i + 1 < len(argv):
+        option, equals, value = arg.partition("=")
+        if len(option) < 4 or not "--probe".startswith(option):
+            continue
+        if equals:
+            found.append(value)
+        elif i + 1 < len(argv):
             found.append(argv[i + 1])
-        elif arg.startswith("--probe="):
-            found.append(arg.split("=", 1)[1])
     return tuple(found)
 
 

@@ -255,6 +255,24 @@ def test_cli_never_prints_the_password(trap_db, password_role, tmp_path):
         assert done.returncode == 2, done.stderr
         assert expect in done.stderr and "Traceback" not in done.stderr
         assert secret not in done.stdout + done.stderr, done.stderr
+    abbreviated = _run_cli("check", str(plan_path), "--prob=postgresql://user:s3cretpw@[bad/db")
+    assert abbreviated.returncode == 2 and "s3cretpw" not in abbreviated.stdout + abbreviated.stderr
     own_db = password_role.replace("dbname=postgres", f"dbname={trap_db.dbname}")
     good = _run_cli("check", str(plan_path), "--probe", f"{own_db} password=the-right-one")
     assert "probe #" in good.stdout and "the-right-one" not in good.stdout + good.stderr, good.stderr
+
+
+def test_probe_savepoint_cannot_write(trap_db):
+    """Inside the caller's transaction the probe's savepoint is read-only (PostgreSQL allows
+    SET LOCAL transaction_read_only = on at any point), and rolled back to afterwards."""
+    from planview.probe import Budget
+    from planview.probe.postgresql import _read_only
+
+    trap_db.execute("CREATE TABLE IF NOT EXISTS caller_work (n int)")
+    with trap_db.connect() as conn:
+        conn.execute("INSERT INTO caller_work VALUES (7)")
+        with pytest.raises(ProbeError, match="read-only transaction"):
+            with _read_only(conn, Budget(5000, 20000)) as session:
+                session.run("INSERT INTO caller_work VALUES (8)")
+        assert conn.execute("SELECT array_agg(n) FROM caller_work").fetchone()[0] == [7]
+        conn.execute("ROLLBACK")
