@@ -273,6 +273,6 @@ def test_probe_savepoint_cannot_write(trap_db):
         conn.execute("INSERT INTO caller_work VALUES (7)")
         with pytest.raises(ProbeError, match="read-only transaction"):
             with _read_only(conn, Budget(5000, 20000)) as session:
-                session.run("INSERT INTO caller_work VALUES (8)")
+                session.run("INSERT INTO public.caller_work VALUES (8)")
         assert conn.execute("SELECT array_agg(n) FROM caller_work").fetchone()[0] == [7]
         conn.execute("ROLLBACK")
