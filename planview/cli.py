@@ -1,20 +1,51 @@
 """The command line: ``planview check PATH|-`` and ``planview demo``.
 
 Exit codes of ``check``: 0 no origin at or above ``--fail-at``; 1 at least one (for CI
-gating); 2 unreadable input, with a one-line message on stderr and no traceback.
+gating); 2 unreadable input, with a one-line message on stderr and no traceback; 3 an
+internal error (a bug), whose traceback is printed. Every line on stderr, and every probe
+line, has the passwords of the ``--probe`` connection string (and anything shaped like a
+credential) masked.
 """
 
 from __future__ import annotations
 
 import argparse
 import sys
+import traceback
 from pathlib import Path
 
 from .errors import PlanviewError
+from .redact import redact
 
 
-def _parser() -> argparse.ArgumentParser:
-    parser = argparse.ArgumentParser(prog="planview", description=__doc__.splitlines()[0])
+class _Parser(argparse.ArgumentParser):
+    """argparse, whose error lines quote the arguments: masked like every other message."""
+
+    secrets: tuple[str, ...] = ()
+
+    def error(self, message: str):
+        self.print_usage(sys.stderr)
+        self.exit(2, f"{self.prog}: error: {redact(message, *self.secrets)}\n")
+
+
+def _probe_arguments(argv: list[str]) -> tuple[str, ...]:
+    """The connection strings given to --probe (or an abbreviation argparse accepts), found
+    before argparse, which may fail, runs."""
+    found = []
+    for i, arg in enumerate(argv):
+        option, equals, value = arg.partition("=")
+        if len(option) < 4 or not "--probe".startswith(option):
+            continue
+        if equals:
+            found.append(value)
+        elif i + 1 < len(argv):
+            found.append(argv[i + 1])
+    return tuple(found)
+
+
+def _parser(secrets: tuple[str, ...] = ()) -> argparse.ArgumentParser:
+    parser = _Parser(prog="planview", description=__doc__.splitlines()[0])
+    parser.secrets = secrets
     sub = parser.add_subparsers(dest="command", required=True)
     check = sub.add_parser("check", help="check one plan: a path, or - for standard input")
     check.add_argument("path", help="a plan file, or - to read standard input")
@@ -29,7 +60,8 @@ def _parser() -> argparse.ArgumentParser:
     check.add_argument("--markdown", metavar="OUT", help="also write the ticket body")
     check.add_argument("--width", type=int, help="terminal width for the table")
     check.add_argument("--probe", metavar="DSN",
-                       help="test each cause on a live PostgreSQL, read-only (a connection string)")
+                       help="test each cause on a live PostgreSQL, read-only (a connection string; "
+                            "a password file or PGPASSWORD keeps the password off the command line)")
     demo = sub.add_parser("demo", help="review every bundled plan (no server needed)")
     demo.add_argument("--out", default="planview-demo", help="folder for the HTML and Markdown")
     demo.add_argument("--plans", help="folder of plans (default: the bundled plans/)")
@@ -37,18 +69,24 @@ def _parser() -> argparse.ArgumentParser:
 
 
 def main(argv: list[str] | None = None) -> int:
-    args = _parser().parse_args(argv)
+    argv = sys.argv[1:] if argv is None else list(argv)
+    secrets = _probe_arguments(argv)
+    args = _parser(secrets).parse_args(argv)
     try:
         if args.command == "check":
             return _check(args)
         return _demo(args)
     except PlanviewError as exc:
-        print(f"planview: {exc}", file=sys.stderr)
+        print(f"planview: {redact(str(exc), *secrets)}", file=sys.stderr)
         return 2
     except KeyboardInterrupt:
         return 130
     except BrokenPipeError:
         return 0
+    except Exception:  # a bug: show where, never a password
+        sys.stderr.write("planview: internal error, please report it:\n"
+                         + redact(traceback.format_exc(), *secrets))
+        return 3
 
 
 def _check(args) -> int:
@@ -63,9 +101,10 @@ def _check(args) -> int:
         from .probe import probe
 
         for result in probe(plan, args.probe):
-            sys.stdout.write(f"probe #{result.node} {result.cause}: {result.verdict}: {result.summary}\n")
+            line = f"probe #{result.node} {result.cause}: {result.verdict}: {result.summary}"
+            sys.stdout.write(redact(line, args.probe) + "\n")
             for item in result.checks:
-                sys.stdout.write(f"   {item.says}\n")
+                sys.stdout.write(f"   {redact(item.says, args.probe)}\n")
     if args.html:
         plan.to_html(args.html)
     if args.markdown:

@@ -11,7 +11,8 @@ import pytest
 import planview
 from planview.errors import ProbeError
 from planview.probe import probe
-from planview.probe.postgresql import safe_clause
+from planview.probe.clause_sql import UnsafeClause, quote_ident, quote_literal, render_clause
+from planview.probe.postgresql import looks_secret, safe_clause
 
 EXPECT = {"correlated": "supports", "nested_loop_inherited": "supports", "skewed": "supports",
           "range_gap": "supports", "stale": "supports"}
@@ -79,3 +80,46 @@ def test_probe_without_a_server_is_a_clear_error():
     plan = planview.load((__import__("plan_files").path("16", "correlated", "json")).read_text())
     with pytest.raises(ProbeError):
         probe(plan, "host=/nonexistent-socket-dir dbname=postgres connect_timeout=2")
+
+
+def test_more_string_forms_are_not_sent():
+    """String forms whose meaning depends on settings, or that hide a call (PostgreSQL manual,
+    "Lexical Structure": escape strings, dollar quoting, adjacent literals, U& strings), and
+    casts to types that are not built in."""
+    for text in [r"(x = '\')", "(x = E'a')", "(x = $$a$$)", "(x = 'a' 'b')", r"(x = U&'d\0061')",
+                 "(x = 'v'::mood)", "(x = '1'::regclass)", "(x = 'a'::text COLLATE \"C\")", "(1 = 1)",
+                 "(x ~ 'a')", "(x = (SELECT 1))", "(a.b.c = 1)"]:
+        assert not safe_clause(text), text
+
+
+def test_clauses_are_rendered_bracketed_from_the_tree():
+    """Each operator is bracketed, so an OR group joined with AND keeps its meaning."""
+    rendered = render_clause("(a = 1) OR (b = 'x'::text)")
+    assert rendered.sql == ('(("a" OPERATOR(pg_catalog.=) 1) OR '
+                            "(\"b\" OPERATOR(pg_catalog.=) CAST('x' AS pg_catalog.text)))")
+    assert [name for _, name in rendered.columns] == ["a", "b"]
+    assert render_clause('(o."Town" = 1)', qualifiers={"o": "o"}).columns == (("o", "Town"),)
+    with pytest.raises(UnsafeClause, match="not to the table probed"):
+        render_clause("(p.town = 1)", qualifiers={"o": "o"})
+
+
+@pytest.mark.pg
+def test_quoting_survives_the_real_parser(pg_servers):
+    """The server's own parser reads back each hostile value and name exactly as given, with
+    the setting the probe pins (standard_conforming_strings = on)."""
+    values = ["it's", "'; DROP TABLE t; --", "$$ $q$", "/* x", "line\nbreak", "tab\tand é ☃", "''''"]
+    names = ['we"ird', "Mixed Case", "select", 'x"; DROP TABLE t; --']
+    with pg_servers.connect(autocommit=True) as conn:
+        conn.execute("SET standard_conforming_strings = on")
+        for value in values:
+            assert conn.execute(f"SELECT {quote_literal(value)}::text").fetchone()[0] == value
+        for name in names:
+            assert conn.execute(f"SELECT 1 AS {quote_ident(name)}").description[0].name == name
+
+
+def test_secret_looking_columns():
+    """common practice: names that hold credentials, and binary columns."""
+    assert all(looks_secret(n) for n in ("rolpassword", "passwd", "api_key", "apiKey", "reset_token",
+                                         "pw_hash", "salt", "key", "client_secret"))
+    assert looks_secret("payload", "bytea")
+    assert not any(looks_secret(n) for n in ("o_custkey", "town", "passenger_count", "created_at", "monkey"))
