@@ -2,7 +2,7 @@
 
 Exit codes of ``check``: 0 no origin at or above ``--fail-at``; 1 at least one (for CI
 gating); 2 unreadable input, with a one-line message on stderr and no traceback; 3 an
-internal error (a bug), whose traceback is printed. Every line on stderr, and every probe
+internal error (a bug): one line, and its traceback when ``PLANVIEW_DEBUG`` is set. Every line on stderr, and every probe
 line, has the passwords of the ``--probe`` connection string (and anything shaped like a
 credential) masked.
 """
@@ -10,6 +10,7 @@ credential) masked.
 from __future__ import annotations
 
 import argparse
+import os
 import sys
 import traceback
 from pathlib import Path
@@ -83,9 +84,12 @@ def main(argv: list[str] | None = None) -> int:
         return 130
     except BrokenPipeError:
         return 0
-    except Exception:  # a bug: show where, never a password
-        sys.stderr.write("planview: internal error, please report it:\n"
-                         + redact(traceback.format_exc(), *secrets))
+    except Exception as exc:  # a bug: one line by default, the traceback on request, never a password
+        if os.environ.get("PLANVIEW_DEBUG"):
+            sys.stderr.write(redact(traceback.format_exc(), *secrets))
+        line = f"planview: internal error ({type(exc).__name__}: {exc}); please report it, " \
+               "with PLANVIEW_DEBUG=1 set for the traceback"
+        sys.stderr.write(redact(" ".join(line.split()), *secrets) + "\n")
         return 3
 
 

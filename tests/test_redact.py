@@ -86,3 +86,26 @@ def test_probe_error_holds_no_secret_in_str_repr_or_traceback(dsn, secret):
     shown = [str(exc), repr(exc), "".join(traceback.format_exception(exc))]
     assert all(secret not in text for text in shown), shown
     assert exc.__cause__ is None and exc.__context__ is None
+
+
+def test_an_internal_error_is_one_masked_line(monkeypatch, capsys, tmp_path):
+    """A bug in planview (here: the reader raising something it should not) reaches the user
+    as one line with exit 3, no traceback unless PLANVIEW_DEBUG is set, and no password."""
+    import planview.plan
+    from planview.cli import main
+
+    def broken(*args, **kwargs):
+        raise RuntimeError("lost while reading postgresql://app:hunter2pw@db/shop")
+
+    monkeypatch.setattr(planview.plan, "load", broken)
+    plan_file = tmp_path / "p.txt"
+    plan_file.write_text("Seq Scan on t  (cost=0.00..1.00 rows=1 width=4)\n")
+    argv = ["check", str(plan_file), "--probe", "postgresql://app:hunter2pw@db/shop"]
+    monkeypatch.delenv("PLANVIEW_DEBUG", raising=False)
+    assert main(argv) == 3
+    err = capsys.readouterr().err
+    assert "hunter2pw" not in err and "Traceback" not in err and len(err.strip().splitlines()) == 1
+    monkeypatch.setenv("PLANVIEW_DEBUG", "1")
+    assert main(argv) == 3
+    err = capsys.readouterr().err
+    assert "Traceback" in err and "hunter2pw" not in err
