@@ -21,7 +21,10 @@ EXPECTED_SUFFIX = ".expected.json"
 # Files under plans/ that are not plans: documentation, the scenario, the capture scripts, the
 # capture manifest and the expected files themselves.
 NOT_PLANS = ("README.md", "ENGINES.md", "FIXTURES.md", "scenario.sql", "manifest.json",
-             "capture_postgresql.py", "capture_engines.py")
+             "capture_postgresql.py", "capture_engines.py", "capture_tpch.py")
+PAIRS_PENDING = ("tpch",)
+"""Folders of real captures whose expected files are still being decided by hand (the TPC-H
+captures); until then tests/test_tpch_captures.py holds them to their node counts and rows."""
 
 
 def _expected_files() -> list[Path]:
@@ -30,7 +33,7 @@ def _expected_files() -> list[Path]:
 
 def _plan_files() -> set[Path]:
     return {p for p in PLANS.rglob("*") if p.is_file() and p.name not in NOT_PLANS
-            and not p.name.endswith(EXPECTED_SUFFIX)}
+            and not p.name.endswith(EXPECTED_SUFFIX) and p.relative_to(PLANS).parts[0] not in PAIRS_PENDING}
 
 
 def _pairs() -> list:
