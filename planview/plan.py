@@ -10,7 +10,7 @@ from . import engines
 from .check import CheckOptions, check
 from .errors import PlanParseError
 from .model import Finding, ParsedPlan, PlanNode, Statement
-from .source import read_text
+from .source import read_text, without_lone_surrogates
 
 READER_ERROR = "could not read this plan: the reader failed on it"
 
@@ -131,8 +131,11 @@ def load(source: str | bytes | os.PathLike, *, engine: str | None = None, fmt: s
     """
     if not (isinstance(threshold, (int, float)) and threshold > 1):
         raise PlanParseError(f"threshold must be a q-error above 1, got {threshold!r}")
-    text = read_text(source)
+    text, replaced = without_lone_surrogates(read_text(source))
     module, found_fmt = engines.detect(text, engine=engine, fmt=fmt)
+    if found_fmt in ("json", "yaml"):
+        text, escaped = without_lone_surrogates(text, escapes=True)
+        replaced += escaped
     try:
         parsed = module.parse(text, found_fmt)
     except PlanParseError:
@@ -147,4 +150,7 @@ def load(source: str | bytes | os.PathLike, *, engine: str | None = None, fmt: s
                              fmt=found_fmt) from None
     if not parsed.nodes:
         raise PlanParseError("no operator found", engine=module.NAME, fmt=found_fmt)
+    if replaced:
+        parsed.notes.append(f"{replaced:,} lone UTF-16 surrogate(s) (\\ud800-\\udfff) in the "
+                            "input were read as U+FFFD: they cannot be printed or saved as UTF-8")
     return Plan(parsed, module, CheckOptions(threshold=float(threshold)), source=text)

@@ -15,6 +15,7 @@ from ..check import Role
 from ..errors import PlanParseError
 from ..model import Condition, ParsedPlan, PlanNode, Statement
 from ..source import MAX_DEPTH
+from ._dispatch import BadNumber, bad_number_error, json_decoder
 
 NAME = "postgresql"
 FORMATS = ("text", "json", "xml", "yaml")
@@ -385,7 +386,7 @@ def parse(text: str, fmt: str) -> ParsedPlan:
 # ---------------------------------------------------------------------------------------
 
 def _read_json(text: str, numbers: list[int]) -> list[dict]:
-    decoder = json.JSONDecoder()
+    decoder = json_decoder(text)
     docs: list[Any] = []
     pos = 0
     length = len(text)
@@ -400,6 +401,8 @@ def _read_json(text: str, numbers: list[int]) -> list[dict]:
             line = numbers[min(exc.lineno, len(numbers)) - 1] if numbers else exc.lineno
             raise PlanParseError(f"invalid JSON: {exc.msg} (column {exc.colno})",
                                  line=line, engine=NAME, fmt="json") from None
+        except BadNumber as exc:
+            raise bad_number_error(exc, text, NAME, numbers) from None
         except RecursionError:
             raise PlanParseError("JSON nested too deeply for the JSON reader (about 500 plan "
                                  "levels at most); refused. The text format of the same plan "
@@ -421,9 +424,14 @@ def _read_json(text: str, numbers: list[int]) -> list[dict]:
 def _read_yaml(text: str, numbers: list[int]) -> list[dict]:
     import yaml
 
-    loader = getattr(yaml, "CSafeLoader", yaml.SafeLoader)
+    loader_class = getattr(yaml, "CSafeLoader", yaml.SafeLoader)
+    loader = loader_class(text)
     try:
-        docs = list(yaml.load_all(text, Loader=loader))
+        docs = []
+        while loader.check_node():
+            node = loader.get_node()
+            _refuse_aliases(node, text, numbers, loader_class)
+            docs.append(loader.construct_document(node))
     except yaml.YAMLError as exc:
         mark = getattr(exc, "problem_mark", None)
         line = None
@@ -433,6 +441,15 @@ def _read_yaml(text: str, numbers: list[int]) -> list[dict]:
         raise PlanParseError(f"invalid YAML: {problem}", line=line, engine=NAME, fmt="yaml") from None
     except RecursionError:
         raise PlanParseError("YAML nested too deeply; refused", engine=NAME, fmt="yaml") from None
+    except PlanParseError:
+        raise
+    except ValueError as exc:  # int() refuses a number of more than 4,300 digits
+        found = re.search(r"\d{4000,}", text)
+        line = _line_of(text, found.start(), numbers) if found else None
+        raise PlanParseError(f"a number too long to read ({exc})", line=line, engine=NAME,
+                             fmt="yaml") from None
+    finally:
+        loader.dispose()
     statements: list[dict] = []
     for doc in docs:
         if doc is None:
@@ -445,6 +462,45 @@ def _read_yaml(text: str, numbers: list[int]) -> list[dict]:
             item["__path__"] = f"[{len(statements)}]"
             statements.append(item)
     return statements
+
+
+def _refuse_aliases(root, text: str, numbers: list[int], loader_class) -> None:
+    """Refuse a YAML document that reuses a node (``&anchor`` ... ``*alias``), before it is built.
+
+    PostgreSQL never writes anchors or aliases, and expanding them (or merging them with
+    ``<<``) costs time and memory exponential in the text's size. The composed graph is
+    linear in the text, so one walk over it finds any node reached twice.
+    """
+    import yaml
+
+    seen: set[int] = set()
+    todo = [root]
+    while todo:
+        node = todo.pop()
+        if id(node) in seen:
+            line = _first_alias_line(text, loader_class)
+            if line is not None and numbers:
+                line = numbers[min(line - 1, len(numbers) - 1)]
+            raise PlanParseError("YAML aliases (*name) are refused: PostgreSQL never writes them, "
+                                 "and expanding them costs unbounded memory", line=line,
+                                 engine=NAME, fmt="yaml")
+        seen.add(id(node))
+        if isinstance(node, yaml.SequenceNode):
+            todo.extend(node.value)
+        elif isinstance(node, yaml.MappingNode):
+            for key, value in node.value:
+                todo.append(key)
+                todo.append(value)
+
+
+def _first_alias_line(text: str, loader_class) -> int | None:
+    """The 1-based line of the first alias, read from the event stream (the error path only)."""
+    import yaml
+
+    for event in yaml.parse(text, Loader=loader_class):
+        if isinstance(event, yaml.AliasEvent):
+            return event.start_mark.line + 1
+    return None
 
 
 _XML_KEY_FIXES = {"One-Time-Filter": "One-Time Filter", "Pre-sorted-Groups": "Pre-sorted Groups",
@@ -892,6 +948,11 @@ def _parse_buffers(value: str, into: dict) -> None:
                 into[key] = float(count)
 
 
+# Keys the tree is built from: a text detail line may not set them.
+_STRUCTURAL_KEYS = frozenset({"Plans", "Workers", "Node Type", "Parent Relationship",
+                              "Subplan Name"})
+
+
 def _detail_line(frame: _Frame, content: str, lineno: int) -> None:
     node = frame.node
     frame.worker = None
@@ -916,6 +977,10 @@ def _detail_line(frame: _Frame, content: str, lineno: int) -> None:
         key, value = content.rstrip(":"), ""
     key = key.strip()
     value = value.strip()
+    if key in _STRUCTURAL_KEYS or key.startswith("__"):
+        raise PlanParseError(f"a {key!r} detail line is not part of PostgreSQL's text format "
+                             "(the tree is read from the '->' lines); refused", line=lineno,
+                             engine=NAME, fmt="text")
     frame.last_key = key
     if key == "Buffers":
         _parse_buffers(value, node)
@@ -991,13 +1056,15 @@ def _num(value: Any, key: str, path: str, fmt: str, line: int | None) -> float |
     if value is None:
         return None
     kind = type(value)
-    if (kind is int or kind is float) and value >= 0 and value != float("inf"):
+    if (kind is int or kind is float) and 0 <= value < _FLOAT_MAX:
         return float(value)
     if isinstance(value, bool):
         raise PlanParseError(f"expected a number, got {value!r}", key=f"{path}.\"{key}\"",
                              line=line, engine=NAME, fmt=fmt)
-    if isinstance(value, (int, float)):
-        number = float(value)
+    if isinstance(value, float):
+        number = value
+    elif isinstance(value, int):
+        number = float(value) if abs(value) < _FLOAT_MAX else float("inf")
     elif isinstance(value, str):
         try:
             number = float(value.strip())
@@ -1202,7 +1269,7 @@ _LATER_NUMBERS = {"Actual Loops": "starts", "Actual Rows": "actual_rows",
                   "Actual Startup Time": "actual_startup_ms", "Actual Total Time": "actual_total_ms",
                   "Workers Planned": "workers_planned", "Workers Launched": "workers_launched"}
 _SKIP = {"Node Type", "Plans", "Workers", "Parallel Aware"}
-_INF = float("inf")
+_FLOAT_MAX = 1.7976931348623157e308  # compares with a huge int without converting it
 # key -> (what to do, field): one dictionary look-up a key while building a node
 _ACTIONS: dict[str, tuple[int, str | None]] = {
     **{k: (0, v) for k, v in _STR_FIELDS.items()},
@@ -1241,7 +1308,7 @@ def _node_from_dict(raw: dict, node_id: int, parent: int | None, depth: int, stm
             if value is not None:
                 setattr(node, attr, value if value.__class__ is str else _text(value, key, path, fmt, line))
         elif code == 1:  # a number field
-            if (value.__class__ is float or value.__class__ is int) and 0 <= value < _INF:
+            if (value.__class__ is float or value.__class__ is int) and 0 <= value < _FLOAT_MAX:
                 setattr(node, attr, float(value))
             else:
                 setattr(node, attr, _num(value, key, path, fmt, line))
