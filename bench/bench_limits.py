@@ -221,7 +221,7 @@ def write_plan(fmt: str, megabytes: float, path: Path, shape: str = "dense") -> 
 # The hostile cases
 # ---------------------------------------------------------------------------------------
 
-SCAN_LINE = "Seq Scan on t  (cost=0.00..1.00 rows=1 width=4) (actual time=0.010..0.020 rows=1 loops=1)\n"
+SCAN_LINE = "Seq Scan on t  (cost=0.00..1.00 rows=1 width=4) (actual time=0.010..0.020 rows=5000 loops=1)\n"
 
 
 def yaml_alias_bomb() -> str:
@@ -319,7 +319,7 @@ def run_case(path: Path, export: bool, timeout: float = 300) -> tuple[float, flo
     start = time.perf_counter()
     child = subprocess.Popen([sys.executable, "-c", CHILD, str(path), "1" if export else "0"],
                              stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True,
-                             env={**os.environ, "PYTHONPATH": str(ROOT)})
+                             env={**os.environ, "PYTHONPATH": str(ROOT)}, cwd=ROOT)
     try:
         out, err = child.communicate(timeout=timeout)
     except subprocess.TimeoutExpired:

@@ -992,9 +992,24 @@ def _detail_line(frame: _Frame, content: str, lineno: int) -> None:
             raise PlanParseError(f"{key} is not a number: {value!r}", line=lineno, engine=NAME,
                                  fmt="text") from None
     elif key in node and key in CONDITION_KEYS:
-        node[key] = f"{node[key]} AND {value}"
+        _append(node, key, " AND ", value)
     else:
         node[key] = value
+        if "__parts__" in node:
+            node["__parts__"].pop(key, None)
+
+
+def _append(node: dict, key: str, separator: str, value: str) -> None:
+    """Add to a value that repeated lines build up, as pieces joined once by the builder
+    (joining on every line costs time quadratic in the number of lines)."""
+    parts = node.get("__parts__")
+    if parts is None:
+        parts = node["__parts__"] = {}
+    pieces = parts.get(key)
+    if pieces is None:
+        pieces = parts[key] = [node[key]]
+    pieces.append(separator)
+    pieces.append(value)
 
 
 def _nested_detail_line(frame: _Frame, content: str, lineno: int) -> None:
@@ -1008,7 +1023,12 @@ def _nested_detail_line(frame: _Frame, content: str, lineno: int) -> None:
         return
     key = frame.last_key or "Details"
     previous = frame.node.get(key)
-    frame.node[key] = f"{previous}\n{content}" if isinstance(previous, str) and previous else content
+    if isinstance(previous, str) and previous:
+        _append(frame.node, key, "\n", content)
+    else:
+        frame.node[key] = content
+        if "__parts__" in frame.node:
+            frame.node["__parts__"].pop(key, None)
 
 
 def _statement_text_line(stmt: dict, content: str, lineno: int) -> str:
@@ -1285,6 +1305,10 @@ def _node_from_dict(raw: dict, node_id: int, parent: int | None, depth: int, stm
                     path: str, fmt: str) -> PlanNode:
     """One pass over the node's keys: each key goes to its field, or to `extra`."""
     line = raw.get("__line__")
+    parts = raw.get("__parts__")
+    if parts:
+        for key, pieces in parts.items():
+            raw[key] = "".join(pieces)
     node_type = raw.get("Node Type")
     if not isinstance(node_type, str) or not node_type:
         raise PlanParseError("missing or invalid \"Node Type\"", key=f"{path}.\"Node Type\"",
