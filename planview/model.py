@@ -11,7 +11,7 @@ from dataclasses import dataclass, field
 from typing import Any
 
 
-@dataclass
+@dataclass(slots=True)
 class Condition:
     """One condition the engine printed on a node.
 
@@ -95,7 +95,7 @@ class PlanNode:
         return self.parent_relationship not in ("InitPlan", "SubPlan")
 
 
-@dataclass
+@dataclass(slots=True)
 class Statement:
     """One statement of a paste: its root node and the statement-level figures."""
 
@@ -121,7 +121,7 @@ class ParsedPlan:
     notes: list[str] = field(default_factory=list)
 
 
-@dataclass
+@dataclass(slots=True)
 class Finding:
     """One origin of a misestimate: where it was introduced, and what probably caused it.
 

@@ -9,6 +9,8 @@ from __future__ import annotations
 
 import json
 import re
+import sys
+from functools import lru_cache
 from typing import Any
 
 from ..check import Role
@@ -424,14 +426,8 @@ def _read_json(text: str, numbers: list[int]) -> list[dict]:
 def _read_yaml(text: str, numbers: list[int]) -> list[dict]:
     import yaml
 
-    loader_class = getattr(yaml, "CSafeLoader", yaml.SafeLoader)
-    loader = loader_class(text)
     try:
-        docs = []
-        while loader.check_node():
-            node = loader.get_node()
-            _refuse_aliases(node, text, numbers, loader_class)
-            docs.append(loader.construct_document(node))
+        docs = _yaml_documents(text, numbers)
     except yaml.YAMLError as exc:
         mark = getattr(exc, "problem_mark", None)
         line = None
@@ -439,17 +435,6 @@ def _read_yaml(text: str, numbers: list[int]) -> list[dict]:
             line = numbers[min(mark.line, len(numbers) - 1)] if numbers else mark.line + 1
         problem = getattr(exc, "problem", None) or str(exc).splitlines()[0]
         raise PlanParseError(f"invalid YAML: {problem}", line=line, engine=NAME, fmt="yaml") from None
-    except RecursionError:
-        raise PlanParseError("YAML nested too deeply; refused", engine=NAME, fmt="yaml") from None
-    except PlanParseError:
-        raise
-    except ValueError as exc:  # int() refuses a number of more than 4,300 digits
-        found = re.search(r"\d{4000,}", text)
-        line = _line_of(text, found.start(), numbers) if found else None
-        raise PlanParseError(f"a number too long to read ({exc})", line=line, engine=NAME,
-                             fmt="yaml") from None
-    finally:
-        loader.dispose()
     statements: list[dict] = []
     for doc in docs:
         if doc is None:
@@ -464,43 +449,98 @@ def _read_yaml(text: str, numbers: list[int]) -> list[dict]:
     return statements
 
 
-def _refuse_aliases(root, text: str, numbers: list[int], loader_class) -> None:
-    """Refuse a YAML document that reuses a node (``&anchor`` ... ``*alias``), before it is built.
+_YAML_INT = re.compile(r"[-+]?[0-9]+")
+_YAML_FLOAT = re.compile(r"[-+]?(?:[0-9]+(?:\.[0-9]*)?|\.[0-9]+)(?:[eE][-+]?[0-9]+)?")
+_YAML_WORDS = {"true": True, "True": True, "TRUE": True, "false": False, "False": False,
+               "FALSE": False, "null": None, "Null": None, "NULL": None, "~": None, "": None,
+               ".inf": float("inf"), ".Inf": float("inf"), "-.inf": float("-inf"),
+               ".nan": float("nan"), ".NaN": float("nan")}
+_YAML_MAX_NESTING = 2 * MAX_DEPTH + 16  # a plan level is a mapping inside a "Plans" list
 
-    PostgreSQL never writes anchors or aliases, and expanding them (or merging them with
-    ``<<``) costs time and memory exponential in the text's size. The composed graph is
-    linear in the text, so one walk over it finds any node reached twice.
+
+def _yaml_documents(text: str, numbers: list[int]) -> list[Any]:
+    """The documents of a YAML text, built straight from the parser's events.
+
+    PostgreSQL writes plain YAML: mappings, lists, quoted strings and plain numbers and
+    booleans, never an anchor, alias or tag. Those are refused where they stand, before
+    anything is expanded (nested aliases grow exponentially, and merging them with ``<<``
+    takes exponential time). Building from events keeps no node graph, so memory is the
+    result's alone.
     """
     import yaml
 
-    seen: set[int] = set()
-    todo = [root]
-    while todo:
-        node = todo.pop()
-        if id(node) in seen:
-            line = _first_alias_line(text, loader_class)
-            if line is not None and numbers:
-                line = numbers[min(line - 1, len(numbers) - 1)]
-            raise PlanParseError("YAML aliases (*name) are refused: PostgreSQL never writes them, "
-                                 "and expanding them costs unbounded memory", line=line,
-                                 engine=NAME, fmt="yaml")
-        seen.add(id(node))
-        if isinstance(node, yaml.SequenceNode):
-            todo.extend(node.value)
-        elif isinstance(node, yaml.MappingNode):
-            for key, value in node.value:
-                todo.append(key)
-                todo.append(value)
-
-
-def _first_alias_line(text: str, loader_class) -> int | None:
-    """The 1-based line of the first alias, read from the event stream (the error path only)."""
-    import yaml
-
+    loader_class = getattr(yaml, "CSafeLoader", yaml.SafeLoader)
+    docs: list[Any] = []
+    # each open container: (the container, the pending mapping key or None, its line)
+    stack: list[list[Any]] = []
     for event in yaml.parse(text, Loader=loader_class):
-        if isinstance(event, yaml.AliasEvent):
-            return event.start_mark.line + 1
-    return None
+        kind = event.__class__
+        if kind is yaml.AliasEvent:
+            raise PlanParseError("YAML aliases (*name) are refused: PostgreSQL never writes them, and "
+                                 "expanding them costs unbounded time and memory",
+                                 line=_yaml_line(event, numbers), engine=NAME, fmt="yaml")
+        if kind is yaml.MappingEndEvent or kind is yaml.SequenceEndEvent:
+            container = stack.pop()[0]
+            if container.__class__ is dict and "Node Type" not in container:
+                del container["__line__"]  # kept on plan nodes only, for error messages
+            continue
+        if kind is not yaml.ScalarEvent and kind is not yaml.MappingStartEvent \
+                and kind is not yaml.SequenceStartEvent:
+            continue  # stream and document starts and ends
+        if event.anchor is not None or event.tag is not None:
+            what = "anchors (&name)" if event.anchor is not None else f"tags ({event.tag})"
+            raise PlanParseError(f"YAML {what} are refused: PostgreSQL never writes them, and "
+                                 "expanding aliases costs unbounded time and memory",
+                                 line=_yaml_line(event, numbers), engine=NAME, fmt="yaml")
+        top = stack[-1] if stack else None
+        if top is not None and top[1] is _NO_KEY and top[0].__class__ is dict:
+            if kind is not yaml.ScalarEvent:
+                raise PlanParseError("a YAML mapping key that is not a scalar is refused",
+                                     line=_yaml_line(event, numbers), engine=NAME, fmt="yaml")
+            top[1] = event.value
+            continue
+        if kind is yaml.ScalarEvent:
+            value: Any = _yaml_plain(event.value, event, numbers) if event.style is None else event.value
+        elif kind is yaml.MappingStartEvent:
+            value = {"__line__": _yaml_line(event, numbers)}
+        else:
+            value = []
+        if top is None:
+            docs.append(value)
+        elif top[0].__class__ is list:
+            top[0].append(value)
+        else:
+            top[0][top[1]] = value
+            top[1] = _NO_KEY
+        if kind is not yaml.ScalarEvent:
+            if len(stack) >= _YAML_MAX_NESTING:
+                raise PlanParseError(f"YAML nested more than {_YAML_MAX_NESTING:,} levels; refused",
+                                     line=_yaml_line(event, numbers), engine=NAME, fmt="yaml")
+            stack.append([value, _NO_KEY])
+    return docs
+
+
+_NO_KEY = object()
+
+
+def _yaml_line(event, numbers: list[int]) -> int:
+    line = event.start_mark.line
+    return numbers[min(line, len(numbers) - 1)] if numbers else line + 1
+
+
+def _yaml_plain(value: str, event, numbers: list[int]) -> Any:
+    """A plain scalar as the YAML 1.1 core schema reads it (the subset EXPLAIN writes)."""
+    if value in _YAML_WORDS:
+        return _YAML_WORDS[value]
+    if value[0] in "0123456789-+.":
+        if _YAML_INT.fullmatch(value):
+            if len(value) > 300:
+                raise PlanParseError(f"a {len(value):,}-digit number is beyond any count or cost; "
+                                     "refused", line=_yaml_line(event, numbers), engine=NAME, fmt="yaml")
+            return int(value)
+        if _YAML_FLOAT.fullmatch(value):
+            return float(value)
+    return value
 
 
 _XML_KEY_FIXES = {"One-Time-Filter": "One-Time Filter", "Pre-sorted-Groups": "Pre-sorted Groups",
@@ -510,6 +550,7 @@ _XML_LIST_TAGS = {"Plans", "Output", "Sort-Key", "Group-Key", "Grouping-Sets", "
                   "Sort-Methods-Used", "Cache-Key", "Relations"}
 
 
+@lru_cache(maxsize=1024)
 def _xml_key(tag: str) -> str:
     return _XML_KEY_FIXES.get(tag, tag.replace("-", " "))
 
@@ -1301,6 +1342,12 @@ _ACTIONS: dict[str, tuple[int, str | None]] = {
 }
 
 
+def _intern(text: str) -> str:
+    """One shared copy of a short string (operator and key names, table names): a text or XML
+    plan would otherwise hold a fresh copy of each on every node."""
+    return sys.intern(text) if len(text) <= 64 else text
+
+
 def _node_from_dict(raw: dict, node_id: int, parent: int | None, depth: int, stmt_no: int,
                     path: str, fmt: str) -> PlanNode:
     """One pass over the node's keys: each key goes to its field, or to `extra`."""
@@ -1313,8 +1360,8 @@ def _node_from_dict(raw: dict, node_id: int, parent: int | None, depth: int, stm
     if not isinstance(node_type, str) or not node_type:
         raise PlanParseError("missing or invalid \"Node Type\"", key=f"{path}.\"Node Type\"",
                              line=line, engine=NAME, fmt=fmt)
-    node = PlanNode(id=node_id, parent=parent, operator=node_type, label="", statement=stmt_no,
-                    depth=depth)
+    node = PlanNode(id=node_id, parent=parent, operator=_intern(node_type), label="",
+                    statement=stmt_no, depth=depth)
     extra = node.extra
     actions = _ACTIONS
     for key, value in raw.items():
@@ -1325,12 +1372,13 @@ def _node_from_dict(raw: dict, node_id: int, parent: int | None, depth: int, stm
                 if count:
                     node.rows_removed[key[16:]] = count
             elif not key.startswith("__"):
-                extra[key] = value
+                extra[_intern(key)] = value
             continue
         code, attr = action
-        if code == 0:  # a text field
+        if code == 0:  # a text field: names repeat across nodes, so one copy of each is kept
             if value is not None:
-                setattr(node, attr, value if value.__class__ is str else _text(value, key, path, fmt, line))
+                setattr(node, attr, _intern(value) if value.__class__ is str
+                        else _text(value, key, path, fmt, line))
         elif code == 1:  # a number field
             if (value.__class__ is float or value.__class__ is int) and 0 <= value < _FLOAT_MAX:
                 setattr(node, attr, float(value))
