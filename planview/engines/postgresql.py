@@ -500,7 +500,7 @@ def _yaml_documents(text: str, numbers: list[int]) -> list[Any]:
             top[1] = event.value
             continue
         if kind is yaml.ScalarEvent:
-            value: Any = _yaml_plain(event.value, event, numbers) if event.style is None else event.value
+            value: Any = event.value if event.style else _yaml_plain(event.value, event, numbers)
         elif kind is yaml.MappingStartEvent:
             value = {"__line__": _yaml_line(event, numbers)}
         else:
