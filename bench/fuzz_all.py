@@ -248,7 +248,7 @@ def main() -> None:
     if args.save and examples:
         folder = Path(args.save)
         folder.mkdir(parents=True, exist_ok=True)
-        for i, (key, value) in enumerate(sorted(examples.items())):
+        for i, (_key, value) in enumerate(sorted(examples.items())):
             (folder / f"failure_{i:03}.json").write_text(value)
         print(f"one input of each failure saved in {folder}/")
 
