@@ -10,7 +10,7 @@ from . import engines
 from .check import CheckOptions, check
 from .errors import PlanParseError
 from .model import Finding, ParsedPlan, PlanNode, Statement
-from .source import read_text, without_lone_surrogates
+from .source import check_format_size, read_text, without_lone_surrogates
 
 READER_ERROR = "could not read this plan: the reader failed on it"
 
@@ -133,6 +133,7 @@ def load(source: str | bytes | os.PathLike, *, engine: str | None = None, fmt: s
         raise PlanParseError(f"threshold must be a q-error above 1, got {threshold!r}")
     text, replaced = without_lone_surrogates(read_text(source))
     module, found_fmt = engines.detect(text, engine=engine, fmt=fmt)
+    check_format_size(text, found_fmt)
     if found_fmt in ("json", "yaml"):
         text, escaped = without_lone_surrogates(text, escapes=True)
         replaced += escaped

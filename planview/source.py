@@ -8,8 +8,32 @@ from pathlib import Path
 
 from .errors import PlanParseError
 
-MAX_INPUT_BYTES = 200 * 1024 * 1024
-"""Inputs above this are refused before any parsing (a plan of 200 MB is not a plan)."""
+FORMAT_LIMITS = {"text": 40_000_000, "json": 80_000_000, "xml": 40_000_000, "yaml": 40_000_000}
+"""The largest input read, per format, in bytes (characters once decoded).
+
+Set from what a reader costs, measured by ``bench/bench_limits.py`` on a 2-core machine
+with the densest plan a megabyte can hold (one Append over filtered scans, every operator a
+misestimate): peak memory per input MB of text 16, JSON 5, XML 11, YAML 10; reading time
+per input MB of text 0.10 s, JSON 0.03 s, XML 0.06 s, YAML 0.08 s. At these limits every
+reader stays within 1 GB and 5 s, half the bar (2 GB, 10 s) left for the check, the
+diagnosis and the views. Formats an engine names otherwise (a tree, a table) take the
+text limit."""
+
+MAX_INPUT_BYTES = max(FORMAT_LIMITS.values())
+"""No input longer than this is read at all: the read stops one byte past it."""
+
+
+def max_input_bytes(fmt: str) -> int:
+    """The size limit of one format (see `FORMAT_LIMITS`)."""
+    return FORMAT_LIMITS.get(fmt, FORMAT_LIMITS["text"])
+
+
+def check_format_size(text: str, fmt: str) -> None:
+    """Refuse a text over its format's limit (read under the overall one, detected since)."""
+    limit = max_input_bytes(fmt)
+    if len(text) > limit:
+        raise PlanParseError(f"a {fmt} plan of {len(text) / 1e6:.1f} MB is over the "
+                             f"{limit / 1e6:.0f} MB limit for {fmt}; refused unread", fmt=fmt)
 
 MAX_DEPTH = 10_000
 """Trees deeper than this are refused with a clear message. Every walk in planview is

@@ -397,3 +397,11 @@ def test_clauses_beyond_the_cap_are_counted_not_classified():
     assert len(found) == MAX_CLAUSES + 1
     assert found[0].op_class == "unparsed" and "50 further" in found[0].text
     assert all(c.op_class == "equality" for c in found[1:])
+
+
+def test_each_format_has_its_own_limit(monkeypatch):
+    monkeypatch.setitem(source_module.FORMAT_LIMITS, "json", len(REAL_JSON) - 1)
+    with pytest.raises(PlanParseError) as err:
+        planview.load(REAL_JSON)
+    assert "limit for json" in str(err.value)
+    planview.load(REAL_TEXT)  # the text limit is its own

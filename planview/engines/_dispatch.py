@@ -23,6 +23,12 @@ def dispatch(engine: str, label: str, readers: dict[str, Callable[[str], ParsedP
     return reader(text)
 
 
+MAX_COUNT = 1e100
+"""The largest row or loop count a reader accepts. PostgreSQL clamps row estimates to 1e100
+(MAXIMUM_ROWCOUNT, costsize.c) and counts actual rows and loops in 64 bits: a larger figure is
+damage, and the product of two counts must stay finite for the check."""
+
+
 class BadNumber(ValueError):
     """A JSON number planview refuses: NaN, an infinity, or one too large for a float."""
 

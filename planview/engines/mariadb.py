@@ -21,7 +21,7 @@ from typing import Any
 from ..check import Role
 from ..errors import PlanParseError
 from ..model import Condition, ParsedPlan, PlanNode, Statement
-from ._dispatch import dispatch, json_document
+from ._dispatch import MAX_COUNT, dispatch, json_document
 
 NAME = "mariadb"
 FORMATS = ("json", "table")
@@ -564,8 +564,9 @@ def _cell_number(value: str | None, line: int, column: str) -> float | None:
     except ValueError:
         raise PlanParseError(f"{column} is not a number: {value!r}", line=line, engine=NAME,
                              fmt="table") from None
-    if number != number or number < 0 or number == float("inf"):
-        raise PlanParseError(f"{column} is not a count: {value!r}", line=line, engine=NAME, fmt="table")
+    if number != number or number < 0 or number > MAX_COUNT:
+        raise PlanParseError(f"{column} is not a count from 0 to 1e100: {value!r}", line=line,
+                             engine=NAME, fmt="table")
     return number
 
 
@@ -676,8 +677,8 @@ def _number(value: Any, key: str, fmt: str) -> float | None:
     else:
         raise PlanParseError(f"expected a number, got {type(value).__name__}", key=key, engine=NAME,
                              fmt=fmt)
-    if number != number or number in (float("inf"), float("-inf")) or number < 0:
-        raise PlanParseError(f"expected a finite count of at least 0, got {value!r}", key=key,
+    if number != number or number < 0 or number > MAX_COUNT:
+        raise PlanParseError(f"expected a count from 0 to 1e100, got {value!r}", key=key,
                              engine=NAME, fmt=fmt)
     return number
 

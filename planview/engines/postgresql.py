@@ -17,7 +17,7 @@ from ..check import Role
 from ..errors import PlanParseError
 from ..model import Condition, ParsedPlan, PlanNode, Statement
 from ..source import MAX_DEPTH
-from ._dispatch import BadNumber, bad_number_error, json_decoder
+from ._dispatch import MAX_COUNT, BadNumber, bad_number_error, json_decoder
 
 NAME = "postgresql"
 FORMATS = ("text", "json", "xml", "yaml")
@@ -1117,7 +1117,7 @@ def _num(value: Any, key: str, path: str, fmt: str, line: int | None) -> float |
     if value is None:
         return None
     kind = type(value)
-    if (kind is int or kind is float) and 0 <= value < _FLOAT_MAX:
+    if (kind is int or kind is float) and 0 <= value <= MAX_COUNT:
         return float(value)
     if isinstance(value, bool):
         raise PlanParseError(f"expected a number, got {value!r}", key=f"{path}.\"{key}\"",
@@ -1138,9 +1138,13 @@ def _num(value: Any, key: str, path: str, fmt: str, line: int | None) -> float |
     if number != number or number in (float("inf"), float("-inf")):
         raise PlanParseError(f"expected a finite number, got {value!r}", key=f"{path}.\"{key}\"",
                              line=line, engine=NAME, fmt=fmt)
-    if number < 0 and key not in ("Startup Cost", "Total Cost"):
-        raise PlanParseError(f"negative count {value!r}", key=f"{path}.\"{key}\"", line=line,
-                             engine=NAME, fmt=fmt)
+    if key not in ("Startup Cost", "Total Cost"):
+        if number < 0:
+            raise PlanParseError(f"negative count {value!r}", key=f"{path}.\"{key}\"", line=line,
+                                 engine=NAME, fmt=fmt)
+        if number > MAX_COUNT:
+            raise PlanParseError(f"{value!r} is beyond any count (PostgreSQL clamps row estimates "
+                                 "to 1e100)", key=f"{path}.\"{key}\"", line=line, engine=NAME, fmt=fmt)
     return number
 
 
@@ -1380,7 +1384,7 @@ def _node_from_dict(raw: dict, node_id: int, parent: int | None, depth: int, stm
                 setattr(node, attr, _intern(value) if value.__class__ is str
                         else _text(value, key, path, fmt, line))
         elif code == 1:  # a number field
-            if (value.__class__ is float or value.__class__ is int) and 0 <= value < _FLOAT_MAX:
+            if (value.__class__ is float or value.__class__ is int) and 0 <= value <= MAX_COUNT:
                 setattr(node, attr, float(value))
             else:
                 setattr(node, attr, _num(value, key, path, fmt, line))
