@@ -1,11 +1,11 @@
 """Time and peak memory of the worst inputs known, each read in a fresh process.
 
 Every case is written to a file first; a child process then runs ``planview.load`` on it
-(and, with ``--export``, ``to_text`` and ``to_json``) and the parent reports wall time and
+(``--mode reader``: the reader alone; ``--mode export``: also ``to_text`` and ``to_json``) and the parent reports wall time and
 the child's peak resident memory (``wait4``). The bar: every input under the size limit is
 read or refused within 10 s and 2 GB.
 
-Run: python bench/bench_limits.py [--cases NAME,...] [--mb N] [--export]
+Run: python bench/bench_limits.py [--cases NAME,...] [--mb N] [--mode load|reader|export]
      python bench/bench_limits.py --per-mb     (peak memory per input MB, per format)
 """
 
@@ -212,8 +212,13 @@ def write_plan(fmt: str, megabytes: float, path: Path, shape: str = "dense") -> 
         WRITERS[fmt](make(1001), out)
     per_operator = path.stat().st_size / 1001
     operators = max(3, int(megabytes * 1e6 / per_operator))
-    with open(path, "w") as out:
-        WRITERS[fmt](make(operators), out)
+    for _ in range(3):  # deeper trees indent more: correct the estimate until it fits
+        with open(path, "w") as out:
+            WRITERS[fmt](make(operators), out)
+        size = path.stat().st_size
+        if size <= megabytes * 1e6:
+            break
+        operators = int(operators * megabytes * 1e6 / size * 0.98)
     return operators
 
 
@@ -266,8 +271,8 @@ def many_statements(count: int) -> str:
 def make_cases(megabytes: float, tmp: Path) -> dict[str, Path]:
     cases: dict[str, Path] = {}
     for fmt in ("text", "json", "xml", "yaml"):
-        target = _limit_mb(fmt) if megabytes <= 0 else megabytes
-        path = tmp / f"plan_{fmt}_{target:g}mb.{fmt}"
+        target = _limit_mb(fmt) * 0.99 if megabytes <= 0 else megabytes
+        path = tmp / f"plan_{fmt}_{target:.0f}mb.{fmt}"
         write_plan(fmt, target, path)
         cases[path.stem] = path
     small = {
@@ -276,7 +281,7 @@ def make_cases(megabytes: float, tmp: Path) -> dict[str, Path]:
         "yaml_merge_bomb": yaml_merge_bomb(),
         "clauses_50k": many_clauses(50_000),
         "filter_10mb": long_filter(10),
-        "deep_text_10k": deep_text(10_000),
+        "deep_text_3500": deep_text(3_500),
         "statements_20k": many_statements(20_000),
     }
     for name, text in small.items():
@@ -302,22 +307,29 @@ def _limit_mb(fmt: str) -> float:
 CHILD = """
 import sys, planview
 from pathlib import Path
+from planview import engines, source
 try:
-    plan = planview.load(Path(sys.argv[1]))
-    outcome = f"read {len(plan.nodes):,} operators"
-    if sys.argv[2] == "1":
-        plan.to_text(); plan.to_json()
-        outcome += ", exported"
+    if sys.argv[2] == "reader":  # the reader alone: read, detect, parse
+        text = source.read_text(Path(sys.argv[1]))
+        module, fmt = engines.detect(text)
+        source.check_format_size(text, fmt)
+        outcome = f"parsed {len(module.parse(text, fmt).nodes):,} operators (reader only)"
+    else:
+        plan = planview.load(Path(sys.argv[1]))
+        outcome = f"read {len(plan.nodes):,} operators, {len(plan.findings):,} origins"
+        if sys.argv[2] == "1":
+            plan.to_text(); plan.to_json()
+            outcome += ", exported"
 except planview.PlanParseError as exc:
     outcome = "refused: " + str(exc)[:110]
 print(outcome)
 """
 
 
-def run_case(path: Path, export: bool, timeout: float = 300) -> tuple[float, float, str]:
+def run_case(path: Path, mode: str, timeout: float = 300) -> tuple[float, float, str]:
     """(seconds, peak RSS in MB, outcome) of loading `path` in a fresh interpreter."""
     start = time.perf_counter()
-    child = subprocess.Popen([sys.executable, "-c", CHILD, str(path), "1" if export else "0"],
+    child = subprocess.Popen([sys.executable, "-c", CHILD, str(path), mode],
                              stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True,
                              env={**os.environ, "PYTHONPATH": str(ROOT)}, cwd=ROOT)
     try:
@@ -345,9 +357,9 @@ def _last_child_peak_mb() -> float:
     return peak
 
 
-def run_isolated(path: Path, export: bool) -> tuple[float, float, str]:
+def run_isolated(path: Path, mode: str) -> tuple[float, float, str]:
     """Run one case from a fresh parent so RUSAGE_CHILDREN holds that child alone."""
-    result = subprocess.run([sys.executable, __file__, "--one", str(path)] + (["--export"] if export else []),
+    result = subprocess.run([sys.executable, __file__, "--one", str(path), "--mode", mode],
                             capture_output=True, text=True)
     line = result.stdout.strip().splitlines()[-1] if result.stdout.strip() else "nan\tnan\tCRASH"
     seconds, peak, outcome = line.split("\t", 2)
@@ -363,7 +375,7 @@ def per_mb(tmp: Path) -> None:
             path = tmp / f"per_mb.{fmt}"
             operators = write_plan(fmt, megabytes, path)
             size = path.stat().st_size / 1e6
-            seconds, peak, outcome = run_isolated(path, export=False)
+            seconds, peak, outcome = run_isolated(path, "reader")
             points.append((size, peak, seconds, operators))
             print(f"{fmt:6} {size:6.1f} {operators:10,} {seconds:8.2f} {peak:8.0f}  {outcome[:60]}")
         (s1, p1, t1, n1), (s2, p2, t2, n2) = points
@@ -375,12 +387,13 @@ def main() -> None:
     parser = argparse.ArgumentParser()
     parser.add_argument("--cases", help="comma-separated case names (default: all)")
     parser.add_argument("--mb", type=float, default=0, help="plan size per format (default: the format's limit)")
-    parser.add_argument("--export", action="store_true", help="also render text and JSON")
+    parser.add_argument("--mode", choices=("load", "reader", "export"), default="load",
+                        help="planview.load (default), the reader alone, or load and render text and JSON")
     parser.add_argument("--per-mb", action="store_true")
     parser.add_argument("--one", help=argparse.SUPPRESS)
     args = parser.parse_args()
     if args.one:
-        seconds, peak, outcome = run_case(Path(args.one), args.export)
+        seconds, peak, outcome = run_case(Path(args.one), {"export": "1"}.get(args.mode, args.mode))
         print(f"{seconds:.2f}\t{peak:.0f}\t{outcome}")
         return
     with tempfile.TemporaryDirectory() as name:
@@ -393,7 +406,7 @@ def main() -> None:
         print(f"{'case':26} {'input MB':>8} {'seconds':>8} {'peak MB':>8}  outcome")
         for name in wanted:
             path = cases[name]
-            seconds, peak, outcome = run_isolated(path, args.export)
+            seconds, peak, outcome = run_isolated(path, args.mode)
             flag = "" if seconds <= 10 and peak <= 2048 else "  OVER 10 s / 2 GB"
             print(f"{name:26} {path.stat().st_size / 1e6:8.2f} {seconds:8.2f} {peak:8.0f}  {outcome}{flag}")
 

@@ -8,16 +8,16 @@ from pathlib import Path
 
 from .errors import PlanParseError
 
-FORMAT_LIMITS = {"text": 40_000_000, "json": 80_000_000, "xml": 40_000_000, "yaml": 40_000_000}
+FORMAT_LIMITS = {"text": 20_000_000, "json": 40_000_000, "xml": 20_000_000, "yaml": 20_000_000}
 """The largest input read, per format, in bytes (characters once decoded).
 
-Set from what a reader costs, measured by ``bench/bench_limits.py`` on a 2-core machine
-with the densest plan a megabyte can hold (one Append over filtered scans, every operator a
-misestimate): peak memory per input MB of text 16, JSON 5, XML 11, YAML 10; reading time
-per input MB of text 0.10 s, JSON 0.03 s, XML 0.06 s, YAML 0.08 s. At these limits every
-reader stays within 1 GB and 5 s, half the bar (2 GB, 10 s) left for the check, the
-diagnosis and the views. Formats an engine names otherwise (a tree, a table) take the
-text limit."""
+Measured by ``bench/bench_limits.py --mode reader`` on the 2-core machine under load from
+other runs, with the densest plan a megabyte holds (an Append over filtered scans, every
+operator a misestimate), at 39-78 MB: peak memory per input MB of text 17, JSON 6, XML 14,
+YAML 10; reading time per input MB of text 0.40 s, JSON 0.11 s, XML 0.22 s, YAML 0.25 s.
+At these limits every reader stayed under 0.36 GB and 4.1 s on the loaded machine (text 3.8 s,
+JSON 3.6 s, XML 2.0 s, YAML 4.1 s), the rest of the bar (2 GB, 10 s) left for the check, the diagnosis and
+the views. Formats an engine names otherwise (a tree, a table) take the text limit."""
 
 MAX_INPUT_BYTES = max(FORMAT_LIMITS.values())
 """No input longer than this is read at all: the read stops one byte past it."""
