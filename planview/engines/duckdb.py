@@ -275,7 +275,7 @@ def _node_from_json(raw: Any, node_id: int, parent: int | None, depth: int, stmt
             and not node.extra.get("dynamic_filters") \
             and scanned >= node.actual_rows:
         # rows read from storage (after skipping row groups) less the rows the filters kept
-        node.rows_removed["Filter"] = float(scanned) - node.actual_rows
+        node.rows_removed = {"Filter": float(scanned) - node.actual_rows}
     node.label = compose_label(node)
     return node
 

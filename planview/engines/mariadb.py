@@ -386,7 +386,7 @@ def fill_table(node: PlanNode, name: str | None, raw: dict, numbers: dict[str, f
             node.actual_rows = r_rows * (r_filtered if r_filtered is not None else 100.0) / 100.0
             removed = r_rows - node.actual_rows
             if removed > 0:
-                node.rows_removed["Filter"] = removed
+                node.rows_removed = {"Filter": removed}
     # the join prefix arithmetic needs totals before the check computes them
     if node.est_rows is not None:
         node.extra["est_output_total"] = node.est_rows  # one estimated loop for the first table

@@ -15,7 +15,7 @@ from typing import Any
 
 from ..check import Role
 from ..errors import PlanParseError
-from ..model import Condition, ParsedPlan, PlanNode, Statement
+from ..model import NO_ENTRIES, Condition, ParsedPlan, PlanNode, Statement
 from ..source import MAX_DEPTH
 from ._dispatch import MAX_COUNT, BadNumber, bad_number_error, json_decoder
 
@@ -1374,6 +1374,8 @@ def _node_from_dict(raw: dict, node_id: int, parent: int | None, depth: int, stm
             if key.startswith(ROWS_REMOVED_PREFIX):
                 count = _num(value, key, path, fmt, line)
                 if count:
+                    if node.rows_removed is NO_ENTRIES:
+                        node.rows_removed = {}
                     node.rows_removed[key[16:]] = count
             elif not key.startswith("__"):
                 extra[_intern(key)] = value
@@ -1395,6 +1397,8 @@ def _node_from_dict(raw: dict, node_id: int, parent: int | None, depth: int, stm
         elif code == 4:  # a buffer count
             count = _num(value, key, path, fmt, line)
             if count:
+                if node.buffers is NO_ENTRIES:
+                    node.buffers = {}
                 node.buffers[key] = count
     if len(node.conditions) > 1:
         order = {k: i for i, k in enumerate(CONDITION_KEYS)}
@@ -1418,7 +1422,8 @@ def _node_from_dict(raw: dict, node_id: int, parent: int | None, depth: int, stm
     if node.workers_launched is not None:
         node.workers_launched = int(node.workers_launched)
     workers = raw.get("Workers")
-    if isinstance(workers, list):
+    if isinstance(workers, list) and workers:
+        node.workers = []
         for i, worker in enumerate(workers):
             if not isinstance(worker, dict):
                 continue
