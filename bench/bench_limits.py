@@ -22,7 +22,9 @@ from pathlib import Path
 
 ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT))
+sys.path.insert(0, str(ROOT / "tests"))
 
+from hostile_inputs import yaml_alias_bomb, yaml_merge_bomb  # noqa: E402
 
 # ---------------------------------------------------------------------------------------
 # A realistic plan, as the dicts PostgreSQL's JSON format holds, and four writers
@@ -227,23 +229,6 @@ def write_plan(fmt: str, megabytes: float, path: Path, shape: str = "dense") -> 
 # ---------------------------------------------------------------------------------------
 
 SCAN_LINE = "Seq Scan on t  (cost=0.00..1.00 rows=1 width=4) (actual time=0.010..0.020 rows=5000 loops=1)\n"
-
-
-def yaml_alias_bomb() -> str:
-    """Nine levels of nine aliases each: 9**9 strings once expanded (about 1.3 KB)."""
-    lines = ['a: &a ["lol","lol","lol","lol","lol","lol","lol","lol","lol"]']
-    for prev, name in zip("abcdefgh", "bcdefghi"):
-        lines.append(f"{name}: &{name} [" + ",".join([f"*{prev}"] * 9) + "]")
-    return "- Plan:\n    Node Type: \"Seq Scan\"\n    Plan Rows: 1\n    X:\n" + "\n".join(
-        "      " + line for line in lines) + "\n"
-
-
-def yaml_merge_bomb() -> str:
-    """Merge keys over aliases: each level merges the one below twice (about 800 bytes)."""
-    lines = ["      l0: &l0 {k0: 1, k1: 2}"]
-    for level in range(1, 26):
-        lines.append(f"      l{level}: &l{level} {{<<: [*l{level - 1}, *l{level - 1}], m{level}: 1}}")
-    return "- Plan:\n    Node Type: \"Seq Scan\"\n    Plan Rows: 1\n    X:\n" + "\n".join(lines) + "\n"
 
 
 def many_clauses(count: int) -> str:

@@ -14,6 +14,7 @@ import time
 from pathlib import Path
 
 import pytest
+from hostile_inputs import yaml_alias_bomb, yaml_merge_bomb
 from plan_files import path
 
 import planview
@@ -205,22 +206,6 @@ def check_cli_clean(path, expect_codes=(2,)):
         assert "Traceback" not in stderr and READER_ERROR not in stderr, stderr
         result.stdout.decode("utf-8")  # whatever was printed is valid UTF-8
     return stderr
-
-
-def yaml_alias_bomb() -> str:
-    """Nine levels of nine aliases: 9**9 strings once expanded, from about 450 bytes."""
-    lines = ['a: &a ["lol","lol","lol","lol","lol","lol","lol","lol","lol"]']
-    for prev, name in zip("abcdefgh", "bcdefghi"):
-        lines.append(f"{name}: &{name} [" + ",".join([f"*{prev}"] * 9) + "]")
-    return '- Plan:\n    Node Type: "Seq Scan"\n    Plan Rows: 1\n    X:\n' + "\n".join(
-        "      " + line for line in lines) + "\n"
-
-
-def yaml_merge_bomb() -> str:
-    """Merge keys over aliases, each level merging the one below twice: exponential time."""
-    lines = ["      l0: &l0 {k0: 1, k1: 2}"]
-    lines += [f"      l{i}: &l{i} {{<<: [*l{i - 1}, *l{i - 1}], m{i}: 1}}" for i in range(1, 26)]
-    return '- Plan:\n    Node Type: "Seq Scan"\n    Plan Rows: 1\n    X:\n' + "\n".join(lines) + "\n"
 
 
 # PostgreSQL's YAML writer (explain_format.c, escape_yaml and ExplainYAMLLineStarting) writes
