@@ -70,6 +70,9 @@ def _parser(secrets: tuple[str, ...] = ()) -> argparse.ArgumentParser:
 
 
 def main(argv: list[str] | None = None) -> int:
+    for stream in (sys.stdout, sys.stderr):  # a character the terminal cannot encode is escaped
+        if hasattr(stream, "reconfigure"):
+            stream.reconfigure(errors="backslashreplace")
     argv = sys.argv[1:] if argv is None else list(argv)
     secrets = _probe_arguments(argv)
     args = _parser(secrets).parse_args(argv)

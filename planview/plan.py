@@ -13,7 +13,7 @@ from .check import CheckOptions, check
 from .errors import PlanParseError
 from .index import PlanIndex, index_of
 from .model import Finding, ParsedPlan, PlanNode, Statement
-from .source import read_text
+from .source import check_format_size, read_text, without_lone_surrogates
 
 READER_ERROR = "could not read this plan: the reader failed on it"
 
@@ -120,10 +120,14 @@ def load(source: str | bytes | os.PathLike, *, engine: str | None = None, fmt: s
     """
     if not (isinstance(threshold, (int, float)) and threshold > 1):
         raise PlanParseError(f"threshold must be a q-error above 1, got {threshold!r}")
-    text = read_text(source)
+    text, replaced = without_lone_surrogates(read_text(source))
     module, found_fmt = engines.detect(text, engine=engine, fmt=fmt)
+    check_format_size(text, found_fmt)
+    if found_fmt in ("json", "yaml"):
+        text, escaped = without_lone_surrogates(text, escapes=True)
+        replaced += escaped
     with _collector_paused():
-        return _parse_and_check(module, text, found_fmt, threshold)
+        return _parse_and_check(module, text, found_fmt, threshold, replaced)
 
 
 @contextmanager
@@ -141,7 +145,7 @@ def _collector_paused():
             gc.enable()
 
 
-def _parse_and_check(module, text: str, found_fmt: str, threshold: float) -> Plan:
+def _parse_and_check(module, text: str, found_fmt: str, threshold: float, replaced: int) -> Plan:
     try:
         parsed = module.parse(text, found_fmt)
     except PlanParseError:
@@ -156,4 +160,7 @@ def _parse_and_check(module, text: str, found_fmt: str, threshold: float) -> Pla
                              fmt=found_fmt) from None
     if not parsed.nodes:
         raise PlanParseError("no operator found", engine=module.NAME, fmt=found_fmt)
+    if replaced:
+        parsed.notes.append(f"{replaced:,} lone UTF-16 surrogate(s) (\\ud800-\\udfff) in the "
+                            "input were read as U+FFFD: they cannot be printed or saved as UTF-8")
     return Plan(parsed, module, CheckOptions(threshold=float(threshold)), source=text)

@@ -11,13 +11,16 @@ import json
 import subprocess
 import sys
 import time
+from pathlib import Path
 
 import pytest
+from hostile_inputs import yaml_alias_bomb, yaml_merge_bomb
 from plan_files import path
 
 import planview
 from planview import PlanParseError
 from planview import source as source_module
+from planview.plan import READER_ERROR
 
 REAL_JSON = path("16", "correlated", "json").read_text()
 REAL_TEXT = path("16", "nested_loop_inherited", "text").read_text()
@@ -189,3 +192,201 @@ def test_cli_exit_codes_and_no_traceback(tmp_path):
     result = run_cli("check", "-", "--json", stdin=path("16", "skewed", "text").read_text())
     assert result.returncode == 1 and json.loads(result.stdout)["engine"] == "postgresql"
     assert run_cli("check", str(tmp_path / "missing.txt")).returncode == 2
+
+
+# -- hostile input that once cost unbounded time or memory, or reached the user as a traceback --
+
+def check_cli_clean(path, expect_codes=(2,)):
+    """The CLI, text and --json, on a file: the expected exit code, one line, no traceback."""
+    for extra in ((), ("--json",)):
+        result = subprocess.run([sys.executable, "-m", "planview.cli", "check", str(path), *extra],
+                                capture_output=True, timeout=120)
+        stderr = result.stderr.decode("utf-8", "replace")
+        assert result.returncode in expect_codes, (extra, result.returncode, stderr)
+        assert "Traceback" not in stderr and READER_ERROR not in stderr, stderr
+        result.stdout.decode("utf-8")  # whatever was printed is valid UTF-8
+    return stderr
+
+
+# PostgreSQL's YAML writer (explain_format.c, escape_yaml and ExplainYAMLLineStarting) writes
+# mappings, lists, quoted strings and plain numbers only: never an anchor, alias or tag.
+@pytest.mark.parametrize("make", [yaml_alias_bomb, yaml_merge_bomb], ids=["alias-bomb", "merge-bomb"])
+def test_yaml_anchors_are_refused_before_expansion(make, tmp_path):
+    start = time.perf_counter()
+    with pytest.raises(PlanParseError) as err:
+        planview.load(make(), engine="postgresql", fmt="yaml")
+    assert time.perf_counter() - start < 5  # expanded, the first grew to 3.3 GB, the second ran 20 min
+    assert "anchors" in err.value.message and err.value.line == 5  # the line of the first &name
+    bomb = tmp_path / "bomb.yaml"
+    bomb.write_text(make())
+    assert "line 5" in check_cli_clean(bomb)
+
+
+def test_yaml_alias_and_tag_name_their_line():
+    lines = REAL_YAML.split("\n")
+    alias = "\n".join(lines[:3] + ["    Output: *x"] + lines[3:])
+    with pytest.raises(PlanParseError) as err:
+        planview.load(alias, engine="postgresql", fmt="yaml")
+    assert "aliases" in err.value.message and err.value.line == 4
+    tagged = "\n".join(lines[:3] + ["    Extra: !!binary aGk="] + lines[3:])
+    with pytest.raises(PlanParseError) as err:
+        planview.load(tagged, engine="postgresql", fmt="yaml")
+    assert "tags" in err.value.message and err.value.line == 4
+
+
+@pytest.mark.parametrize("device", ["/dev/zero", "/dev/urandom"])
+def test_endless_device_is_read_with_a_cap(device):
+    """stat() says 0 bytes for a device: only the read itself can be trusted."""
+    with pytest.raises(PlanParseError) as err:
+        source_module.read_text(Path(device), max_bytes=10_000)
+    assert "limit" in str(err.value) and "10,001 bytes" in str(err.value)
+
+
+def test_cli_on_dev_zero_stops_at_the_limit():
+    result = subprocess.run([sys.executable, "-m", "planview.cli", "check", "/dev/zero"],
+                            capture_output=True, text=True, timeout=60)
+    assert result.returncode == 2 and "limit" in result.stderr and "Traceback" not in result.stderr
+
+
+def test_endless_fifo_is_read_with_a_cap(tmp_path):
+    import os
+    import threading
+
+    fifo = tmp_path / "plan.fifo"
+    os.mkfifo(fifo)
+
+    def endless_writer():
+        try:
+            with open(fifo, "wb") as out:
+                while True:
+                    out.write(b"Seq Scan on t  (cost=0.00..1.00 rows=1 width=4)\n" * 1000)
+        except (BrokenPipeError, OSError):
+            pass
+
+    writer = threading.Thread(target=endless_writer, daemon=True)
+    writer.start()
+    with pytest.raises(PlanParseError) as err:
+        source_module.read_text(fifo, max_bytes=100_000)
+    assert "limit" in str(err.value)
+    writer.join(timeout=10)
+
+
+def _json_plan(value: str) -> str:
+    return ('[{"Plan": {"Node Type": "Seq Scan", "Relation Name": "t", "Plan Rows": 1,\n'
+            f'  "Peak Memory Usage": {value}, "Actual Rows": 1, "Actual Loops": 1}}}}]')
+
+
+# RFC 8259 section 6: NaN and Infinity are not JSON numbers; no count is 1e308 or larger.
+@pytest.mark.parametrize("value", ["1" + "0" * 400, "9" * 5000, "1e999", "-1e999", "NaN",
+                                   "Infinity", "-Infinity"],
+                         ids=["int-above-1e308", "5000-digits", "float-overflow", "minus-overflow",
+                              "nan", "infinity", "minus-infinity"])
+def test_json_numbers_no_float_holds_are_refused_naming_key_and_line(value, tmp_path):
+    with pytest.raises(PlanParseError) as err:
+        planview.load(_json_plan(value))
+    assert err.value.line == 2 and err.value.key == '"Peak Memory Usage"', str(err.value)
+    plan = tmp_path / "plan.json"
+    plan.write_text(_json_plan(value))
+    assert "Peak Memory Usage" in check_cli_clean(plan)
+
+
+def test_yaml_and_text_overlong_numbers_are_refused_naming_the_line():
+    lines = REAL_YAML.split("\n")
+    long_number = "\n".join(lines[:3] + ["    Peak: " + "9" * 5000] + lines[3:])
+    with pytest.raises(PlanParseError) as err:
+        planview.load(long_number, engine="postgresql", fmt="yaml")
+    assert err.value.line == 4 and "digit" in err.value.message
+    text = REAL_TEXT.replace("rows=", "rows=" + "9" * 5000, 1)
+    with pytest.raises(PlanParseError) as err:
+        planview.load(text, engine="postgresql", fmt="text")
+    assert err.value.line == 1 and "finite" in err.value.message
+
+
+@pytest.mark.parametrize("where", ["json-escape", "python-string"])
+def test_lone_surrogate_is_read_as_replacement_and_said(where, tmp_path):
+    doc = json.loads(REAL_JSON)
+    doc[0]["Plan"]["Alias"] = "own\ud800ers"
+    text = json.dumps(doc)  # ensure_ascii: the surrogate is written as the escape \ud800
+    assert "\\ud800" in text
+    source = text if where == "json-escape" else json.dumps(doc, ensure_ascii=False)
+    plan = planview.load(source)
+    assert plan.nodes[0].alias == "own\ufffders"
+    assert any("surrogate" in note for note in plan.notes)
+    plan.to_text().encode("utf-8")
+    plan.to_json().encode("utf-8")
+    if where == "json-escape":
+        path = tmp_path / "plan.json"
+        path.write_text(text)
+        check_cli_clean(path, expect_codes=(0, 1))
+
+
+def test_a_valid_surrogate_pair_is_kept():
+    doc = json.loads(REAL_JSON)
+    doc[0]["Plan"]["Alias"] = "owners\U0001F600"
+    plan = planview.load(json.dumps(doc))
+    assert plan.nodes[0].alias == "owners\U0001F600" and not any("surrogate" in n for n in plan.notes)
+
+
+@pytest.mark.parametrize("key", ["Plans", "Workers", "Node Type", "__never__"])
+def test_text_detail_line_with_a_structural_key_names_the_line(key, tmp_path):
+    lines = REAL_TEXT.split("\n")
+    lines.insert(1, f"  {key}: something")
+    with pytest.raises(PlanParseError) as err:
+        planview.load("\n".join(lines), engine="postgresql", fmt="text")
+    assert err.value.line == 2 and key in err.value.message
+    path = tmp_path / "plan.txt"
+    path.write_text("\n".join(lines))
+    check_cli_clean(path)
+
+
+SCAN = "Seq Scan on t  (cost=0.00..1.00 rows=1 width=4) (actual time=0.010..0.020 rows=5000 loops=1)\n"
+
+
+def test_repeated_and_wrapped_condition_lines_are_joined():
+    text = SCAN + "  Filter: (a = 1)\n  Filter: (b = 2)\n  Filter: (c = 3)\n        OR (d = 4)\n"
+    plan = planview.load(text)
+    assert plan.nodes[0].condition_texts("filter") == ["(a = 1) AND (b = 2) AND (c = 3)\nOR (d = 4)"]
+
+
+def test_fifty_thousand_clauses_split_in_order():
+    from planview.diagnose.clauses import split_and_text
+
+    text = "(" + " AND ".join(f"(t.c{i} = {i})" for i in range(50_000)) + ")"
+    parts = split_and_text(text)
+    assert len(parts) == 50_000 and parts[0] == "(t.c0 = 0)" and parts[-1] == "(t.c49999 = 49999)"
+
+
+def test_long_condition_is_kept_but_not_parsed(monkeypatch):
+    import sqlglot
+
+    from planview.diagnose import clauses
+
+    def refuse(text, *args, **kwargs):
+        assert len(text) <= clauses.MAX_CONDITION_CHARS, "a long condition reached the SQL parser"
+        return original(text, *args, **kwargs)
+
+    original = sqlglot.parse_one
+    monkeypatch.setattr(clauses.sqlglot, "parse_one", refuse)
+    literal = "x" * 10_000_000
+    plan = planview.load(SCAN + f"  Filter: (t.c = '{literal}'::text)\n")
+    assert len(plan.nodes[0].conditions[0].text) > 10_000_000  # kept whole on the node
+    lines = " ".join(plan.findings[0].evidence["lines"])
+    assert "not parsed" in lines and "10,000,0" in lines and literal not in lines
+
+
+def test_clauses_beyond_the_cap_are_counted_not_classified():
+    from planview.diagnose.clauses import MAX_CLAUSES, parse_condition
+
+    text = "(" + " AND ".join(f"(t.c{i} = {i})" for i in range(MAX_CLAUSES + 50)) + ")"
+    found = parse_condition(text, "filter")
+    assert len(found) == MAX_CLAUSES + 1
+    assert found[0].op_class == "unparsed" and "50 further" in found[0].text
+    assert all(c.op_class == "equality" for c in found[1:])
+
+
+def test_each_format_has_its_own_limit(monkeypatch):
+    monkeypatch.setitem(source_module.FORMAT_LIMITS, "json", len(REAL_JSON) - 1)
+    with pytest.raises(PlanParseError) as err:
+        planview.load(REAL_JSON)
+    assert "limit for json" in str(err.value)
+    planview.load(REAL_TEXT)  # the text limit is its own

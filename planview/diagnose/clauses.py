@@ -85,9 +85,25 @@ class Clause:
 _RANGE = (exp.GT, exp.GTE, exp.LT, exp.LTE)
 
 
+MAX_CONDITION_CHARS = 16_000
+"""Longer conditions are kept on the node but not parsed: the SQL parser's time grows with the
+text (a 10 MB Filter took over a minute), and no estimate turns on a 16 KB clause."""
+
+MAX_CLAUSES = 200
+"""ANDed clauses classified per condition; the rest are counted, not classified."""
+
+
 def parse_condition(text: str, source: str, dialect: str | None = "postgres") -> list[Clause]:
     """The condition's top-level ANDed clauses, each classified (never raises)."""
+    if len(text) > MAX_CONDITION_CHARS:
+        return [_too_long(text, source)]
     return [Clause(**vars(c)) for c in _parse_cached(text, source, dialect)]
+
+
+def _too_long(text: str, source: str) -> Clause:
+    return Clause(text=f"{text[:200]}... ({len(text):,} characters)", source=source,
+                  op_class="unparsed",
+                  parse_error=f"not parsed: longer than {MAX_CONDITION_CHARS:,} characters")
 
 
 @lru_cache(maxsize=4096)
@@ -107,6 +123,12 @@ def _parse_cached(text: str, source: str, dialect: str | None) -> tuple[Clause, 
     if len(originals) != len(parts):
         originals = [None] * len(parts)
     clauses = []
+    if len(parts) > MAX_CLAUSES:
+        rest = len(parts) - MAX_CLAUSES
+        clauses.append(Clause(text=f"{rest:,} further ANDed clauses", source=source,
+                              op_class="unparsed",
+                              parse_error=f"not classified: over {MAX_CLAUSES} clauses in one condition"))
+        parts, originals = parts[:MAX_CLAUSES], originals[:MAX_CLAUSES]
     for part, original in zip(parts, originals):
         try:
             clause = _classify(part, source, dialect)
@@ -123,10 +145,30 @@ def _parse_cached(text: str, source: str, dialect: str | None) -> tuple[Clause, 
 
 
 def _strip_parens(text: str) -> str:
+    """The text without the brackets that enclose all of it, in one pass however deep."""
     text = text.strip()
-    while text.startswith("(") and text.endswith(")") and _balanced(text[1:-1]):
-        text = text[1:-1].strip()
-    return text
+    if not (text.startswith("(") and text.endswith(")")) or text.count("'") % 2:
+        return text
+    closes: dict[int, int] = {}
+    opened: list[int] = []
+    for i, ch, _ in _outside_quotes(text):
+        if ch == "(":
+            opened.append(i)
+        elif ch == ")":
+            if not opened:
+                return text
+            closes[opened.pop()] = i
+    if opened:
+        return text
+    start, end = 0, len(text) - 1
+    while start < end and text[start] == "(" and closes.get(start) == end:
+        start += 1
+        end -= 1
+        while start <= end and text[start].isspace():
+            start += 1
+        while end >= start and text[end].isspace():
+            end -= 1
+    return text[start:end + 1]
 
 
 def _outside_quotes(text: str):
@@ -171,14 +213,14 @@ def split_and_text(text: str) -> list[str]:
     ["(a.x = 'p AND q'::text)", '(a.y > 1)']
     """
     parts: list[str] = []
-    todo = [_strip_parens(text)]
+    todo = [_strip_parens(text)]  # a stack, last piece first: pieces come off in order
     while todo:
-        current = todo.pop(0)
+        current = todo.pop()
         pieces = _top_level_split(current, " AND ")
         if len(pieces) == 1:
             parts.append(current if current.startswith("(") or " " not in current else f"({current})")
         else:
-            todo = [_strip_parens(p) for p in pieces] + todo
+            todo.extend(_strip_parens(p) for p in reversed(pieces))
     return parts
 
 

@@ -25,7 +25,7 @@ from ..index import index_of
 from ..inert import check_name
 from ..model import Condition, ParsedPlan, PlanNode, Statement
 from ..source import MAX_DEPTH
-from ._dispatch import dispatch, json_document
+from ._dispatch import MAX_COUNT, dispatch, json_document
 
 NAME = "duckdb"
 FORMATS = ("json", "text")
@@ -279,7 +279,7 @@ def _node_from_json(raw: Any, node_id: int, parent: int | None, depth: int, stmt
             and not node.extra.get("dynamic_filters") \
             and scanned >= node.actual_rows:
         # rows read from storage (after skipping row groups) less the rows the filters kept
-        node.rows_removed["Filter"] = float(scanned) - node.actual_rows
+        node.rows_removed = {"Filter": float(scanned) - node.actual_rows}
     node.label = compose_label(node)
     return node
 
@@ -415,7 +415,7 @@ _BOTTOM_LEFT = "└╰"
 _SEPARATOR = re.compile(r"^[─━\s]*$|^(─ )+─?$")
 _ESTIMATE_LINE = re.compile(r"^(?:~([\d,.]+) [Rr]ows?|EC:\s*([\d,.]+))$")
 _ACTUAL_LINE = re.compile(r"^([\d,]+) [Rr]ows?(?:\s+[\d.]+\s*(?:µs|us|ms|s|m|h))?$")
-_TIME_LINE = re.compile(r"^\(([\d.]+)s\)$")
+_TIME_LINE = re.compile(r"^\((\d+(?:\.\d+)?)s\)$")
 _HEADERS = ("Query Profiling Information", "Total Time:")
 
 
@@ -430,7 +430,7 @@ def _parse_text(text: str) -> ParsedPlan:
         title, content = _box_text(box, lines)
         joined = " ".join([title or "", *content])
         if any(h in joined for h in _HEADERS) or title == "Summary":
-            found = re.search(r"Total Time:\s*([\d.]+)s", joined)
+            found = re.search(r"Total Time:\s*(\d+(?:\.\d+)?)s", joined)
             if found:
                 total_ms = float(found.group(1)) * 1000.0
             continue
@@ -693,8 +693,8 @@ def _count(value: Any, key: str | None, fmt: str, line: int | None = None) -> fl
     else:
         raise PlanParseError(f"expected a number, got {type(value).__name__}", key=key, line=line,
                              engine=NAME, fmt=fmt)
-    if number != number or number in (float("inf"), float("-inf")) or number < 0:
-        raise PlanParseError(f"expected a finite count of at least 0, got {value!r}", key=key,
+    if number != number or number < 0 or number > MAX_COUNT:
+        raise PlanParseError(f"expected a count from 0 to 1e100, got {value!r}", key=key,
                              line=line, engine=NAME, fmt=fmt)
     return number
 

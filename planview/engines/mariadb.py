@@ -22,7 +22,7 @@ from ..check import Role
 from ..errors import PlanParseError
 from ..inert import check_name
 from ..model import Condition, ParsedPlan, PlanNode, Statement
-from ._dispatch import dispatch, json_document
+from ._dispatch import MAX_COUNT, dispatch, json_document
 
 NAME = "mariadb"
 FORMATS = ("json", "table")
@@ -387,7 +387,7 @@ def fill_table(node: PlanNode, name: str | None, raw: dict, numbers: dict[str, f
             node.actual_rows = r_rows * (r_filtered if r_filtered is not None else 100.0) / 100.0
             removed = r_rows - node.actual_rows
             if removed > 0:
-                node.rows_removed["Filter"] = removed
+                node.rows_removed = {"Filter": removed}
     # the join prefix arithmetic needs totals before the check computes them
     if node.est_rows is not None:
         node.extra["est_output_total"] = node.est_rows  # one estimated loop for the first table
@@ -565,8 +565,9 @@ def _cell_number(value: str | None, line: int, column: str) -> float | None:
     except ValueError:
         raise PlanParseError(f"{column} is not a number: {value!r}", line=line, engine=NAME,
                              fmt="table") from None
-    if number != number or number < 0 or number == float("inf"):
-        raise PlanParseError(f"{column} is not a count: {value!r}", line=line, engine=NAME, fmt="table")
+    if number != number or number < 0 or number > MAX_COUNT:
+        raise PlanParseError(f"{column} is not a count from 0 to 1e100: {value!r}", line=line,
+                             engine=NAME, fmt="table")
     return number
 
 
@@ -677,8 +678,8 @@ def _number(value: Any, key: str, fmt: str) -> float | None:
     else:
         raise PlanParseError(f"expected a number, got {type(value).__name__}", key=key, engine=NAME,
                              fmt=fmt)
-    if number != number or number in (float("inf"), float("-inf")) or number < 0:
-        raise PlanParseError(f"expected a finite count of at least 0, got {value!r}", key=key,
+    if number != number or number < 0 or number > MAX_COUNT:
+        raise PlanParseError(f"expected a count from 0 to 1e100, got {value!r}", key=key,
                              engine=NAME, fmt=fmt)
     return number
 

@@ -21,7 +21,7 @@ from ..errors import PlanParseError
 from ..inert import check_name
 from ..model import Condition, ParsedPlan, PlanNode, Statement
 from ..source import MAX_DEPTH
-from ._dispatch import dispatch, json_document
+from ._dispatch import MAX_COUNT, dispatch, json_document
 
 NAME = "mysql"
 FORMATS = ("tree", "json")
@@ -278,9 +278,9 @@ def _readable(value: str, line: int | None, what: str, key: str | None = None) -
         raise PlanParseError(f"{what} is not a number: {value!r}", line=line, key=key, engine=NAME,
                              fmt="tree" if key is None else "json")
     number = float(value)
-    if number != number or number == float("inf"):
-        raise PlanParseError(f"{what} is not finite: {value!r}", line=line, key=key, engine=NAME,
-                             fmt="tree" if key is None else "json")
+    if number != number or number > MAX_COUNT:
+        raise PlanParseError(f"{what} is beyond any count (0 to 1e100): {value!r}", line=line,
+                             key=key, engine=NAME, fmt="tree" if key is None else "json")
     return number
 
 
@@ -351,7 +351,8 @@ def _json_number(raw: dict, key: str, where: str) -> float | None:
         raise PlanParseError(f"expected a number, got {value!r}", key=f"{where}.{key}", engine=NAME,
                              fmt="json")
     number = float(value)
-    if number != number or number in (float("inf"), float("-inf")) or (number < 0 and "cost" not in key):
+    if number != number or number in (float("inf"), float("-inf")) or (
+            "cost" not in key and not 0 <= number <= MAX_COUNT):
         raise PlanParseError(f"expected a finite count, got {value!r}", key=f"{where}.{key}",
                              engine=NAME, fmt="json")
     return number

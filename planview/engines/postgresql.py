@@ -9,6 +9,8 @@ from __future__ import annotations
 
 import json
 import re
+import sys
+from functools import lru_cache
 from typing import Any
 
 import sqlglot
@@ -18,8 +20,9 @@ from ..check import Role
 from ..errors import PlanParseError
 from ..index import index_of
 from ..inert import check_name, comment_text
-from ..model import Condition, ParsedPlan, PlanNode, Statement
+from ..model import NO_ENTRIES, Condition, ParsedPlan, PlanNode, Statement
 from ..source import MAX_DEPTH
+from ._dispatch import MAX_COUNT, BadNumber, bad_number_error, json_decoder
 
 NAME = "postgresql"
 FORMATS = ("text", "json", "xml", "yaml")
@@ -390,7 +393,7 @@ def parse(text: str, fmt: str) -> ParsedPlan:
 # ---------------------------------------------------------------------------------------
 
 def _read_json(text: str, numbers: list[int]) -> list[dict]:
-    decoder = json.JSONDecoder()
+    decoder = json_decoder(text)
     docs: list[Any] = []
     pos = 0
     length = len(text)
@@ -405,6 +408,8 @@ def _read_json(text: str, numbers: list[int]) -> list[dict]:
             line = numbers[min(exc.lineno, len(numbers)) - 1] if numbers else exc.lineno
             raise PlanParseError(f"invalid JSON: {exc.msg} (column {exc.colno})",
                                  line=line, engine=NAME, fmt="json") from None
+        except BadNumber as exc:
+            raise bad_number_error(exc, text, NAME, numbers) from None
         except RecursionError:
             raise PlanParseError("JSON nested too deeply for the JSON reader (about 500 plan "
                                  "levels at most); refused. The text format of the same plan "
@@ -426,9 +431,8 @@ def _read_json(text: str, numbers: list[int]) -> list[dict]:
 def _read_yaml(text: str, numbers: list[int]) -> list[dict]:
     import yaml
 
-    loader = getattr(yaml, "CSafeLoader", yaml.SafeLoader)
     try:
-        docs = list(yaml.load_all(text, Loader=loader))
+        docs = _yaml_documents(text, numbers)
     except yaml.YAMLError as exc:
         mark = getattr(exc, "problem_mark", None)
         line = None
@@ -436,8 +440,6 @@ def _read_yaml(text: str, numbers: list[int]) -> list[dict]:
             line = numbers[min(mark.line, len(numbers) - 1)] if numbers else mark.line + 1
         problem = getattr(exc, "problem", None) or str(exc).splitlines()[0]
         raise PlanParseError(f"invalid YAML: {problem}", line=line, engine=NAME, fmt="yaml") from None
-    except RecursionError:
-        raise PlanParseError("YAML nested too deeply; refused", engine=NAME, fmt="yaml") from None
     statements: list[dict] = []
     for doc in docs:
         if doc is None:
@@ -452,6 +454,100 @@ def _read_yaml(text: str, numbers: list[int]) -> list[dict]:
     return statements
 
 
+_YAML_INT = re.compile(r"[-+]?[0-9]+")
+_YAML_FLOAT = re.compile(r"[-+]?(?:[0-9]+(?:\.[0-9]*)?|\.[0-9]+)(?:[eE][-+]?[0-9]+)?")
+_YAML_WORDS = {"true": True, "True": True, "TRUE": True, "false": False, "False": False,
+               "FALSE": False, "null": None, "Null": None, "NULL": None, "~": None, "": None,
+               ".inf": float("inf"), ".Inf": float("inf"), "-.inf": float("-inf"),
+               ".nan": float("nan"), ".NaN": float("nan")}
+_YAML_MAX_NESTING = 2 * MAX_DEPTH + 16  # a plan level is a mapping inside a "Plans" list
+
+
+def _yaml_documents(text: str, numbers: list[int]) -> list[Any]:
+    """The documents of a YAML text, built straight from the parser's events.
+
+    PostgreSQL writes plain YAML: mappings, lists, quoted strings and plain numbers and
+    booleans, never an anchor, alias or tag. Those are refused where they stand, before
+    anything is expanded (nested aliases grow exponentially, and merging them with ``<<``
+    takes exponential time). Building from events keeps no node graph, so memory is the
+    result's alone.
+    """
+    import yaml
+
+    loader_class = getattr(yaml, "CSafeLoader", yaml.SafeLoader)
+    docs: list[Any] = []
+    # each open container: (the container, the pending mapping key or None, its line)
+    stack: list[list[Any]] = []
+    for event in yaml.parse(text, Loader=loader_class):
+        kind = event.__class__
+        if kind is yaml.AliasEvent:
+            raise PlanParseError("YAML aliases (*name) are refused: PostgreSQL never writes them, and "
+                                 "expanding them costs unbounded time and memory",
+                                 line=_yaml_line(event, numbers), engine=NAME, fmt="yaml")
+        if kind is yaml.MappingEndEvent or kind is yaml.SequenceEndEvent:
+            container = stack.pop()[0]
+            if container.__class__ is dict and "Node Type" not in container:
+                del container["__line__"]  # kept on plan nodes only, for error messages
+            continue
+        if kind is not yaml.ScalarEvent and kind is not yaml.MappingStartEvent \
+                and kind is not yaml.SequenceStartEvent:
+            continue  # stream and document starts and ends
+        if event.anchor is not None or event.tag is not None:
+            what = "anchors (&name)" if event.anchor is not None else f"tags ({event.tag})"
+            raise PlanParseError(f"YAML {what} are refused: PostgreSQL never writes them, and "
+                                 "expanding aliases costs unbounded time and memory",
+                                 line=_yaml_line(event, numbers), engine=NAME, fmt="yaml")
+        top = stack[-1] if stack else None
+        if top is not None and top[1] is _NO_KEY and top[0].__class__ is dict:
+            if kind is not yaml.ScalarEvent:
+                raise PlanParseError("a YAML mapping key that is not a scalar is refused",
+                                     line=_yaml_line(event, numbers), engine=NAME, fmt="yaml")
+            top[1] = event.value
+            continue
+        if kind is yaml.ScalarEvent:
+            value: Any = event.value if event.style else _yaml_plain(event.value, event, numbers)
+        elif kind is yaml.MappingStartEvent:
+            value = {"__line__": _yaml_line(event, numbers)}
+        else:
+            value = []
+        if top is None:
+            docs.append(value)
+        elif top[0].__class__ is list:
+            top[0].append(value)
+        else:
+            top[0][top[1]] = value
+            top[1] = _NO_KEY
+        if kind is not yaml.ScalarEvent:
+            if len(stack) >= _YAML_MAX_NESTING:
+                raise PlanParseError(f"YAML nested more than {_YAML_MAX_NESTING:,} levels; refused",
+                                     line=_yaml_line(event, numbers), engine=NAME, fmt="yaml")
+            stack.append([value, _NO_KEY])
+    return docs
+
+
+_NO_KEY = object()
+
+
+def _yaml_line(event, numbers: list[int]) -> int:
+    line = event.start_mark.line
+    return numbers[min(line, len(numbers) - 1)] if numbers else line + 1
+
+
+def _yaml_plain(value: str, event, numbers: list[int]) -> Any:
+    """A plain scalar as the YAML 1.1 core schema reads it (the subset EXPLAIN writes)."""
+    if value in _YAML_WORDS:
+        return _YAML_WORDS[value]
+    if value[0] in "0123456789-+.":
+        if _YAML_INT.fullmatch(value):
+            if len(value) > 300:
+                raise PlanParseError(f"a {len(value):,}-digit number is beyond any count or cost; "
+                                     "refused", line=_yaml_line(event, numbers), engine=NAME, fmt="yaml")
+            return int(value)
+        if _YAML_FLOAT.fullmatch(value):
+            return float(value)
+    return value
+
+
 _XML_KEY_FIXES = {"One-Time-Filter": "One-Time Filter", "Pre-sorted-Groups": "Pre-sorted Groups",
                   "Full-sort-Groups": "Full-sort Groups"}
 _XML_LIST_TAGS = {"Plans", "Output", "Sort-Key", "Group-Key", "Grouping-Sets", "Group-Keys",
@@ -459,6 +555,7 @@ _XML_LIST_TAGS = {"Plans", "Output", "Sort-Key", "Group-Key", "Grouping-Sets", "
                   "Sort-Methods-Used", "Cache-Key", "Relations"}
 
 
+@lru_cache(maxsize=1024)
 def _xml_key(tag: str) -> str:
     return _XML_KEY_FIXES.get(tag, tag.replace("-", " "))
 
@@ -897,6 +994,11 @@ def _parse_buffers(value: str, into: dict) -> None:
                 into[key] = float(count)
 
 
+# Keys the tree is built from: a text detail line may not set them.
+_STRUCTURAL_KEYS = frozenset({"Plans", "Workers", "Node Type", "Parent Relationship",
+                              "Subplan Name"})
+
+
 def _detail_line(frame: _Frame, content: str, lineno: int) -> None:
     node = frame.node
     frame.worker = None
@@ -921,6 +1023,10 @@ def _detail_line(frame: _Frame, content: str, lineno: int) -> None:
         key, value = content.rstrip(":"), ""
     key = key.strip()
     value = value.strip()
+    if key in _STRUCTURAL_KEYS or key.startswith("__"):
+        raise PlanParseError(f"a {key!r} detail line is not part of PostgreSQL's text format "
+                             "(the tree is read from the '->' lines); refused", line=lineno,
+                             engine=NAME, fmt="text")
     frame.last_key = key
     if key == "Buffers":
         _parse_buffers(value, node)
@@ -932,9 +1038,24 @@ def _detail_line(frame: _Frame, content: str, lineno: int) -> None:
             raise PlanParseError(f"{key} is not a number: {value!r}", line=lineno, engine=NAME,
                                  fmt="text") from None
     elif key in node and key in CONDITION_KEYS:
-        node[key] = f"{node[key]} AND {value}"
+        _append(node, key, " AND ", value)
     else:
         node[key] = value
+        if "__parts__" in node:
+            node["__parts__"].pop(key, None)
+
+
+def _append(node: dict, key: str, separator: str, value: str) -> None:
+    """Add to a value that repeated lines build up, as pieces joined once by the builder
+    (joining on every line costs time quadratic in the number of lines)."""
+    parts = node.get("__parts__")
+    if parts is None:
+        parts = node["__parts__"] = {}
+    pieces = parts.get(key)
+    if pieces is None:
+        pieces = parts[key] = [node[key]]
+    pieces.append(separator)
+    pieces.append(value)
 
 
 def _nested_detail_line(frame: _Frame, content: str, lineno: int) -> None:
@@ -948,7 +1069,12 @@ def _nested_detail_line(frame: _Frame, content: str, lineno: int) -> None:
         return
     key = frame.last_key or "Details"
     previous = frame.node.get(key)
-    frame.node[key] = f"{previous}\n{content}" if isinstance(previous, str) and previous else content
+    if isinstance(previous, str) and previous:
+        _append(frame.node, key, "\n", content)
+    else:
+        frame.node[key] = content
+        if "__parts__" in frame.node:
+            frame.node["__parts__"].pop(key, None)
 
 
 def _statement_text_line(stmt: dict, content: str, lineno: int) -> str:
@@ -996,13 +1122,15 @@ def _num(value: Any, key: str, path: str, fmt: str, line: int | None) -> float |
     if value is None:
         return None
     kind = type(value)
-    if (kind is int or kind is float) and value >= 0 and value != float("inf"):
+    if (kind is int or kind is float) and 0 <= value <= MAX_COUNT:
         return float(value)
     if isinstance(value, bool):
         raise PlanParseError(f"expected a number, got {value!r}", key=f"{path}.\"{key}\"",
                              line=line, engine=NAME, fmt=fmt)
-    if isinstance(value, (int, float)):
-        number = float(value)
+    if isinstance(value, float):
+        number = value
+    elif isinstance(value, int):
+        number = float(value) if abs(value) < _FLOAT_MAX else float("inf")
     elif isinstance(value, str):
         try:
             number = float(value.strip())
@@ -1015,9 +1143,13 @@ def _num(value: Any, key: str, path: str, fmt: str, line: int | None) -> float |
     if number != number or number in (float("inf"), float("-inf")):
         raise PlanParseError(f"expected a finite number, got {value!r}", key=f"{path}.\"{key}\"",
                              line=line, engine=NAME, fmt=fmt)
-    if number < 0 and key not in ("Startup Cost", "Total Cost"):
-        raise PlanParseError(f"negative count {value!r}", key=f"{path}.\"{key}\"", line=line,
-                             engine=NAME, fmt=fmt)
+    if key not in ("Startup Cost", "Total Cost"):
+        if number < 0:
+            raise PlanParseError(f"negative count {value!r}", key=f"{path}.\"{key}\"", line=line,
+                                 engine=NAME, fmt=fmt)
+        if number > MAX_COUNT:
+            raise PlanParseError(f"{value!r} is beyond any count (PostgreSQL clamps row estimates "
+                                 "to 1e100)", key=f"{path}.\"{key}\"", line=line, engine=NAME, fmt=fmt)
     return number
 
 
@@ -1207,7 +1339,7 @@ _LATER_NUMBERS = {"Actual Loops": "starts", "Actual Rows": "actual_rows",
                   "Actual Startup Time": "actual_startup_ms", "Actual Total Time": "actual_total_ms",
                   "Workers Planned": "workers_planned", "Workers Launched": "workers_launched"}
 _SKIP = {"Node Type", "Plans", "Workers", "Parallel Aware"}
-_INF = float("inf")
+_FLOAT_MAX = 1.7976931348623157e308  # compares with a huge int without converting it
 # key -> (what to do, field): one dictionary look-up a key while building a node
 _ACTIONS: dict[str, tuple[int, str | None]] = {
     **{k: (0, v) for k, v in _STR_FIELDS.items()},
@@ -1219,16 +1351,26 @@ _ACTIONS: dict[str, tuple[int, str | None]] = {
 }
 
 
+def _intern(text: str) -> str:
+    """One shared copy of a short string (operator and key names, table names): a text or XML
+    plan would otherwise hold a fresh copy of each on every node."""
+    return sys.intern(text) if len(text) <= 64 else text
+
+
 def _node_from_dict(raw: dict, node_id: int, parent: int | None, depth: int, stmt_no: int,
                     path: str, fmt: str) -> PlanNode:
     """One pass over the node's keys: each key goes to its field, or to `extra`."""
     line = raw.get("__line__")
+    parts = raw.get("__parts__")
+    if parts:
+        for key, pieces in parts.items():
+            raw[key] = "".join(pieces)
     node_type = raw.get("Node Type")
     if not isinstance(node_type, str) or not node_type:
         raise PlanParseError("missing or invalid \"Node Type\"", key=f"{path}.\"Node Type\"",
                              line=line, engine=NAME, fmt=fmt)
-    node = PlanNode(id=node_id, parent=parent, operator=node_type, label="", statement=stmt_no,
-                    depth=depth)
+    node = PlanNode(id=node_id, parent=parent, operator=_intern(node_type), label="",
+                    statement=stmt_no, depth=depth)
     extra = node.extra
     actions = _ACTIONS
     for key, value in raw.items():
@@ -1237,16 +1379,19 @@ def _node_from_dict(raw: dict, node_id: int, parent: int | None, depth: int, stm
             if key.startswith(ROWS_REMOVED_PREFIX):
                 count = _num(value, key, path, fmt, line)
                 if count:
+                    if node.rows_removed is NO_ENTRIES:
+                        node.rows_removed = {}
                     node.rows_removed[key[16:]] = count
             elif not key.startswith("__"):
-                extra[key] = value
+                extra[_intern(key)] = value
             continue
         code, attr = action
-        if code == 0:  # a text field
+        if code == 0:  # a text field: names repeat across nodes, so one copy of each is kept
             if value is not None:
-                setattr(node, attr, value if value.__class__ is str else _text(value, key, path, fmt, line))
+                setattr(node, attr, _intern(value) if value.__class__ is str
+                        else _text(value, key, path, fmt, line))
         elif code == 1:  # a number field
-            if (value.__class__ is float or value.__class__ is int) and 0 <= value < _INF:
+            if (value.__class__ is float or value.__class__ is int) and 0 <= value <= MAX_COUNT:
                 setattr(node, attr, float(value))
             else:
                 setattr(node, attr, _num(value, key, path, fmt, line))
@@ -1257,6 +1402,8 @@ def _node_from_dict(raw: dict, node_id: int, parent: int | None, depth: int, stm
         elif code == 4:  # a buffer count
             count = _num(value, key, path, fmt, line)
             if count:
+                if node.buffers is NO_ENTRIES:
+                    node.buffers = {}
                 node.buffers[key] = count
     if len(node.conditions) > 1:
         order = {k: i for i, k in enumerate(CONDITION_KEYS)}
@@ -1280,7 +1427,8 @@ def _node_from_dict(raw: dict, node_id: int, parent: int | None, depth: int, stm
     if node.workers_launched is not None:
         node.workers_launched = int(node.workers_launched)
     workers = raw.get("Workers")
-    if isinstance(workers, list):
+    if isinstance(workers, list) and workers:
+        node.workers = []
         for i, worker in enumerate(workers):
             if not isinstance(worker, dict):
                 continue
