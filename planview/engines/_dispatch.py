@@ -55,18 +55,11 @@ def _checked_float(literal: str) -> float:
     return value
 
 
-_PLAIN = json.JSONDecoder()
-_STRICT = json.JSONDecoder(parse_int=_checked_int, parse_float=_checked_float,
-                           parse_constant=_refuse_constant)
-# What could decode to a non-finite or unconvertible number; rare, so the plain (fast) decoder
-# reads every other document.
-_SUSPECT_NUMBER = re.compile(r"\d{300,}|\d[eE][+-]?\d{3,}|NaN|Infinity")
-
-
-def json_decoder(text: str) -> json.JSONDecoder:
-    """The decoder for `text`: one that refuses NaN, infinities and over-long numbers with a
-    `BadNumber` when the text holds anything that could be one, else the plain one."""
-    return _STRICT if _SUSPECT_NUMBER.search(text) else _PLAIN
+JSON_DECODER = json.JSONDecoder(parse_int=_checked_int, parse_float=_checked_float,
+                                parse_constant=_refuse_constant)
+"""The one JSON decoder of every engine: it refuses NaN, infinities and over-long numbers with a
+`BadNumber`. Its number hooks cost less than a scan of the text for suspect numbers would (on a
+35 MB plan: 0.25 s against 0.14 s for the plain decoder plus 1.4 s for the scan)."""
 
 
 def bad_number_error(exc: BadNumber, text: str, engine: str, numbers: list[int] | None = None) -> PlanParseError:
@@ -90,7 +83,7 @@ _KEY_BEFORE = re.compile(r'"([^"\\]{1,80})"\s*:\s*(?:\[\s*)?$')
 def json_document(body: str, engine: str):
     """`json.loads` with the errors every engine reports the same way (line and column)."""
     try:
-        return json_decoder(body).decode(body)
+        return JSON_DECODER.decode(body)
     except json.JSONDecodeError as exc:
         raise PlanParseError(f"invalid JSON: {exc.msg} (column {exc.colno})", line=exc.lineno,
                              engine=engine, fmt="json") from None

@@ -22,7 +22,7 @@ from ..index import index_of
 from ..inert import check_name, comment_text
 from ..model import NO_ENTRIES, Condition, ParsedPlan, PlanNode, Statement
 from ..source import MAX_DEPTH
-from ._dispatch import MAX_COUNT, BadNumber, bad_number_error, json_decoder
+from ._dispatch import JSON_DECODER, MAX_COUNT, BadNumber, bad_number_error
 
 NAME = "postgresql"
 FORMATS = ("text", "json", "xml", "yaml")
@@ -393,7 +393,7 @@ def parse(text: str, fmt: str) -> ParsedPlan:
 # ---------------------------------------------------------------------------------------
 
 def _read_json(text: str, numbers: list[int]) -> list[dict]:
-    decoder = json_decoder(text)
+    decoder = JSON_DECODER
     docs: list[Any] = []
     pos = 0
     length = len(text)
