@@ -60,6 +60,13 @@ class Role:
     - `stopped`: the node itself stopped before its end, with the reason (a scan that read
       far fewer rows than its table holds, under a LIMIT the plan does not show): it and the
       inputs it stopped are not judged.
+
+    The facts below are not the check's: it copies them onto the node for the diagnosis.
+
+    - `reads_whole_relation`: a scan that reads every row of its relation;
+    - `rows_discarded`: rows per start it read and then discarded (by a filter or a recheck);
+    - `conditions_from`: nodes below whose conditions restrict its rows (an index bitmap);
+    - `group_keys`: its grouping keys, as printed.
     """
 
     rule: str = "source"
@@ -73,6 +80,10 @@ class Role:
     reads: int | None = None
     cut_inputs: dict[int, str] | None = None
     stopped: str | None = None
+    reads_whole_relation: bool = False
+    rows_discarded: float = 0.0
+    conditions_from: tuple[int, ...] = ()
+    group_keys: tuple[str, ...] = ()
 
 
 def check(parsed: ParsedPlan, engine, options: CheckOptions | None = None) -> list[Finding]:
@@ -86,11 +97,22 @@ def check(parsed: ParsedPlan, engine, options: CheckOptions | None = None) -> li
     threshold = math.log10(options.threshold)
     index_of(parsed)
     roles = [engine.role(node, nodes, parsed) for node in nodes]
+    _facts(nodes, roles)
     _totals(nodes, roles)
     if hasattr(engine, "repair"):
         engine.repair(parsed)
     _judge(nodes, roles)
     return _own_errors_and_origins(nodes, roles, threshold)
+
+
+def _facts(nodes: list[PlanNode], roles: list[Role]) -> None:
+    """The engine's facts onto each node, typed, for the diagnosis."""
+    for node, role in zip(nodes, roles):
+        node.parallel_divisor = role.partial or None
+        node.reads_whole_relation = role.reads_whole_relation
+        node.rows_discarded = role.rows_discarded
+        node.conditions_from = role.conditions_from
+        node.group_keys = role.group_keys
 
 
 def _totals(nodes: list[PlanNode], roles: list[Role]) -> None:

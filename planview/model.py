@@ -104,6 +104,15 @@ class PlanNode:
     inherits_from: list[int] | tuple = ()  # the check assigns a list
     own_rule: str | None = None
     derived: list[str] = field(default_factory=list)
+    # the engine's facts for the diagnosis, copied by planview.check from the engine's role
+    parallel_divisor: float | None = None
+    """The estimate is per parallel process, with this divisor (None: it covers the whole)."""
+    reads_whole_relation: bool = False
+    rows_discarded: float = 0.0
+    """Rows per start the node read and discarded (by a filter or a recheck)."""
+    conditions_from: tuple[int, ...] = ()
+    """Nodes below whose conditions restrict this node's rows (an index bitmap under a scan)."""
+    group_keys: tuple[str, ...] = ()
 
     def condition_texts(self, *kinds: str) -> list[str]:
         """The texts of this node's conditions of the given kinds (all kinds if none given)."""

@@ -35,7 +35,8 @@ class Plan:
         self.statements: list[Statement] = parsed.statements
         self.options = options
         self.source = source
-        self._engine_module = engine_module
+        self.engine_spec = engines.engine_of(engine_module)
+        """The engine's tables, defaults, dialect and fixes, which the diagnosis is handed."""
         self.findings: list[Finding] = check(parsed, engine_module, options)
         self.index: PlanIndex = index_of(parsed)
         from .diagnose import diagnose
@@ -50,7 +51,7 @@ class Plan:
 
     @property
     def sql_dialect(self) -> str | None:
-        return getattr(self._engine_module, "SQL_DIALECT", None)
+        return self.engine_spec.dialect
 
     def report(self) -> dict[str, Any]:
         """The JSON report (stable keys; later versions add keys, never remove them)."""

@@ -125,16 +125,12 @@ def table_parts(plan) -> dict[str, tuple[str | None, str]]:
 
 
 def _suggest(plan, candidate: Candidate, names: dict[str, tuple[str | None, str]]):
-    module = plan._engine_module
-    suggest = getattr(module, "suggest_fix", None)
-    if suggest is None:
-        return None
     details = dict(candidate.details)
     details["table_parts"] = names.get(candidate.table or "")
     if details.get("other_table"):
         details["other_table_parts"] = names.get(details["other_table"])
     try:
-        return suggest(candidate.cause, candidate.table, candidate.columns,
+        return plan.engine_spec.suggest_fix(candidate.cause, candidate.table, candidate.columns,
                        expressions=candidate.expressions, **details)
     except UnquotableName as exc:
         return refused_fix(exc), _generic_caution(plan)

@@ -42,8 +42,16 @@ class Context:
     own_log10_ratio: float
     rows_read: float | None
     rows_removed: float
-    defaults: dict[str, float]
-    dialect: str | None
+    engine: Any
+    """The plan's `planview.engines.base.Engine`: its dialect, defaults and fixes."""
+
+    @property
+    def defaults(self) -> dict[str, float]:
+        return self.engine.defaults
+
+    @property
+    def dialect(self) -> str | None:
+        return self.engine.dialect
 
     @property
     def direction(self) -> str:
@@ -68,8 +76,7 @@ class Context:
         if node.relation is None:
             return False
         nodes = self.plan.nodes
-        return not any(nodes[c].is_input_edge and not nodes[c].operator.lower().startswith("bitmap")
-                       for c in node.children)
+        return not any(nodes[c].is_input_edge and c not in node.conditions_from for c in node.children)
 
     @property
     def is_join(self) -> bool:
@@ -92,12 +99,7 @@ class Context:
         return None
 
     def group_keys(self) -> list[str]:
-        keys = self.node.extra.get("Group Key")
-        if isinstance(keys, str):
-            return [k.strip() for k in _split_top(keys)]
-        if isinstance(keys, list):
-            return [str(k) for k in keys]
-        return []
+        return list(self.node.group_keys)
 
     def default_match(self, tolerance: float = 0.05) -> tuple[str, float] | None:
         """The engine default (or product of two) that the estimated selectivity equals."""
@@ -122,20 +124,6 @@ class Context:
         return (best[0], best[1]) if best else None
 
 
-def _split_top(text: str) -> list[str]:
-    out, depth, start = [], 0, 0
-    for i, ch in enumerate(text):
-        if ch == "(":
-            depth += 1
-        elif ch == ")":
-            depth -= 1
-        elif ch == "," and depth == 0:
-            out.append(text[start:i])
-            start = i + 1
-    out.append(text[start:])
-    return [x for x in out if x.strip()]
-
-
 def relation_map(plan) -> dict[str | None, str]:
     """Alias (and bare relation name) to schema-qualified relation, from the plan's scans."""
     mapping: dict[str | None, str] = {}
@@ -151,29 +139,22 @@ def build_context(plan, node, relation_of: Mapping[str | None, str] | None = Non
     """What the rules see of one origin. `relation_of` is the plan's `relation_map`, made
     once per plan by the caller (made here when not given)."""
     nodes = plan.nodes
-    dialect = plan.sql_dialect
+    engine = plan.engine_spec
     if relation_of is None:
         relation_of = relation_map(plan)
     # a join or grouping node: unqualified names belong to the one relation below, if one
     own_relation = relation_name(node) or plan.index.sole_relation_below(node.id)
     if own_relation:
         relation_of = ChainMap({None: own_relation}, relation_of)
-    sources = [node]
-    # a bitmap heap scan's index conditions live on its bitmap children
-    for child_id in node.children:
-        child = nodes[child_id]
-        if child.is_input_edge and child.operator.lower().startswith("bitmap"):
-            sources.append(child)
-            for grandchild in child.children:
-                if nodes[grandchild].operator.lower().startswith("bitmap"):
-                    sources.append(nodes[grandchild])
+    # a scan driven by an index bitmap: the index conditions live on the nodes below
+    sources = [node] + [nodes[c] for c in node.conditions_from]
     clauses: list[Clause] = []
     seen: set[str] = set()
     for source in sources:
         for cond in source.conditions:
             if cond.kind == "recheck_cond" and len(sources) > 1:
-                continue  # repeats the bitmap children's index conditions
-            for clause in parse_condition(cond.text, cond.kind, dialect):
+                continue  # repeats the index conditions of the nodes below
+            for clause in parse_condition(cond.text, cond.kind, engine.dialect):
                 key = f"{clause.source}:{clause.text}"
                 if key in seen:
                     continue
@@ -181,18 +162,16 @@ def build_context(plan, node, relation_of: Mapping[str | None, str] | None = Non
                 clauses.append(clause)
     clauses = merge_ranges(clauses)
     starts = node.starts or 1
-    removed = sum(node.rows_removed.get(k, 0.0) for k in ("Filter", "Index Recheck")) * starts
+    removed = node.rows_discarded * starts
     rows_read = None
-    # Only a sequential scan reads every row of its relation; an index or bitmap scan's rows
-    # removed are counted after the index already narrowed them down.
-    if node.actual_total is not None and node.relation is not None and \
-            node.operator.lower().replace("_", " ") in ("seq scan", "table scan", "full scan"):
+    # Only a scan of the whole relation reads every row; an index scan's rows removed are
+    # counted after the index already narrowed them down.
+    if node.actual_total is not None and node.relation is not None and node.reads_whole_relation:
         rows_read = node.actual_total + removed
-    defaults = dict(getattr(plan._engine_module, "DEFAULT_SELECTIVITIES", {}) or {})
     return Context(node=node, plan=plan, clauses=clauses, relation_of=relation_of,
                    est_total=node.est_total or 0.0, actual_total=node.actual_total or 0.0,
                    own_log10_ratio=node.own_log10_ratio or 0.0, rows_read=rows_read,
-                   rows_removed=removed, defaults=defaults, dialect=dialect)
+                   rows_removed=removed, engine=engine)
 
 
 def fmt_rows(value: float | None) -> str:

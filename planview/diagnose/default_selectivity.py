@@ -22,8 +22,8 @@ def rule(ctx: Context) -> Candidate | None:
     aggregates = [c for c in ctx.clauses if c.aggregate]
     special = [c for c in clauses if c.op_class in NO_STATS_CLASSES and c not in opaque]
     match = ctx.default_match()
-    grouping_default = ctx.is_grouping and ctx.est_total in (200.0,) and \
-        "DEFAULT_NUM_DISTINCT" in ctx.defaults
+    num_distinct = ctx.engine.DEFAULT_NUM_DISTINCT
+    grouping_default = ctx.is_grouping and num_distinct is not None and ctx.est_total == num_distinct[1]
     if not (opaque or aggregates or special or match or grouping_default):
         return None
     lines: list[str] = []
@@ -43,7 +43,7 @@ def rule(ctx: Context) -> Candidate | None:
     if grouping_default:
         lines.append(f"Estimated exactly {fmt_rows(ctx.est_total)} groups: the default number of "
                      "distinct values when the grouping expression has no statistics.")
-        fields["default"] = {"name": "DEFAULT_NUM_DISTINCT", "value": ctx.defaults["DEFAULT_NUM_DISTINCT"]}
+        fields["default"] = {"name": num_distinct[0], "value": num_distinct[1]}
     if match:
         name, value = match
         lines.append(f"Fingerprint: estimated selectivity {fmt_sel(ctx.est_selectivity)} "

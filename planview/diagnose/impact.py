@@ -15,7 +15,7 @@ def node_ms(node) -> float | None:
     which run at the same time (there the per-process average is the wall-clock figure)."""
     if node.actual_total_ms is None:
         return None
-    if any(d.startswith("parallel") for d in node.derived) or node.parallel_aware:
+    if node.parallel_divisor is not None or node.parallel_aware:
         return node.actual_total_ms
     return node.actual_total_ms * (node.starts or 1)
 

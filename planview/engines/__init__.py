@@ -25,6 +25,9 @@ from importlib import metadata
 from types import ModuleType
 
 from ..errors import PlanParseError
+from .base import Engine, engine_of
+
+__all__ = ["BROKEN", "Engine", "detect", "engine_of", "engines", "get"]
 
 BROKEN: dict[str, str] = {}
 """Engine modules that failed to import, with the error (tests assert this stays empty)."""

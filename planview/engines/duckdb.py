@@ -18,7 +18,6 @@ from bisect import bisect_right, insort
 from collections.abc import Hashable
 from typing import Any
 
-from ..check import RULES as CHECK_RULES
 from ..check import Role
 from ..errors import PlanParseError
 from ..index import index_of
@@ -26,6 +25,7 @@ from ..inert import check_name
 from ..model import Condition, ParsedPlan, PlanNode, Statement
 from ..source import MAX_DEPTH
 from ._dispatch import MAX_COUNT, dispatch, json_document
+from .base import Engine
 
 NAME = "duckdb"
 FORMATS = ("json", "text")
@@ -740,57 +740,6 @@ def _subtree_dynamic_filter(node: PlanNode, nodes: list[PlanNode]) -> str | None
     return None
 
 
-def role(node: PlanNode, nodes: list[PlanNode], parsed: ParsedPlan) -> Role:
-    rule = INPUT_RULES.get(node.operator)
-    if rule is None:
-        rule = "source" if node.operator.endswith("_SCAN") or not node.children else "pass"
-    result = Role(rule=rule)
-    if rule == "join":
-        if node.join_type in SEMI_OUTER:
-            result.rule = "semi_outer"
-        elif node.join_type in SEMI_INNER:
-            result.rule = "semi_inner"
-        result.preserved = PRESERVED.get(node.join_type or "")
-        if len(node.children) > 1:
-            result.complete_inputs = tuple(node.children[1:])
-        if node.operator == "HASH_JOIN" and node.children:
-            probe = nodes[node.children[0]]
-            how = _subtree_dynamic_filter(node, nodes)
-            if how and probe.est_rows is not None and probe.actual_rows is not None:
-                if probe.actual_rows < probe.est_rows:
-                    result.stops_inputs = {probe.id: DYNAMIC_FILTER_REASON.format(how=how)}
-                result.cut_inputs = {probe.id: f"its probe input was cut while running by a "
-                                               f"dynamic filter ({how}), so that input's true "
-                                               "count is at least what it shows"}
-    if rule == "source" and node.operator in GROUPING and "group" in CHECK_RULES:
-        result.rule = "group"
-    if node.operator in PURE_PASS and len(node.children) == 1:
-        child = nodes[node.children[0]]
-        if node.est_rows is not None and child.est_rows is not None \
-                and abs(node.est_rows - child.est_rows) > 0.5:
-            result.rule = "source"
-    if node.operator == "TOP_N":
-        # Top-N reads all its input; when it reached its N its count is the N, not the input's
-        top = _count_or_none((node.extra.get("extra_info") or {}).get("Top"))
-        if top is not None and node.actual_rows is not None and node.actual_rows >= top:
-            result.rule = "source"
-    result.blocking = node.operator in BLOCKING
-    result.limit = node.operator in LIMITS
-    if node.operator == "CTE_SCAN":
-        cte_index = (node.extra.get("extra_info") or {}).get("CTE Index")
-        if isinstance(cte_index, Hashable):
-            cte = index_of(parsed).first_by(_cte_key).get((node.statement, cte_index))
-        else:  # a list or an object where a number belongs: compare by value, as rare as odd
-            cte = next((o.id for o in nodes if o.operator == "CTE" and o.children
-                        and o.statement == node.statement
-                        and (o.extra.get("extra_info") or {}).get("Table Index") == cte_index), None)
-        if cte is not None:
-            result.reads = nodes[cte].children[0]
-        if result.reads is None:
-            result.rule = "source"
-    return result
-
-
 def _cte_key(node: PlanNode) -> tuple[int, Any] | None:
     """A CTE by its statement and table index (what a CTE_SCAN's "CTE Index" names)."""
     if node.operator != "CTE" or not node.children:
@@ -875,3 +824,83 @@ def suggest_fix(cause: str, table: str | None, columns: list[str] | tuple[str, .
                                    "application; ANALYZE reads the whole table and holds DuckDB's "
                                    "single write lock while it runs.")
     return sql, caution
+
+
+# ---------------------------------------------------------------------------------------
+# The engine: its tables, and the hooks no table can say
+# ---------------------------------------------------------------------------------------
+
+class DuckDB(Engine):
+    NAME, FORMATS, SQL_DIALECT = NAME, FORMATS, SQL_DIALECT
+    INPUT_RULES = INPUT_RULES
+    JOINS = frozenset(JOINS)
+    SEMI_JOINS = frozenset(SEMI_OUTER)
+    RIGHT_SEMI_JOINS = frozenset(SEMI_INNER)
+    PRESERVED = PRESERVED
+    COMPLETE_INNER = frozenset(JOINS)
+    BLOCKING = frozenset(BLOCKING)
+    LIMITS = frozenset(LIMITS)
+    WHOLE_RELATION_SCANS = frozenset({"SEQ_SCAN", "TABLE_SCAN"})
+    DEFAULT_SELECTIVITIES = DEFAULT_SELECTIVITIES
+
+    def input_rule(self, node: PlanNode, nodes: list[PlanNode], inputs: list[int]) -> str:
+        op = node.operator
+        if op not in INPUT_RULES and op.endswith("_SCAN"):
+            return "source"
+        rule = super().input_rule(node, nodes, inputs)
+        if rule == "source" and op in GROUPING:
+            return "group"
+        if op in PURE_PASS and len(node.children) == 1:
+            child = nodes[node.children[0]]
+            if node.est_rows is not None and child.est_rows is not None \
+                    and abs(node.est_rows - child.est_rows) > 0.5:
+                return "source"  # estimated afresh after a rewrite: its error is its own
+        if op == "TOP_N":
+            # Top-N reads all its input; when it reached its N its count is the N, not the input's
+            top = _count_or_none((node.extra.get("extra_info") or {}).get("Top"))
+            if top is not None and node.actual_rows is not None and node.actual_rows >= top:
+                return "source"
+        return rule
+
+    def cte_read(self, node: PlanNode, nodes: list[PlanNode], parsed: ParsedPlan) -> int | None:
+        """A CTE_SCAN's "CTE Index" names the CTE's "Table Index"; it re-reads the CTE's child."""
+        if node.operator != "CTE_SCAN":
+            return None
+        cte_index = (node.extra.get("extra_info") or {}).get("CTE Index")
+        if isinstance(cte_index, Hashable):
+            cte = index_of(parsed).first_by(_cte_key).get((node.statement, cte_index))
+        else:  # a list or an object where a number belongs: compare by value, as rare as odd
+            cte = next((o.id for o in nodes if o.operator == "CTE" and o.children
+                        and o.statement == node.statement
+                        and (o.extra.get("extra_info") or {}).get("Table Index") == cte_index), None)
+        return nodes[cte].children[0] if cte is not None else None
+
+    def cte_reference(self, node: PlanNode) -> Hashable | None:
+        return node.operator if node.operator == "CTE_SCAN" else None
+
+    def refine(self, node: PlanNode, nodes: list[PlanNode], parsed: ParsedPlan, role: Role) -> None:
+        if node.operator == "CTE_SCAN" and role.reads is None:
+            role.rule = "source"
+        if node.operator in JOINS and len(node.children) > 1:
+            role.complete_inputs = tuple(node.children[1:])
+        if node.operator == "HASH_JOIN" and node.children:
+            self._dynamic_filter(node, nodes, role)
+
+    def _dynamic_filter(self, node: PlanNode, nodes: list[PlanNode], role: Role) -> None:
+        """A hash join may push a filter built from its build side into its probe side while
+        running: the probe's estimate leaves it out."""
+        probe = nodes[node.children[0]]
+        how = _subtree_dynamic_filter(node, nodes)
+        if how and probe.est_rows is not None and probe.actual_rows is not None:
+            if probe.actual_rows < probe.est_rows:
+                role.stops_inputs = {probe.id: DYNAMIC_FILTER_REASON.format(how=how)}
+            role.cut_inputs = {probe.id: f"its probe input was cut while running by a "
+                                         f"dynamic filter ({how}), so that input's true "
+                                         "count is at least what it shows"}
+
+    def suggest_fix(self, cause, table, columns=(), **details):
+        return suggest_fix(cause, table, columns, **details)
+
+
+ENGINE = DuckDB()
+role = ENGINE.role

@@ -23,6 +23,7 @@ from ..errors import PlanParseError
 from ..inert import check_name
 from ..model import Condition, ParsedPlan, PlanNode, Statement
 from ._dispatch import MAX_COUNT, dispatch, json_document
+from .base import Engine
 
 NAME = "mariadb"
 FORMATS = ("json", "table")
@@ -39,12 +40,17 @@ ACCESS_TYPES = {"ALL", "index", "range", "ref", "eq_ref", "const", "system", "re
                 "index_merge", "fulltext", "unique_subquery", "index_subquery", "hash_ALL",
                 "hash_range", "hash_index", "hash_index_merge", "NULL"}
 FULL_SCANS = {"ALL", "index", "hash_ALL", "hash_index"}
+# full scans whose r_rows count every row of the relation (hashed ones count what the join
+# buffer looked up, from memory: left out)
+WHOLE_RELATION_SCANS = {"ALL", "index"}
 NUMERIC_TABLE_KEYS = ("rows", "r_rows", "filtered", "r_filtered", "r_loops", "r_index_rows",
                       "r_icp_filtered", "r_total_filtered", "r_table_time_ms", "r_other_time_ms")
 CONDITION_KEYS = {"attached_condition": "filter", "index_condition": "index_cond",
                   "index_condition_bka": "index_cond", "having_condition": "filter"}
 JOIN_OPERATORS = {"nested_loop", "block-nl-join"}
-BLOCKING = {"filesort", "temporary_table", "materialized"}
+INPUT_RULES = {"nested_loop": "join", "block-nl-join": "join", "union_result": "sum",
+               "filesort": "pass", "temporary_table": "pass", "read_sorted_file": "pass"}
+BLOCKING = {"filesort", "temporary_table", "union_result"}
 # Every blocks' key that holds other blocks, so an unknown layout is read through
 WRAPPER_KEYS = ("expression_cache", "duplicates_removal", "read_sorted_file", "window_functions_computation")
 
@@ -688,38 +694,6 @@ def _number(value: Any, key: str, fmt: str) -> float | None:
 # Roles and fixes
 # ---------------------------------------------------------------------------------------
 
-def role(node: PlanNode, nodes: list[PlanNode], parsed: ParsedPlan) -> Role:
-    inputs = [nodes[c] for c in node.children if nodes[c].is_input_edge]
-    if node.operator in JOIN_OPERATORS:
-        result = Role(rule="join")
-        result.preserved = "outer" if node.join_type == "Left" else None
-        if len(inputs) > 1:
-            inner = inputs[1]
-            if node.operator == "block-nl-join":
-                result.complete_inputs = (inner.id,)
-            if inner.extra.get("first_match") or inner.extra.get("not_exists"):
-                result.stops_inputs = {inner.id: "stopped early: a semi-join (FirstMatch) or NOT "
-                                                 "EXISTS reads its inner table only up to the "
-                                                 "first match"}
-        return result
-    if node.operator == "union_result":
-        return Role(rule="sum", blocking=True)
-    if node.operator in ("filesort", "temporary_table", "read_sorted_file"):
-        return Role(rule="pass", blocking=node.operator != "read_sorted_file")
-    result = Role(rule="source")
-    source = node.extra.get("materialized_from")
-    if isinstance(source, int) and (node.relation or "").startswith("<derived"):
-        result.rule, result.reads = "cte", source
-    rows, r_rows = node.extra.get("rows"), node.extra.get("r_rows")
-    conditions_consumed = any(c.kind == "index_cond" for c in node.conditions)
-    if node.operator in FULL_SCANS and not conditions_consumed and rows and r_rows is not None \
-            and (node.starts or 0) <= 1 and r_rows < rows / 2 and not (node.relation or "").startswith("<"):
-        result.stopped = (f"stopped early: the full scan read {r_rows:,.0f} of the about "
-                          f"{rows:,.0f} rows of {node.relation}, so the query stopped it (a LIMIT "
-                          "the plan does not show, or a first match)")
-    return result
-
-
 IDENT_MAX_CHARS = 64
 """The longest table or column name MariaDB has ("Identifier Names" in the manual)."""
 
@@ -780,3 +754,54 @@ def _fix_for(cause: str, target: str, listed: str, analyze: str) -> str | None:
 
 def _bare(table: str | None) -> str | None:
     return table.split(".")[-1] if table else None
+
+
+# ---------------------------------------------------------------------------------------
+# The engine: its tables, and the hooks no table can say
+# ---------------------------------------------------------------------------------------
+
+FIRST_MATCH_REASON = ("stopped early: a semi-join (FirstMatch) or NOT EXISTS reads its inner table "
+                      "only up to the first match")
+
+
+class MariaDB(Engine):
+    """MariaDB's tables are its access types and the blocks the reader makes into operators."""
+
+    NAME, FORMATS, SQL_DIALECT = NAME, FORMATS, SQL_DIALECT
+    INPUT_RULES = INPUT_RULES
+    JOINS = frozenset(JOIN_OPERATORS)
+    PRESERVED = {"Left": "outer"}
+    COMPLETE_INNER = frozenset({"block-nl-join"})
+    BLOCKING = frozenset(BLOCKING)
+    WHOLE_RELATION_SCANS = frozenset(WHOLE_RELATION_SCANS)
+
+    def input_rule(self, node: PlanNode, nodes: list[PlanNode], inputs: list[int]) -> str:
+        return INPUT_RULES.get(node.operator, "source")  # a table's own figures are its own
+
+    def inner_stop_reason(self, node: PlanNode, inner: PlanNode) -> str | None:
+        return FIRST_MATCH_REASON if inner.extra.get("first_match") or inner.extra.get("not_exists") else None
+
+    def cte_reference(self, node: PlanNode) -> int | None:
+        """A derived table's scan re-reads the block it was materialised from."""
+        source = node.extra.get("materialized_from")
+        return source if isinstance(source, int) and (node.relation or "").startswith("<derived") else None
+
+    def cte_read(self, node: PlanNode, nodes: list[PlanNode], parsed: ParsedPlan) -> int | None:
+        return self.cte_reference(node)
+
+    def refine(self, node: PlanNode, nodes: list[PlanNode], parsed: ParsedPlan, role: Role) -> None:
+        """A full scan that read far fewer rows than the table holds was stopped by the query."""
+        rows, r_rows = node.extra.get("rows"), node.extra.get("r_rows")
+        conditions_consumed = any(c.kind == "index_cond" for c in node.conditions)
+        if node.operator in FULL_SCANS and not conditions_consumed and rows and r_rows is not None \
+                and (node.starts or 0) <= 1 and r_rows < rows / 2 and not (node.relation or "").startswith("<"):
+            role.stopped = (f"stopped early: the full scan read {r_rows:,.0f} of the about "
+                            f"{rows:,.0f} rows of {node.relation}, so the query stopped it (a LIMIT "
+                            "the plan does not show, or a first match)")
+
+    def suggest_fix(self, cause, table, columns=(), **details):
+        return suggest_fix(cause, table, columns, **details)
+
+
+ENGINE = MariaDB()
+role = ENGINE.role

@@ -15,13 +15,12 @@ from __future__ import annotations
 import re
 from typing import Any
 
-from ..check import RULES as CHECK_RULES
-from ..check import Role
 from ..errors import PlanParseError
 from ..inert import check_name
 from ..model import Condition, ParsedPlan, PlanNode, Statement
 from ..source import MAX_DEPTH
 from ._dispatch import MAX_COUNT, dispatch, json_document
+from .base import Engine
 
 NAME = "mysql"
 FORMATS = ("tree", "json")
@@ -415,37 +414,6 @@ def _node_from_json(raw: dict, node_id: int, parent: int | None, depth: int, whe
 # Roles and fixes
 # ---------------------------------------------------------------------------------------
 
-def _starts_with(operator: str, names: tuple[str, ...]) -> bool:
-    return any(operator == n or operator.startswith(n + " ") for n in names)
-
-
-def role(node: PlanNode, nodes: list[PlanNode], parsed: ParsedPlan) -> Role:
-    inputs = [nodes[c] for c in node.children if nodes[c].is_input_edge]
-    op = node.operator
-    if node.join_type:
-        result = Role(rule="semi_outer" if node.join_type in ("Semi", "Anti") else "join")
-        result.preserved = "outer" if node.join_type == "Left" else None
-        if len(inputs) > 1:
-            inner = inputs[1]
-            if "hash" in op.lower() or inner.extra.get("hashed"):
-                result.complete_inputs = (inner.id,)
-            elif node.join_type in ("Semi", "Anti"):
-                result.stops_inputs = {inner.id: f"stopped early: a nested-loop {node.join_type.lower()} "
-                                                 "join reads its inner input only up to the first match"}
-        return result
-    if _starts_with(op, GROUPING):
-        return Role(rule="group" if "group" in CHECK_RULES and inputs else "source",
-                    blocking=not op.startswith("Group aggregate"))
-    if not inputs:
-        return Role(rule="source")
-    result = Role(rule="pass")
-    result.blocking = _starts_with(op, BLOCKING)
-    result.limit = _starts_with(op, LIMITS)
-    if op.startswith("Append") or op.startswith("Union"):
-        result.rule = "sum"
-    return result
-
-
 IDENT_MAX_CHARS = 64
 """The longest table or column name MySQL has ("Identifier Length Limits" in the manual)."""
 
@@ -486,3 +454,55 @@ def suggest_fix(cause: str, table: str | None, columns: list[str] | tuple[str, .
         return (histogram + "\n-- A column inside a function or an expression gets no histogram: compare "
                             "the bare column, or index a generated column holding the expression.", caution)
     return None
+
+
+# ---------------------------------------------------------------------------------------
+# The engine: its tables, and the hooks no table can say
+# ---------------------------------------------------------------------------------------
+
+class MySQL(Engine):
+    """MySQL prints an iterator with its object (``Sort: t.a``, ``Limit: 10 row(s)``): its
+    tables name the iterators, matched by their first words."""
+
+    NAME, FORMATS, SQL_DIALECT = NAME, FORMATS, SQL_DIALECT
+    INPUT_RULES = {**{name: "group" for name in GROUPING}, "Append": "sum", "Union": "sum"}
+    SEMI_JOINS = frozenset({"Semi", "Anti"})
+    PRESERVED = {"Left": "outer"}
+    # a hashed grouping reads all its input; a streaming one ("Group aggregate") does not
+    BLOCKING = frozenset({*BLOCKING, "Aggregate"})
+    LIMITS = frozenset(LIMITS)
+    WHOLE_RELATION_SCANS = frozenset({"Table scan"})
+    STOP_INNER_REASON = ("stopped early: a nested-loop {join_type} join reads its inner input only "
+                         "up to the first match")
+
+    def listed(self, operator, table) -> bool:
+        return any(operator == name or operator.startswith(name + " ") for name in table)
+
+    def lookup(self, operator, table):
+        return next((rule for name, rule in table.items()
+                     if operator == name or operator.startswith(name + " ")), None)
+
+    def is_join(self, node: PlanNode) -> bool:
+        return bool(node.join_type)
+
+    def input_rule(self, node: PlanNode, nodes: list[PlanNode], inputs: list[int]) -> str:
+        if node.join_type:
+            return "semi_outer" if node.join_type in self.SEMI_JOINS else "join"
+        if not inputs:
+            return "source"
+        return self.lookup(node.operator, self.INPUT_RULES) or "pass"
+
+    def completes_inner(self, node: PlanNode, inner: PlanNode) -> bool:
+        return "hash" in node.operator.lower() or bool(inner.extra.get("hashed"))
+
+    def inner_stop_reason(self, node: PlanNode, inner: PlanNode) -> str | None:
+        if node.join_type in self.SEMI_JOINS and not self.completes_inner(node, inner):
+            return self.STOP_INNER_REASON.format(join_type=node.join_type.lower())
+        return None
+
+    def suggest_fix(self, cause, table, columns=(), **details):
+        return suggest_fix(cause, table, columns, **details)
+
+
+ENGINE = MySQL()
+role = ENGINE.role

@@ -18,11 +18,11 @@ from sqlglot import exp as sqlglot_exp
 
 from ..check import Role
 from ..errors import PlanParseError
-from ..index import index_of
 from ..inert import check_name, comment_text
 from ..model import NO_ENTRIES, Condition, ParsedPlan, PlanNode, Statement
 from ..source import MAX_DEPTH
 from ._dispatch import JSON_DECODER, MAX_COUNT, BadNumber, bad_number_error
+from .base import Engine
 
 NAME = "postgresql"
 FORMATS = ("text", "json", "xml", "yaml")
@@ -129,25 +129,13 @@ KNOWN_TYPES = set(INPUT_RULES)
 TEXT_TYPE_SET = frozenset(KNOWN_TYPES | set(AGG_STRATEGY) | set(SETOP_STRATEGY))
 
 
-def input_rule(node: PlanNode, nodes: list[PlanNode]) -> str:
-    rule = INPUT_RULES.get(node.operator, "pass" if node.children else "source")
-    if rule == "join":
-        if node.join_type in ("Semi", "Anti"):
-            return "semi_outer"
-        if node.join_type in ("Right Semi", "Right Anti"):
-            return "semi_inner"
-    if rule == "group" and node.operator == "Aggregate" and node.strategy == "Plain":
-        return "source"  # one row out, whatever comes in
-    if node.operator == "ModifyTable" and node.est_rows == 0 and not node.actual_rows:
-        return "uncounted"  # no RETURNING: it emits no rows; what it writes is its input's
-    if rule in ("pass", "group") and not [c for c in node.children if nodes[c].is_input_edge]:
-        return "source"
-    return rule
-
-
 # Node types that read all their input before they emit a row.
 BLOCKING = {"Sort", "Hash", "Incremental Sort", "SetOp"}
 PRESERVED = {"Left": "outer", "Right": "inner", "Full": "both"}
+JOINS = {"Nested Loop", "Hash Join", "Merge Join"}
+GATHERS = ("Gather", "Gather Merge")
+# Node types whose index conditions restrict the heap scan above them.
+BITMAPS = {"Bitmap Index Scan", "BitmapAnd", "BitmapOr", "Bitmap Heap Scan"}
 
 
 def parallel_divisor(workers: int, leader_participates: bool = True) -> float:
@@ -158,96 +146,6 @@ def parallel_divisor(workers: int, leader_participates: bool = True) -> float:
         if leader > 0:
             divisor += leader
     return divisor or 1.0
-
-
-_LOOP_JOINS = ("Nested Loop", "Merge Join")
-_COMPLETE_INNER = ("Nested Loop", "Hash Join")
-
-
-def role(node: PlanNode, nodes: list[PlanNode], parsed: ParsedPlan) -> Role:
-    """What the check needs to know about a node (see planview.check.Role).
-
-    Asked once a node, in pre-order; the common cases take the shortest path.
-    """
-    op = node.operator
-    partial = _partial_divisor(node, nodes, parsed)
-    if not node.children and op != "CTE Scan":
-        return Role(rule=INPUT_RULES.get(op, "source"), partial=partial)
-    result = Role(rule=input_rule(node, nodes), partial=partial)
-    result.blocking = op in BLOCKING or (op == "Aggregate" and node.strategy in ("Plain", "Hashed", "Mixed"))
-    result.limit = op == "Limit"
-    join_type = node.join_type
-    if join_type is not None:
-        inner = next((c for c in node.children if nodes[c].parent_relationship == "Inner"), None)
-        if op in _COMPLETE_INNER and inner is not None:
-            result.complete_inputs = (inner,)
-        if op in _LOOP_JOINS and join_type in ("Semi", "Anti") and inner is not None:
-            result.stops_inputs = {inner: f"stopped early: a {join_type.lower()} join reads its "
-                                          "inner input only up to the first match"}
-        if op == "Merge Join":
-            result.overestimate_unjudged = tuple(c for c in node.children if nodes[c].is_input_edge)
-        result.preserved = PRESERVED.get(join_type)
-    subplans = [nodes[c] for c in node.children if nodes[c].parent_relationship == "SubPlan"]
-    if subplans:
-        texts = " ".join(c.text for c in node.conditions)
-        for child in subplans:
-            name = child.subplan_name
-            if name and re.search(rf"(EXISTS\s*\(|ANY \(|alternatives: ){re.escape(name)}\b", texts):
-                result.stops_inputs = dict(result.stops_inputs or {})
-                result.stops_inputs[child.id] = f"stopped early: {name} stops at its first match"
-    if op == "CTE Scan" and node.cte_name:
-        result.reads = index_of(parsed).first_by(_subplan_key).get((node.statement, f"CTE {node.cte_name}"))
-    return result
-
-
-def _subplan_key(node: PlanNode) -> tuple[int, str] | None:
-    return (node.statement, node.subplan_name) if node.subplan_name else None
-
-
-def _partial_divisor(node: PlanNode, nodes: list[PlanNode], parsed: ParsedPlan) -> float | None:
-    """The parallel divisor when the node's estimate is per process, else None.
-
-    A node is on a partial path when it is parallel-aware, or when its first input is (a
-    join or aggregate over a parallel scan), below a Gather or Gather Merge. We take the
-    divisor out (estimate x divisor) so that the total compares with actual rows x loops.
-    Both facts are memoised on the parsed plan: `role` is asked once a node, in pre-order.
-    """
-    memo = parsed.__dict__.setdefault("_pg_parallel", {"gather": {}, "partial": {}})
-    gathers: dict[int, int | None] = memo["gather"]
-    parent = nodes[node.parent] if node.parent is not None else None
-    if parent is None:
-        gather_id = None
-    elif parent.operator in ("Gather", "Gather Merge"):
-        gather_id = parent.id
-    else:
-        gather_id = gathers.get(parent.id)
-    gathers[node.id] = gather_id
-    if gather_id is None or not nodes[gather_id].workers_planned:
-        return None
-    partial: dict[int, bool] = memo["partial"]
-    chain = []
-    current = node
-    answer = False
-    while True:
-        if current.id in partial:
-            answer = partial[current.id]
-            break
-        chain.append(current.id)
-        if current.parallel_aware:
-            answer = True
-            break
-        inputs = [c for c in current.children if nodes[c].is_input_edge]
-        if not inputs or current.operator in ("Gather", "Gather Merge"):
-            answer = False
-            break
-        current = nodes[inputs[0]]
-    for node_id in chain:
-        partial[node_id] = answer
-    if not answer:
-        return None
-    settings = parsed.statements[node.statement].settings if node.statement < len(parsed.statements) else {}
-    leader = str(settings.get("parallel_leader_participation", "on")).lower() != "off"
-    return parallel_divisor(nodes[gather_id].workers_planned, leader)
 
 
 def repair(parsed: ParsedPlan) -> None:
@@ -1658,3 +1556,113 @@ def _expression_fix(table: str, qt: str, expressions: list[str], aggregate: bool
                "CREATE INDEX blocks writes while it builds. " + _ANALYZE_CAUTION + " "
                + _CHANGE_PROCESS)
     return "\n".join(lines), caution
+
+
+# ---------------------------------------------------------------------------------------
+# The engine: its tables, and the hooks no table can say
+# ---------------------------------------------------------------------------------------
+
+class PostgreSQL(Engine):
+    NAME, FORMATS, SQL_DIALECT = NAME, FORMATS, SQL_DIALECT
+    INPUT_RULES = INPUT_RULES
+    JOINS = frozenset(JOINS)
+    SEMI_JOINS = frozenset({"Semi", "Anti"})
+    RIGHT_SEMI_JOINS = frozenset({"Right Semi", "Right Anti"})
+    PRESERVED = PRESERVED
+    COMPLETE_INNER = frozenset({"Nested Loop", "Hash Join"})
+    LOOP_JOINS = frozenset({"Nested Loop", "Merge Join"})
+    MERGE_JOINS = frozenset({"Merge Join"})
+    BLOCKING = frozenset(BLOCKING)
+    BLOCKING_STRATEGIES = {"Aggregate": frozenset({"Plain", "Hashed", "Mixed"})}
+    LIMITS = frozenset({"Limit"})
+    WHOLE_RELATION_SCANS = frozenset({"Seq Scan"})
+    ROWS_DISCARDED_KEYS = ("Filter", "Index Recheck")
+    CONDITION_PROVIDERS = frozenset(BITMAPS)
+    GROUP_KEYS = "Group Key"
+    DEFAULT_NUM_DISTINCT = ("DEFAULT_NUM_DISTINCT", DEFAULT_SELECTIVITIES["DEFAULT_NUM_DISTINCT"])
+    DEFAULT_SELECTIVITIES = {k: v for k, v in DEFAULT_SELECTIVITIES.items() if k != "DEFAULT_NUM_DISTINCT"}
+
+    def input_rule(self, node: PlanNode, nodes: list[PlanNode], inputs: list[int]) -> str:
+        if not node.children:
+            return INPUT_RULES.get(node.operator, "source")
+        rule = super().input_rule(node, nodes, inputs)
+        if rule == "group" and node.operator == "Aggregate" and node.strategy == "Plain":
+            return "source"  # one row out, whatever comes in
+        if node.operator == "ModifyTable" and node.est_rows == 0 and not node.actual_rows:
+            return "uncounted"  # no RETURNING: it emits no rows; what it writes is its input's
+        if rule in ("pass", "group") and not inputs:
+            return "source"
+        return rule
+
+    def inner_input(self, node: PlanNode, nodes: list[PlanNode], inputs: list[int]) -> int | None:
+        return next((c for c in node.children if nodes[c].parent_relationship == "Inner"), None)
+
+    def cte_reference(self, node: PlanNode) -> tuple[int, str] | None:
+        return (node.statement, f"CTE {node.cte_name}") if node.operator == "CTE Scan" and node.cte_name else None
+
+    def cte_definition(self, node: PlanNode) -> tuple[int, str] | None:
+        return (node.statement, node.subplan_name) if node.subplan_name else None
+
+    def refine(self, node: PlanNode, nodes: list[PlanNode], parsed: ParsedPlan, role: Role) -> None:
+        """A sub-plan that answers EXISTS, ANY or a hashed alternative stops at its first match."""
+        subplans = [nodes[c] for c in node.children if nodes[c].parent_relationship == "SubPlan"]
+        if not subplans:
+            return
+        texts = " ".join(c.text for c in node.conditions)
+        for child in subplans:
+            name = child.subplan_name
+            if name and re.search(rf"(EXISTS\s*\(|ANY \(|alternatives: ){re.escape(name)}\b", texts):
+                role.stops_inputs = dict(role.stops_inputs or {})
+                role.stops_inputs[child.id] = f"stopped early: {name} stops at its first match"
+
+    def parallel_divisor(self, node: PlanNode, nodes: list[PlanNode], parsed: ParsedPlan) -> float | None:
+        """The parallel divisor when the node's estimate is per process, else None.
+
+        A node is on a partial path when it is parallel-aware, or when its first input is (a
+        join or aggregate over a parallel scan), below a Gather or Gather Merge. We take the
+        divisor out (estimate x divisor) so that the total compares with actual rows x loops.
+        Both facts are memoised on the parsed plan: `role` is asked once a node, in pre-order.
+        """
+        memo = parsed.__dict__.setdefault("_pg_parallel", {"gather": {}, "partial": {}})
+        gathers: dict[int, int | None] = memo["gather"]
+        parent = nodes[node.parent] if node.parent is not None else None
+        if parent is None:
+            gather_id = None
+        elif parent.operator in GATHERS:
+            gather_id = parent.id
+        else:
+            gather_id = gathers.get(parent.id)
+        gathers[node.id] = gather_id
+        if gather_id is None or not nodes[gather_id].workers_planned:
+            return None
+        partial: dict[int, bool] = memo["partial"]
+        chain = []
+        current = node
+        answer = False
+        while True:
+            if current.id in partial:
+                answer = partial[current.id]
+                break
+            chain.append(current.id)
+            if current.parallel_aware:
+                answer = True
+                break
+            inputs = [c for c in current.children if nodes[c].is_input_edge]
+            if not inputs or current.operator in GATHERS:
+                answer = False
+                break
+            current = nodes[inputs[0]]
+        for node_id in chain:
+            partial[node_id] = answer
+        if not answer:
+            return None
+        settings = parsed.statements[node.statement].settings if node.statement < len(parsed.statements) else {}
+        leader = str(settings.get("parallel_leader_participation", "on")).lower() != "off"
+        return parallel_divisor(nodes[gather_id].workers_planned, leader)
+
+    def suggest_fix(self, cause, table, columns=(), **details):
+        return suggest_fix(cause, table, list(columns), **details)
+
+
+ENGINE = PostgreSQL()
+role = ENGINE.role
