@@ -51,7 +51,7 @@ class Role:
       (both sides of a merge join);
     - `partial`: its estimate is per parallel process, with this divisor (None: not partial);
     - `preserved`: for an outer join, which input it emits whole (``outer``, ``inner``, ``both``);
-    - `reads`: the id of a node whose output this one re-reads (a CTE Scan's CTE);
+    - `reads`: the id of a node whose output this one re-reads (a CTE scan's CTE);
     - `cut_inputs`: inputs whose rows were cut while running by a filter their estimate
       leaves out (a filter pushed down from a join at run time), with the reason. Their actual
       count is only a lower bound, so this node's own error is taken against their printed
@@ -218,8 +218,8 @@ def _own_as_is(lr: float, inputs: list[PlanNode], role: Role) -> float:
 
 def _own_minus_first(lr: float, inputs: list[PlanNode], role: Role) -> float:
     """Minus its input's log ratio: the one input of Hash, Sort, Materialize, Memoize, Gather,
-    Limit...; the bitmap child of a Bitmap Heap Scan; the outer input of a semi or anti join;
-    the CTE a CTE Scan reads."""
+    Limit...; the index bitmap under a heap scan; the outer input of a semi or anti join;
+    the CTE a CTE scan reads."""
     return lr - _carried(inputs[0], role.cut_inputs)
 
 
@@ -248,7 +248,7 @@ def _own_of_join(lr: float, inputs: list[PlanNode], role: Role) -> float:
 
 
 def _own_of_sum(lr: float, inputs: list[PlanNode], role: Role) -> float:
-    """Against the sums of its inputs' estimated and actual rows (Append, Merge Append)."""
+    """Against the sums of its inputs' estimated and actual rows (a concatenation of inputs)."""
     counted = [c for c in inputs if c.judged]
     if not counted:
         return lr
@@ -269,7 +269,7 @@ RULES: dict[str, OwnErrorRule] = {
     "bitmap_heap": _own_minus_first,
     "sum": _own_of_sum,
     "cte": _own_minus_first,
-    # not judged: the engine does not count this node's rows (BitmapAnd, BitmapOr)
+    # not judged: the engine does not count this node's rows (a combination of index bitmaps)
     "uncounted": _own_as_is,
 }
 """How each input rule separates a node's own error from what its inputs carry in: the rule's
@@ -283,7 +283,7 @@ def _own_error(node: PlanNode, role: Role, nodes: list[PlanNode]) -> float:
     apply = RULES.get(node.own_rule or "", _own_as_is)
     if apply is _own_as_is:
         return lr
-    if node.own_rule == "cte":  # a CTE Scan's input is the CTE it reads, not a child
+    if node.own_rule == "cte":  # a CTE scan's input is the CTE it reads, not a child
         inputs = [nodes[role.reads]] if role.reads is not None else []
     else:
         inputs = [nodes[c] for c in node.children if nodes[c].is_input_edge]
@@ -294,7 +294,7 @@ def _own_errors_and_origins(nodes: list[PlanNode], roles: list[Role], threshold:
     """One bottom-up pass: each judged node's own error, whether it is an origin, and the
     origins below that explain the error of a node that is not one (`inherits_from`).
 
-    A node that re-reads another (a CTE Scan) may come after what it reads in pre-order, so
+    A node that re-reads another (a CTE scan) may come after what it reads in pre-order, so
     a second pass picks those links up."""
     findings: list[Finding] = []
     below: dict[int, list[int]] = {}

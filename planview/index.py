@@ -139,7 +139,7 @@ class PlanIndex:
     def first_by(self, key: Callable[[PlanNode], Hashable | None]) -> dict[Hashable, int]:
         """The first node in pre-order for each value of `key` (None: left out).
 
-        Built once per key function, so a lookup per node (a CTE Scan finding its CTE) costs
+        Built once per key function, so a lookup per node (a CTE scan finding its CTE) costs
         one dictionary access, not a scan of all nodes."""
         table = self._first_by.get(key)
         if table is None:
