@@ -8,10 +8,32 @@ keys that have no field here are kept, unchanged, in `PlanNode.extra`.
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+from enum import Enum
 from typing import TYPE_CHECKING, Any
 
 if TYPE_CHECKING:
     from .index import PlanIndex
+
+
+class Relationship(str, Enum):
+    """How a node feeds its parent. A `str`, so comparisons with the engine's spelling and the
+    JSON report stay as they were."""
+
+    OUTER = "Outer"
+    INNER = "Inner"
+    MEMBER = "Member"
+    SUBQUERY = "Subquery"
+    INIT_PLAN = "InitPlan"
+    SUBPLAN = "SubPlan"
+
+    def __str__(self) -> str:
+        return self.value
+
+    __format__ = str.__format__
+
+
+RELATIONSHIPS = {r.value: r for r in Relationship}
+
 
 
 class FrozenEmpty(dict):
@@ -67,7 +89,8 @@ class PlanNode:
     function_name: str | None = None
     cte_name: str | None = None
     subplan_name: str | None = None
-    parent_relationship: str | None = None
+    parent_relationship: Relationship | str | None = None
+    """A `Relationship`; a spelling no engine documents is kept as printed."""
     # details of the operator
     join_type: str | None = None
     strategy: str | None = None
@@ -121,7 +144,7 @@ class PlanNode:
     @property
     def is_input_edge(self) -> bool:
         """True when this node feeds rows to its parent (not an InitPlan or SubPlan)."""
-        return self.parent_relationship not in ("InitPlan", "SubPlan")
+        return self.parent_relationship not in (Relationship.INIT_PLAN, Relationship.SUBPLAN)
 
 
 @dataclass(slots=True)

@@ -23,8 +23,8 @@ from ..errors import PlanParseError
 from ..index import index_of
 from ..inert import check_name
 from ..model import Condition, ParsedPlan, PlanNode, Statement
-from ..source import MAX_DEPTH
-from ._dispatch import MAX_COUNT, dispatch, json_document
+from ._dispatch import dispatch, json_document
+from ._tree import append_node, check_depth, link_inputs, read_number
 from .base import Engine
 
 NAME = "duckdb"
@@ -178,13 +178,9 @@ def _parse_json(text: str) -> ParsedPlan:
         todo: list[tuple[Any, int | None, int, str]] = [(raw, None, 0, key_path)]
         while todo:
             item, parent, depth, where = todo.pop()
-            if depth > MAX_DEPTH:
-                raise PlanParseError(f"plan deeper than {MAX_DEPTH} levels; refused", key=where,
-                                     engine=NAME, fmt="json")
-            node = _node_from_json(item, len(nodes), parent, depth, stmt_no, where, version)
-            if parent is not None:
-                nodes[parent].children.append(node.id)
-            nodes.append(node)
+            check_depth(depth, key=where, engine=NAME, fmt="json")
+            node = append_node(nodes, _node_from_json(item, len(nodes), parent, depth, stmt_no, where,
+                                                      version), parent)
             has_actuals = has_actuals or node.actual_rows is not None
             kids = item.get("children") or []
             if not isinstance(kids, list):
@@ -385,13 +381,8 @@ def _rejoin_wrapped(items: list) -> list:
 
 def _relationships(nodes: list[PlanNode]) -> None:
     """Joins read their first child as the probe (outer) side and build on the second."""
-    for node in nodes:
-        if node.operator in JOINS:
-            for i, child in enumerate(node.children):
-                nodes[child].parent_relationship = "Outer" if i == 0 else "Inner"
-        elif node.operator in ("UNION", "RECURSIVE_CTE"):
-            for child in node.children:
-                nodes[child].parent_relationship = "Member"
+    link_inputs(nodes, lambda node: node.operator in JOINS,
+                lambda node: node.operator in ("UNION", "RECURSIVE_CTE"))
 
 
 def compose_label(node: PlanNode) -> str:
@@ -456,9 +447,7 @@ def _parse_text(text: str) -> ParsedPlan:
         if name in WRAPPERS and parent is None and kids.get(box_no):
             todo.extend((k, None, 0) for k in reversed(kids[box_no]))
             continue
-        if depth > MAX_DEPTH:
-            raise PlanParseError(f"plan deeper than {MAX_DEPTH} levels; refused",
-                                 line=operators[box_no]["top"] + 1, engine=NAME, fmt="text")
+        check_depth(depth, line=operators[box_no]["top"] + 1, engine=NAME, fmt="text")
         order.append((box_no, parent, depth))
         todo.extend((k, box_no, depth + 1) for k in reversed(kids.get(box_no, [])))
     id_of: dict[int, int] = {}
@@ -468,11 +457,9 @@ def _parse_text(text: str) -> ParsedPlan:
         parent = id_of.get(parent_box) if parent_box is not None else None
         if parent is None:
             statements.append(Statement(root=len(nodes), execution_ms=total_ms if not statements else None))
-        node = _node_from_box(operators[box_no], len(nodes), parent, depth, len(statements) - 1)
+        node = append_node(nodes, _node_from_box(operators[box_no], len(nodes), parent, depth,
+                                                 len(statements) - 1), parent)
         id_of[box_no] = node.id
-        if parent is not None:
-            nodes[parent].children.append(node.id)
-        nodes.append(node)
     _relationships(nodes)
     has_actuals = any(n.actual_rows is not None for n in nodes)
     has_estimates = any(n.est_rows is not None for n in nodes)
@@ -677,26 +664,7 @@ def _node_from_box(box: dict, node_id: int, parent: int | None, depth: int, stmt
 # ---------------------------------------------------------------------------------------
 
 def _count(value: Any, key: str | None, fmt: str, line: int | None = None) -> float | None:
-    if value is None:
-        return None
-    if isinstance(value, bool):
-        raise PlanParseError(f"expected a number, got {value!r}", key=key, line=line,
-                             engine=NAME, fmt=fmt)
-    if isinstance(value, (int, float)):
-        number = float(value)
-    elif isinstance(value, str):
-        try:
-            number = float(value.strip().replace(",", ""))
-        except ValueError:
-            raise PlanParseError(f"expected a number, got {value!r}", key=key, line=line,
-                                 engine=NAME, fmt=fmt) from None
-    else:
-        raise PlanParseError(f"expected a number, got {type(value).__name__}", key=key, line=line,
-                             engine=NAME, fmt=fmt)
-    if number != number or number < 0 or number > MAX_COUNT:
-        raise PlanParseError(f"expected a count from 0 to 1e100, got {value!r}", key=key,
-                             line=line, engine=NAME, fmt=fmt)
-    return number
+    return read_number(value, engine=NAME, fmt=fmt, key=key, line=line, thousands=True)
 
 
 def _seconds_ms(value: Any, key: str) -> float | None:

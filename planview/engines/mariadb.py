@@ -22,7 +22,8 @@ from ..check import Role
 from ..errors import PlanParseError
 from ..inert import check_name
 from ..model import Condition, ParsedPlan, PlanNode, Statement
-from ._dispatch import MAX_COUNT, dispatch, json_document
+from ._dispatch import dispatch, json_document
+from ._tree import append_node, check_depth, read_number, typed_relationships
 from .base import Engine
 
 NAME = "mariadb"
@@ -94,19 +95,12 @@ class _Builder:
         return PlanParseError(message, key=key, engine=NAME, fmt=self.fmt)
 
     def add(self, node: PlanNode, parent: int | None) -> PlanNode:
-        node.id = len(self.nodes)
-        node.parent = parent
-        node.depth = 0 if parent is None else self.nodes[parent].depth + 1
-        if parent is not None:
-            self.nodes[parent].children.append(node.id)
-        self.nodes.append(node)
-        return node
+        return append_node(self.nodes, node, parent)
 
     # a block: query_block, or anything holding one of the block keys
     def block(self, raw: Any, parent: int | None, path: str, depth: int, relationship: str | None,
               loops: float | None = None) -> int | None:
-        if depth > MAX_BLOCK_DEPTH:
-            raise self.error(f"query blocks nested deeper than {MAX_BLOCK_DEPTH}; refused", path)
+        check_depth(depth, key=path, engine=NAME, fmt=self.fmt, limit=MAX_BLOCK_DEPTH, what="query blocks")
         if not isinstance(raw, dict):
             raise self.error("a block is not an object", path)
         if "query_block" in raw and isinstance(raw["query_block"], dict) and len(
@@ -464,6 +458,7 @@ def _parse_json(text: str) -> ParsedPlan:
     if not builder.has_actuals:
         notes.append("no actuals: this is EXPLAIN FORMAT=JSON; run ANALYZE FORMAT=JSON to "
                      "compare estimates with what really happened")
+    typed_relationships(builder.nodes)
     return ParsedPlan(engine=NAME, format="json", nodes=builder.nodes, statements=[statement],
                       engine_version=version, has_actuals=builder.has_actuals, notes=notes)
 
@@ -558,6 +553,7 @@ def _parse_table(text: str) -> ParsedPlan:
                     references.setdefault(ref_sid, node.id)
     for node in builder.nodes:
         node.extra.pop("est_output_total", None)
+    typed_relationships(builder.nodes)
     return ParsedPlan(engine=NAME, format="table", nodes=builder.nodes,
                       statements=[Statement(root=root or 0)], engine_version=None,
                       has_actuals=builder.has_actuals, notes=notes)
@@ -566,15 +562,7 @@ def _parse_table(text: str) -> ParsedPlan:
 def _cell_number(value: str | None, line: int, column: str) -> float | None:
     if value is None or value in ("", "NULL"):
         return None
-    try:
-        number = float(value)
-    except ValueError:
-        raise PlanParseError(f"{column} is not a number: {value!r}", line=line, engine=NAME,
-                             fmt="table") from None
-    if number != number or number < 0 or number > MAX_COUNT:
-        raise PlanParseError(f"{column} is not a count from 0 to 1e100: {value!r}", line=line,
-                             engine=NAME, fmt="table")
-    return number
+    return read_number(value, key=column, line=line, engine=NAME, fmt="table")
 
 
 def _table_block(builder: _Builder, members, parent, relationship) -> int:
@@ -669,25 +657,7 @@ def _table_node(builder: _Builder, raw, numbers, extra, number, parent, relation
 # ---------------------------------------------------------------------------------------
 
 def _number(value: Any, key: str, fmt: str) -> float | None:
-    if value is None:
-        return None
-    if isinstance(value, bool):
-        raise PlanParseError(f"expected a number, got {value!r}", key=key, engine=NAME, fmt=fmt)
-    if isinstance(value, (int, float)):
-        number = float(value)
-    elif isinstance(value, str):
-        try:
-            number = float(value)
-        except ValueError:
-            raise PlanParseError(f"expected a number, got {value!r}", key=key, engine=NAME,
-                                 fmt=fmt) from None
-    else:
-        raise PlanParseError(f"expected a number, got {type(value).__name__}", key=key, engine=NAME,
-                             fmt=fmt)
-    if number != number or number < 0 or number > MAX_COUNT:
-        raise PlanParseError(f"expected a count from 0 to 1e100, got {value!r}", key=key,
-                             engine=NAME, fmt=fmt)
-    return number
+    return read_number(value, key=key, engine=NAME, fmt=fmt)
 
 
 # ---------------------------------------------------------------------------------------

@@ -17,9 +17,9 @@ from typing import Any
 
 from ..errors import PlanParseError
 from ..inert import check_name
-from ..model import Condition, ParsedPlan, PlanNode, Statement
-from ..source import MAX_DEPTH
-from ._dispatch import MAX_COUNT, dispatch, json_document
+from ..model import Condition, ParsedPlan, PlanNode, Relationship, Statement
+from ._dispatch import dispatch, json_document
+from ._tree import append_node, check_depth, link_inputs, read_number
 from .base import Engine
 
 NAME = "mysql"
@@ -186,9 +186,7 @@ def _parse_tree(text: str) -> ParsedPlan:
         parent = next((nid for _, nid in reversed(stack) if nid is not None), None)
         heading = _heading(content)
         if heading is not None:
-            if len(stack) > MAX_DEPTH:
-                raise PlanParseError(f"plan deeper than {MAX_DEPTH} levels; refused", line=number,
-                                     engine=NAME, fmt="tree")
+            check_depth(len(stack), line=number, engine=NAME, fmt="tree")
             stack.append((indent, None))
             pending[indent] = heading
             continue
@@ -202,15 +200,10 @@ def _parse_tree(text: str) -> ParsedPlan:
             node.extra.update(said.get("extra", {}))
             if said.get("subplan"):
                 node.subplan_name = said["subplan"]
-                node.parent_relationship = "SubPlan"
-        if parent is not None:
-            nodes[parent].children.append(node.id)
-            node.depth = nodes[parent].depth + 1
-        if node.depth > MAX_DEPTH:
-            raise PlanParseError(f"plan deeper than {MAX_DEPTH} levels; refused", line=number,
-                                 engine=NAME, fmt="tree")
+                node.parent_relationship = Relationship.SUBPLAN
+        append_node(nodes, node, parent)
+        check_depth(node.depth, line=number, engine=NAME, fmt="tree")
         has_actuals = has_actuals or node.executed is not None
-        nodes.append(node)
         stack.append((indent, node.id))
     if not nodes:
         raise PlanParseError("only headings, no operator", line=items[0][0], engine=NAME, fmt="tree")
@@ -273,26 +266,17 @@ def _read_metrics(node: PlanNode, content: str, line: int) -> str:
 
 
 def _readable(value: str, line: int | None, what: str, key: str | None = None) -> float:
+    """A figure as MySQL prints it (``1.23e+6``, ``934e-6``: no sign, no thousands separator)."""
+    fmt = "tree" if key is None else "json"
     if not _NUMBER.match(value or ""):
-        raise PlanParseError(f"{what} is not a number: {value!r}", line=line, key=key, engine=NAME,
-                             fmt="tree" if key is None else "json")
-    number = float(value)
-    if number != number or number > MAX_COUNT:
-        raise PlanParseError(f"{what} is beyond any count (0 to 1e100): {value!r}", line=line,
-                             key=key, engine=NAME, fmt="tree" if key is None else "json")
-    return number
+        raise PlanParseError(f"{what} is not a number: {value!r}", line=line, key=key, engine=NAME, fmt=fmt)
+    return read_number(value, key=key, line=line, engine=NAME, fmt=fmt)
 
 
 def _relationships(nodes: list[PlanNode]) -> None:
     """The first input of a join is its outer (probe) side, the second its inner (build) side."""
-    for node in nodes:
-        inputs = [c for c in node.children if nodes[c].parent_relationship is None]
-        if node.join_type:
-            for i, child in enumerate(inputs):
-                nodes[child].parent_relationship = "Outer" if i == 0 else "Inner"
-        elif node.operator.startswith(("Append", "Union")):
-            for child in inputs:
-                nodes[child].parent_relationship = "Member"
+    link_inputs(nodes, lambda node: bool(node.join_type),
+                lambda node: node.operator.startswith(("Append", "Union")))
 
 
 # ---------------------------------------------------------------------------------------
@@ -318,15 +302,10 @@ def _parse_json(text: str) -> ParsedPlan:
     todo: list[tuple[dict, int | None, int, str]] = [(root, None, 0, path)]
     while todo:
         raw, parent, depth, where = todo.pop()
-        if depth > MAX_DEPTH:
-            raise PlanParseError(f"plan deeper than {MAX_DEPTH} levels; refused", key=where, engine=NAME,
-                                 fmt="json")
+        check_depth(depth, key=where, engine=NAME, fmt="json")
         if not isinstance(raw, dict):
             raise PlanParseError("an input is not an object", key=where, engine=NAME, fmt="json")
-        node = _node_from_json(raw, len(nodes), parent, depth, where)
-        if parent is not None:
-            nodes[parent].children.append(node.id)
-        nodes.append(node)
+        node = append_node(nodes, _node_from_json(raw, len(nodes), parent, depth, where), parent)
         has_actuals = has_actuals or node.executed is not None
         inputs = raw.get("inputs", [])
         if not isinstance(inputs, list):
@@ -343,18 +322,7 @@ def _parse_json(text: str) -> ParsedPlan:
 
 
 def _json_number(raw: dict, key: str, where: str) -> float | None:
-    value = raw.get(key)
-    if value is None:
-        return None
-    if isinstance(value, bool) or not isinstance(value, (int, float)):
-        raise PlanParseError(f"expected a number, got {value!r}", key=f"{where}.{key}", engine=NAME,
-                             fmt="json")
-    number = float(value)
-    if number != number or number in (float("inf"), float("-inf")) or (
-            "cost" not in key and not 0 <= number <= MAX_COUNT):
-        raise PlanParseError(f"expected a finite count, got {value!r}", key=f"{where}.{key}",
-                             engine=NAME, fmt="json")
-    return number
+    return read_number(raw.get(key), key=f"{where}.{key}", engine=NAME, fmt="json", signed="cost" in key)
 
 
 def _node_from_json(raw: dict, node_id: int, parent: int | None, depth: int, where: str) -> PlanNode:
@@ -402,7 +370,7 @@ def _node_from_json(raw: dict, node_id: int, parent: int | None, depth: int, whe
     if isinstance(raw.get("heading"), str):
         node.subplan_name = raw["heading"]
     if raw.get("subquery") is True:
-        node.parent_relationship = "SubPlan"
+        node.parent_relationship = Relationship.SUBPLAN
     for key, value in raw.items():
         if key in ("inputs", "operation", "estimated_rows", "actual_rows", "actual_loops"):
             continue

@@ -22,6 +22,7 @@ from ..inert import check_name, comment_text
 from ..model import NO_ENTRIES, Condition, ParsedPlan, PlanNode, Statement
 from ..source import MAX_DEPTH
 from ._dispatch import JSON_DECODER, MAX_COUNT, BadNumber, bad_number_error
+from ._tree import append_node, check_depth, typed_relationships
 from .base import Engine
 
 NAME = "postgresql"
@@ -647,9 +648,7 @@ def _read_text(lines: list[str], numbers: list[int]) -> list[dict]:
             else:
                 parent = top.node
             parent.setdefault("Plans", []).append(node)
-            if len(stack) >= MAX_DEPTH:
-                raise PlanParseError(f"plan deeper than {MAX_DEPTH} levels; refused", line=lineno,
-                                     engine=NAME, fmt="text")
+            check_depth(len(stack) + 1, line=lineno, engine=NAME, fmt="text")
             stack.append(_Frame(node, label_col + 2))
             continue
         if col == 0:
@@ -1160,15 +1159,11 @@ def _build(statements: list[dict], fmt: str) -> ParsedPlan:
         todo: list[tuple[dict, int | None, int, str, int]] = [(plan, None, 0, f"{path}.Plan", 0)]
         while todo:
             raw, parent, depth, key_path, position = todo.pop()
-            if depth > MAX_DEPTH:
-                raise PlanParseError(f"plan deeper than {MAX_DEPTH} levels; refused", key=key_path,
-                                     engine=NAME, fmt=fmt)
-            node = _node_from_dict(raw, len(nodes), parent, depth, stmt_no, key_path, fmt)
-            if parent is not None:
-                nodes[parent].children.append(node.id)
-                if node.parent_relationship is None:
-                    node.parent_relationship = _text_relationship(nodes[parent], position)
-            nodes.append(node)
+            check_depth(depth, key=key_path, engine=NAME, fmt=fmt)
+            node = append_node(nodes, _node_from_dict(raw, len(nodes), parent, depth, stmt_no, key_path, fmt),
+                               parent)
+            if parent is not None and node.parent_relationship is None:
+                node.parent_relationship = _text_relationship(nodes[parent], position)
             if node.actual_rows is not None:
                 has_actuals = True
             decimal_rows = decimal_rows or bool(raw.get("__decimal_rows__"))
@@ -1202,6 +1197,7 @@ def _build(statements: list[dict], fmt: str) -> ParsedPlan:
         version = "18"
     if not has_actuals:
         notes.append("no actuals: this is EXPLAIN without ANALYZE, so estimates cannot be checked")
+    typed_relationships(nodes)
     return ParsedPlan(engine=NAME, format=fmt, nodes=nodes, statements=stmts,
                       engine_version=version, has_actuals=has_actuals, notes=notes)
 
