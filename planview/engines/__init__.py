@@ -8,11 +8,13 @@ group ``planview.engines``) that defines:
 - ``SQL_DIALECT``: the sqlglot dialect its conditions are written in;
 - ``detect(text) -> (format, score) | None``: a score in 0..1 when the text looks like its own;
 - ``parse(text, fmt) -> ParsedPlan``;
-- ``role(node, nodes, parsed) -> planview.check.Role``: what the check must know of a node
-  (its input rule, whether it blocks, limits or stops an input early, its parallel divisor);
-- optionally ``repair(parsed)``: fix figures the engine prints too coarsely (after totals);
-- optionally ``suggest_fix(cause, table, columns, **details) -> (sql, caution) | None``.
+- ``ENGINE``: an instance of a subclass of `base.Engine` that sets the engine's tables (which
+  operators join, block, limit, read a whole relation, where group keys live...) and overrides
+  a hook only where no table can say it; and ``role = ENGINE.role``;
+- optionally ``repair(parsed)``: fix figures the engine prints too coarsely (after totals).
 
+A module without ``ENGINE`` (an older plug-in) is read through its functions (``role``,
+``suggest_fix``, ``SQL_DIALECT``, ``DEFAULT_SELECTIVITIES``) by `base.engine_of`.
 Adding an engine means adding one module here; nothing else changes.
 """
 
