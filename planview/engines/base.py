@@ -62,6 +62,8 @@ class Engine:
     """Keys of `PlanNode.rows_removed` that count rows a node read and then discarded."""
     CONDITION_PROVIDERS: frozenset[str] = frozenset()
     """Operators whose conditions restrict their parent's rows (an index bitmap under a heap scan)."""
+    CTE_SCANS: frozenset[str] | None = frozenset()
+    """Operators that may re-read a CTE (None: any, when the engine marks them otherwise)."""
     GROUP_KEYS: str | None = None
     """The `PlanNode.extra` key holding a grouping node's keys."""
     DEFAULT_SELECTIVITIES: Mapping[str, float] = {}
@@ -69,6 +71,10 @@ class Engine:
     DEFAULT_NUM_DISTINCT: tuple[str, float] | None = None
     """The engine's name for, and number of, the groups it assumes when a grouping key has no
     statistics."""
+
+    def __init__(self) -> None:
+        self._operators: dict[str, tuple] = {}
+        """What the tables say of each operator name seen, read once per name."""
 
     # -- reading the tables ---------------------------------------------------------------
     def listed(self, operator: str, table: Mapping[str, Any] | frozenset[str]) -> bool:
@@ -79,9 +85,6 @@ class Engine:
     def lookup(self, operator: str, table: Mapping[str, Any]) -> Any:
         return table.get(operator)
 
-    def is_join(self, node: PlanNode) -> bool:
-        return self.listed(node.operator, self.JOINS)
-
     def input_rule(self, node: PlanNode, nodes: list[PlanNode], inputs: list[int]) -> str:
         rule = self.lookup(node.operator, self.INPUT_RULES)
         if rule is None:
@@ -91,12 +94,6 @@ class Engine:
         if rule == "join" and node.join_type in self.RIGHT_SEMI_JOINS:
             return "semi_inner"
         return rule
-
-    def blocks(self, node: PlanNode) -> bool:
-        if self.listed(node.operator, self.BLOCKING):
-            return True
-        strategies = self.BLOCKING_STRATEGIES.get(node.operator)
-        return bool(strategies) and node.strategy in strategies
 
     def inner_input(self, node: PlanNode, nodes: list[PlanNode], inputs: list[int]) -> int | None:
         """A join's inner input: its second input."""
@@ -140,23 +137,50 @@ class Engine:
 
     # -- the role ---------------------------------------------------------------------------
     def role(self, node: PlanNode, nodes: list[PlanNode], parsed: ParsedPlan) -> Role:
-        """What the check must know of a node (see `planview.check.Role`), from the tables."""
-        inputs = [c for c in node.children if nodes[c].is_input_edge]
+        """What the check must know of a node (see `planview.check.Role`), from the tables.
+
+        Asked once a node, in pre-order: what the tables say of an operator is read once per
+        operator name, and a leaf takes the shortest path."""
+        op = node.operator
+        known = self._operators.get(op)
+        if known is None:
+            known = self._operators[op] = self._operator_facts(op)
+        whole, blocking, strategies, limit, join, cte_scan = known
+        children = node.children
+        inputs = [c for c in children if nodes[c].is_input_edge] if children else []
         result = Role(rule=self.input_rule(node, nodes, inputs),
                       partial=self.parallel_divisor(node, nodes, parsed))
-        self._facts(node, nodes, result)
-        if not node.children and self.cte_reference(node) is None:
-            self.refine(node, nodes, parsed, result)
-            return result
-        result.blocking = self.blocks(node)
-        result.limit = self.listed(node.operator, self.LIMITS)
-        if self.is_join(node):
-            self._join(node, nodes, inputs, result)
-        reads = self.cte_read(node, nodes, parsed)
-        if reads is not None:
-            result.rule, result.reads = "cte", reads
+        # the typed facts the diagnosis reads, so that it needs no operator names
+        result.reads_whole_relation = whole
+        if node.rows_removed:
+            result.rows_discarded = sum(node.rows_removed.get(k, 0.0) for k in self.ROWS_DISCARDED_KEYS)
+        if self.GROUP_KEYS is not None:
+            keys = node.extra.get(self.GROUP_KEYS)
+            if keys:
+                result.group_keys = group_keys(keys)
+        if children:
+            providers = self.CONDITION_PROVIDERS
+            if providers and not providers.isdisjoint([nodes[c].operator for c in children]):
+                result.conditions_from = self.conditions_from(node, nodes)
+            result.blocking = blocking or (strategies is not None and node.strategy in strategies)
+            result.limit = limit
+            if node.join_type if self.JOIN_BY_TYPE else join:
+                self._join(node, nodes, inputs, result)
+        if cte_scan:
+            reads = self.cte_read(node, nodes, parsed)
+            if reads is not None:
+                result.rule, result.reads = "cte", reads
         self.refine(node, nodes, parsed, result)
         return result
+
+    JOIN_BY_TYPE = False
+    """True for an engine that marks a join by its join type rather than its operator name."""
+
+    def _operator_facts(self, op: str) -> tuple:
+        """What the tables say of one operator name, read once."""
+        return (self.listed(op, self.WHOLE_RELATION_SCANS), self.listed(op, self.BLOCKING),
+                self.BLOCKING_STRATEGIES.get(op), self.listed(op, self.LIMITS),
+                self.listed(op, self.JOINS), self.CTE_SCANS is None or self.listed(op, self.CTE_SCANS))
 
     def _join(self, node: PlanNode, nodes: list[PlanNode], inputs: list[int], result: Role) -> None:
         result.preserved = self.PRESERVED.get(node.join_type or "")
@@ -172,28 +196,15 @@ class Engine:
         if reason:
             result.stops_inputs = {inner_id: reason}
 
-    def _facts(self, node: PlanNode, nodes: list[PlanNode], result: Role) -> None:
-        """The typed facts the diagnosis reads, so it needs no operator names."""
-        result.reads_whole_relation = self.listed(node.operator, self.WHOLE_RELATION_SCANS)
-        if node.rows_removed:
-            result.rows_discarded = sum(node.rows_removed.get(k, 0.0) for k in self.ROWS_DISCARDED_KEYS)
-        if self.CONDITION_PROVIDERS and node.children:
-            result.conditions_from = self.conditions_from(node, nodes)
-        if self.GROUP_KEYS is not None:
-            keys = node.extra.get(self.GROUP_KEYS)
-            if keys:
-                result.group_keys = group_keys(keys)
-
     def conditions_from(self, node: PlanNode, nodes: list[PlanNode]) -> tuple[int, ...]:
         """The nodes below whose conditions restrict this one's rows: its input children that
-        are condition providers, and theirs."""
+        are condition providers, and theirs (named exactly: the child's operator alone)."""
         found: list[int] = []
         for child_id in node.children:
             child = nodes[child_id]
-            if child.is_input_edge and self.listed(child.operator, self.CONDITION_PROVIDERS):
+            if child.is_input_edge and child.operator in self.CONDITION_PROVIDERS:
                 found.append(child_id)
-                found.extend(g for g in child.children
-                             if self.listed(nodes[g].operator, self.CONDITION_PROVIDERS))
+                found.extend(g for g in child.children if nodes[g].operator in self.CONDITION_PROVIDERS)
         return tuple(found)
 
     # -- what the diagnosis needs ---------------------------------------------------------
@@ -238,6 +249,7 @@ class ModuleEngine(Engine):
     """An engine module written before the base (a plug-in): its functions, as an `Engine`."""
 
     def __init__(self, module):
+        super().__init__()
         self.module = module
         self.NAME = module.NAME
         self.FORMATS = tuple(module.FORMATS)

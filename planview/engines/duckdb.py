@@ -809,6 +809,7 @@ class DuckDB(Engine):
     BLOCKING = frozenset(BLOCKING)
     LIMITS = frozenset(LIMITS)
     WHOLE_RELATION_SCANS = frozenset({"SEQ_SCAN", "TABLE_SCAN"})
+    CTE_SCANS = frozenset({"CTE_SCAN"})
     DEFAULT_SELECTIVITIES = DEFAULT_SELECTIVITIES
 
     def input_rule(self, node: PlanNode, nodes: list[PlanNode], inputs: list[int]) -> str:
@@ -842,9 +843,6 @@ class DuckDB(Engine):
                         and o.statement == node.statement
                         and (o.extra.get("extra_info") or {}).get("Table Index") == cte_index), None)
         return nodes[cte].children[0] if cte is not None else None
-
-    def cte_reference(self, node: PlanNode) -> Hashable | None:
-        return node.operator if node.operator == "CTE_SCAN" else None
 
     def refine(self, node: PlanNode, nodes: list[PlanNode], parsed: ParsedPlan, role: Role) -> None:
         if node.operator == "CTE_SCAN" and role.reads is None:

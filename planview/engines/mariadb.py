@@ -744,6 +744,7 @@ class MariaDB(Engine):
     COMPLETE_INNER = frozenset({"block-nl-join"})
     BLOCKING = frozenset(BLOCKING)
     WHOLE_RELATION_SCANS = frozenset(WHOLE_RELATION_SCANS)
+    CTE_SCANS = None  # a derived table's scan is any access type, marked by its source
 
     def input_rule(self, node: PlanNode, nodes: list[PlanNode], inputs: list[int]) -> str:
         return INPUT_RULES.get(node.operator, "source")  # a table's own figures are its own

@@ -450,8 +450,7 @@ class MySQL(Engine):
         return next((rule for name, rule in table.items()
                      if operator == name or operator.startswith(name + " ")), None)
 
-    def is_join(self, node: PlanNode) -> bool:
-        return bool(node.join_type)
+    JOIN_BY_TYPE = True
 
     def input_rule(self, node: PlanNode, nodes: list[PlanNode], inputs: list[int]) -> str:
         if node.join_type:

@@ -1575,13 +1575,18 @@ class PostgreSQL(Engine):
     ROWS_DISCARDED_KEYS = ("Filter", "Index Recheck")
     CONDITION_PROVIDERS = frozenset(BITMAPS)
     GROUP_KEYS = "Group Key"
+    CTE_SCANS = frozenset({"CTE Scan"})
     DEFAULT_NUM_DISTINCT = ("DEFAULT_NUM_DISTINCT", DEFAULT_SELECTIVITIES["DEFAULT_NUM_DISTINCT"])
     DEFAULT_SELECTIVITIES = {k: v for k, v in DEFAULT_SELECTIVITIES.items() if k != "DEFAULT_NUM_DISTINCT"}
 
     def input_rule(self, node: PlanNode, nodes: list[PlanNode], inputs: list[int]) -> str:
         if not node.children:
             return INPUT_RULES.get(node.operator, "source")
-        rule = super().input_rule(node, nodes, inputs)
+        rule = INPUT_RULES.get(node.operator, "pass")
+        if rule == "join" and node.join_type in self.SEMI_JOINS:
+            return "semi_outer"
+        if rule == "join" and node.join_type in self.RIGHT_SEMI_JOINS:
+            return "semi_inner"
         if rule == "group" and node.operator == "Aggregate" and node.strategy == "Plain":
             return "source"  # one row out, whatever comes in
         if node.operator == "ModifyTable" and node.est_rows == 0 and not node.actual_rows:
@@ -1601,6 +1606,8 @@ class PostgreSQL(Engine):
 
     def refine(self, node: PlanNode, nodes: list[PlanNode], parsed: ParsedPlan, role: Role) -> None:
         """A sub-plan that answers EXISTS, ANY or a hashed alternative stops at its first match."""
+        if not node.children:
+            return
         subplans = [nodes[c] for c in node.children if nodes[c].parent_relationship == "SubPlan"]
         if not subplans:
             return
