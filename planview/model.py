@@ -33,6 +33,8 @@ class Relationship(str, Enum):
 
 
 RELATIONSHIPS = {r.value: r for r in Relationship}
+NOT_INPUTS = frozenset({Relationship.INIT_PLAN, Relationship.SUBPLAN})
+"""Relationships of nodes that do not feed rows to their parent (they are evaluated by it)."""
 
 
 
@@ -144,7 +146,7 @@ class PlanNode:
     @property
     def is_input_edge(self) -> bool:
         """True when this node feeds rows to its parent (not an InitPlan or SubPlan)."""
-        return self.parent_relationship not in (Relationship.INIT_PLAN, Relationship.SUBPLAN)
+        return self.parent_relationship not in NOT_INPUTS
 
 
 @dataclass(slots=True)
