@@ -147,25 +147,29 @@ class Engine:
             known = self._operators[op] = self._operator_facts(op)
         whole, blocking, strategies, limit, join, cte_scan = known
         children = node.children
-        inputs = [c for c in children if nodes[c].is_input_edge] if children else []
-        result = Role(rule=self.input_rule(node, nodes, inputs),
-                      partial=self.parallel_divisor(node, nodes, parsed))
-        # the typed facts the diagnosis reads, so that it needs no operator names
-        result.reads_whole_relation = whole
-        if node.rows_removed:
-            result.rows_discarded = sum(node.rows_removed.get(k, 0.0) for k in self.ROWS_DISCARDED_KEYS)
-        if self.GROUP_KEYS is not None:
-            keys = node.extra.get(self.GROUP_KEYS)
-            if keys:
-                result.group_keys = group_keys(keys)
-        if children:
+        if not children:
+            inputs: list[int] = []
+            result = Role(rule=self.input_rule(node, nodes, inputs),
+                          partial=self.parallel_divisor(node, nodes, parsed), reads_whole_relation=whole)
+        else:
+            inputs = [c for c in children if nodes[c].is_input_edge]
+            result = Role(rule=self.input_rule(node, nodes, inputs),
+                          partial=self.parallel_divisor(node, nodes, parsed), reads_whole_relation=whole,
+                          blocking=blocking or (strategies is not None and node.strategy in strategies),
+                          limit=limit)
             providers = self.CONDITION_PROVIDERS
             if providers and not providers.isdisjoint([nodes[c].operator for c in children]):
                 result.conditions_from = self.conditions_from(node, nodes)
-            result.blocking = blocking or (strategies is not None and node.strategy in strategies)
-            result.limit = limit
             if node.join_type if self.JOIN_BY_TYPE else join:
                 self._join(node, nodes, inputs, result)
+        # the typed facts the diagnosis reads, so that it needs no operator names
+        if node.rows_removed:
+            result.rows_discarded = sum(node.rows_removed.get(k, 0.0) for k in self.ROWS_DISCARDED_KEYS)
+        group_key = self.GROUP_KEYS
+        if group_key is not None:
+            keys = node.extra.get(group_key)
+            if keys:
+                result.group_keys = group_keys(keys)
         if cte_scan:
             reads = self.cte_read(node, nodes, parsed)
             if reads is not None:
