@@ -12,8 +12,6 @@ import subprocess
 import sys
 from pathlib import Path
 
-import pytest
-
 from planview import engines
 
 PACKAGE = Path(__file__).resolve().parent.parent / "planview"
@@ -73,9 +71,6 @@ def test_no_access_type_literal_outside_the_engines():
     assert not found, "\n".join(found)
 
 
-@pytest.mark.xfail(strict=True, reason="diagnose/clauses.py (owned by the reader work) still defaults "
-                                       "parse_condition's dialect to one engine's; its callers pass "
-                                       "the engine's dialect explicitly")
 def test_no_sql_dialect_default_outside_the_engines():
     dialects = {engines.engine_of(m).dialect for m in engines.engines().values()} - {None}
     pattern = re.compile(r"=\s*[\"'](" + "|".join(map(re.escape, sorted(dialects))) + r")[\"']")

@@ -378,7 +378,7 @@ def test_clauses_beyond_the_cap_are_counted_not_classified():
     from planview.diagnose.clauses import MAX_CLAUSES, parse_condition
 
     text = "(" + " AND ".join(f"(t.c{i} = {i})" for i in range(MAX_CLAUSES + 50)) + ")"
-    found = parse_condition(text, "filter")
+    found = parse_condition(text, "filter", "postgres")
     assert len(found) == MAX_CLAUSES + 1
     assert found[0].op_class == "unparsed" and "50 further" in found[0].text
     assert all(c.op_class == "equality" for c in found[1:])

@@ -96,17 +96,17 @@ def test_clauses_are_parsed_not_grepped():
             plan = planview.load(plan_path)
             for node in plan.nodes:
                 for cond in node.conditions:
-                    for clause in merge_ranges(parse_condition(cond.text, cond.kind)):
+                    for clause in merge_ranges(parse_condition(cond.text, cond.kind, "postgres")):
                         seen.add(clause.op_class)
                         assert clause.op_class != "unparsed", (plan_path.name, cond.text, clause.parse_error)
     assert {"equality", "open_range", "closed_range"} <= seen
-    clause = parse_condition("(v.pet_id = ANY ('{1,2,3}'::integer[]))", "filter")[0]
+    clause = parse_condition("(v.pet_id = ANY ('{1,2,3}'::integer[]))", "filter", "postgres")[0]
     assert clause.op_class == "in_list" and clause.bare
-    clause = parse_condition("(i.total_cents > (InitPlan 1).col1)", "filter")[0]
+    clause = parse_condition("(i.total_cents > (InitPlan 1).col1)", "filter", "postgres")[0]
     assert clause.op_class == "open_range" and clause.has_parameter
-    clause = parse_condition("((lower(o.email))::text ~~ '%@example.org'::text)", "filter")[0]
+    clause = parse_condition("((lower(o.email))::text ~~ '%@example.org'::text)", "filter", "postgres")[0]
     assert clause.op_class == "like_leading_wildcard" and not clause.bare
-    broken = parse_condition("(a = ", "filter")[0]
+    broken = parse_condition("(a = ", "filter", "postgres")[0]
     assert broken.op_class == "unparsed" and broken.parse_error
 
 

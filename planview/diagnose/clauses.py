@@ -5,9 +5,9 @@ Engines print conditions with their own decorations: PostgreSQL writes casts
 sub-plan references. References the parser cannot know are swapped for placeholders first;
 a clause that still cannot be parsed is kept with its error, never raised.
 
->>> [c.op_class for c in parse_condition("((a.x = 10) AND (a.y > 1))", "filter")]
+>>> [c.op_class for c in parse_condition("((a.x = 10) AND (a.y > 1))", "filter", "postgres")]
 ['equality', 'open_range']
->>> parse_condition("(lower(code) = 'abc'::text)", "filter")[0].bare
+>>> parse_condition("(lower(code) = 'abc'::text)", "filter", "postgres")[0].bare
 False
 """
 
@@ -93,7 +93,7 @@ MAX_CLAUSES = 200
 """ANDed clauses classified per condition; the rest are counted, not classified."""
 
 
-def parse_condition(text: str, source: str, dialect: str | None = "postgres") -> list[Clause]:
+def parse_condition(text: str, source: str, dialect: str | None) -> list[Clause]:
     """The condition's top-level ANDed clauses, each classified (never raises)."""
     if len(text) > MAX_CONDITION_CHARS:
         return [_too_long(text, source)]
