@@ -192,3 +192,18 @@ def test_planted_defects_live(scenario_db, case):
     node = plan.nodes[plan.findings[0].node]
     assert node.relation == relation if relation else node.own_rule == "join"
     assert all(word in plan.findings[0].fix for word in words)
+
+
+def test_past_the_diagnosis_cap_origins_keep_rank_and_numbers():
+    """A plan with more origins than the cap diagnoses the largest-impact ones in full; the rest
+    keep their rank and numbers, marked not diagnosed, and the plan says so. Source: the real
+    PG 16 capture `multi.json` (two origins, from two statements), with the cap set to one."""
+    plan = planview.load(path("16", "multi", "json").read_text())
+    full = [(f.node, f.rank, f.cause) for f in plan.findings]
+    assert len(full) == 2 and "not_diagnosed" not in {c for _, _, c in full}
+    diagnose(plan, max_diagnosed=1)
+    capped = [(f.node, f.rank, f.cause) for f in plan.findings]
+    assert capped[0] == full[0]
+    assert capped[1][:2] == full[1][:2] and capped[1][2] == "not_diagnosed"
+    assert plan.findings[1].evidence["lines"] and plan.findings[1].caution
+    assert any("diagnosed" in note for note in plan.notes)

@@ -22,22 +22,38 @@ RULES = (
     ("default_selectivity", default_selectivity.rule),
 )
 CAUSES = tuple(name for name, _ in RULES) + ("unexplained",)
+"""What a finding's cause can be; `not_diagnosed` marks an origin past `MAX_DIAGNOSED`."""
 
 __all__ = ["CAUSES", "RULES", "Candidate", "Context", "diagnose"]
 
 
-def diagnose(plan, rules=RULES) -> None:
+MAX_DIAGNOSED = 500
+"""Origins diagnosed in full, the largest impact first. Parsing an origin's clauses and running
+the rules costs about 1.5 ms, so a generated or damaged plan with 100,000 origins would take
+minutes. Past this many, the rest keep their numbers, impact and rank with the cause
+`not_diagnosed`, and a plan note says so (the bundled real plans have at most a few dozen)."""
+
+
+def diagnose(plan, rules=RULES, max_diagnosed: int = MAX_DIAGNOSED) -> None:
     """Fill cause, evidence, fix, caution and impact of every finding, then rank them.
 
     What every finding shares (the relation map, the walk up to the decisions) is made once
     here, so the work per finding stays local to its node."""
     if not plan.findings:
         return
-    relation_of = relation_map(plan)
     impact = ImpactWalk(plan)
-    names = table_parts(plan)
     for finding in plan.findings:
+        finding.impact = impact.of(plan.nodes[finding.node])
+    plan.findings.sort(key=lambda f: (-(f.impact.get("ms") or 0.0), -(f.impact.get("rows") or 0.0),
+                                      -f.own_q_error))
+    relation_of = relation_map(plan)
+    names = table_parts(plan)
+    for rank, finding in enumerate(plan.findings, 1):
+        finding.rank = rank
         node = plan.nodes[finding.node]
+        if rank > max_diagnosed:
+            _fill_undiagnosed(plan, finding, node, max_diagnosed)
+            continue
         ctx = build_context(plan, node, relation_of)
         candidates: list[Candidate] = []
         checked: list[str] = []
@@ -53,15 +69,12 @@ def diagnose(plan, rules=RULES) -> None:
                 candidates.append(candidate)
         candidates.sort(key=lambda c: -c.score)
         _fill(plan, finding, node, ctx, candidates, checked, names)
-        finding.impact = impact.of(node)
-    plan.findings.sort(key=lambda f: (-(f.impact.get("ms") or 0.0), -(f.impact.get("rows") or 0.0),
-                                      -f.own_q_error))
-    for rank, finding in enumerate(plan.findings, 1):
-        finding.rank = rank
+    if len(plan.findings) > max_diagnosed:
+        plan.notes.append(f"{len(plan.findings):,} origins: the {max_diagnosed:,} with the largest impact "
+                          "are diagnosed; the rest keep their numbers and rank, cause not diagnosed")
 
 
-def _fill(plan, finding, node, ctx: Context, candidates: list[Candidate], checked: list[str],
-          names: dict[str, tuple[str | None, str]]) -> None:
+def _head_line(node, finding) -> str:
     direction = "underestimated" if finding.direction == "under" else "overestimated"
     head = (f"Estimated {fmt_rows(node.est_total)} rows, found {fmt_rows(node.actual_total)} "
             f"({direction} x{finding.own_q_error:,.1f} here"
@@ -69,6 +82,22 @@ def _fill(plan, finding, node, ctx: Context, candidates: list[Candidate], checke
             + ").")
     if node.starts and node.starts > 1:
         head += f" Over {node.starts:,.0f} starts: {fmt_rows(node.est_rows)} estimated per start."
+    return head
+
+
+def _fill_undiagnosed(plan, finding, node, max_diagnosed: int) -> None:
+    finding.cause = "not_diagnosed"
+    finding.confidence_reason = f"ranked below the {max_diagnosed:,} origins diagnosed in full"
+    finding.summary = f"not diagnosed: only the {max_diagnosed:,} origins with the largest impact are."
+    finding.caution = _generic_caution(plan)
+    finding.evidence = {"lines": [_head_line(node, finding)], "est_rows": node.est_total,
+                        "actual_rows": node.actual_total, "starts": node.starts,
+                        "est_rows_per_start": node.est_rows, "actual_rows_per_start": node.actual_rows}
+
+
+def _fill(plan, finding, node, ctx: Context, candidates: list[Candidate], checked: list[str],
+          names: dict[str, tuple[str | None, str]]) -> None:
+    head = _head_line(node, finding)
     evidence: dict = {
         "lines": [head],
         "est_rows": node.est_total, "actual_rows": node.actual_total, "starts": node.starts,

@@ -25,6 +25,7 @@ CAUSE_WORDS = {
     "stale_statistics": "stale statistics",
     "default_selectivity": "a default selectivity guess",
     "unexplained": "no cause found",
+    "not_diagnosed": "not diagnosed (past the diagnosis cap)",
 }
 
 GENERIC_CAUTION = (

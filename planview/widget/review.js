@@ -147,6 +147,7 @@ const CAUSE_WORDS = {
   stale_statistics: "stale statistics",
   default_selectivity: "a default selectivity guess",
   unexplained: "no cause found",
+  not_diagnosed: "not diagnosed (past the diagnosis cap)",
 };
 
 function causeWords(cause) {
