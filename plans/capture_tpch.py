@@ -498,7 +498,7 @@ def generate_data(scale: float, folder: Path) -> tuple[str, float]:
     """Write one CSV file per table with tpchgen-cli; return its version line and the seconds."""
     exe = shutil.which("tpchgen-cli")
     if exe is None:
-        raise SystemExit("tpchgen-cli is not installed; install it with: pip install tpchgen-cli")
+        raise SystemExit("tpchgen-cli is not installed; install it with: pip install -e '.[capture]'")
     t0 = time.monotonic()
     subprocess.run([exe, "csv", "-s", str(scale), "-o", str(folder), "-q"], check=True, timeout=600)
     version = subprocess.run([exe, "-V"], capture_output=True, text=True, check=True).stdout.strip()
