@@ -22,9 +22,13 @@ EXPECTED_SUFFIX = ".expected.json"
 # capture manifest and the expected files themselves.
 NOT_PLANS = ("README.md", "ENGINES.md", "FIXTURES.md", "scenario.sql", "manifest.json",
              "capture_postgresql.py", "capture_engines.py", "capture_tpch.py")
-PAIRS_PENDING = ("tpch",)
-"""Folders of real captures whose expected files are still being decided by hand (the TPC-H
-captures); until then tests/test_tpch_captures.py holds them to their node counts and rows."""
+PAIRS_PENDING = ("tpch/duckdb/", "tpch/pg15/q13.",
+                 *(f"tpch/pg18/{case}." for case in ("q03.par", "q07.par", "q08.par", "q09.par", "q10.par",
+                                                     "q13.par", "q13.serial", "q16.par", "q16.serial",
+                                                     "q18.par", "q20.par", "q20.serial", "q22.par")))
+"""Real TPC-H captures (path prefixes relative to plans/) whose expected files are still being
+decided by hand: DuckDB, and the PostgreSQL 15/18 plans whose shape differs from 16's; until then
+tests/test_tpch_captures.py holds them to their node counts and rows."""
 
 
 def _expected_files() -> list[Path]:
@@ -33,7 +37,12 @@ def _expected_files() -> list[Path]:
 
 def _plan_files() -> set[Path]:
     return {p for p in PLANS.rglob("*") if p.is_file() and p.name not in NOT_PLANS
-            and not p.name.endswith(EXPECTED_SUFFIX) and p.relative_to(PLANS).parts[0] not in PAIRS_PENDING}
+            and not p.name.endswith(EXPECTED_SUFFIX) and not _pending(p)}
+
+
+def _pending(path: Path) -> bool:
+    relative = path.relative_to(PLANS).as_posix()
+    return relative.startswith(PAIRS_PENDING)
 
 
 def _pairs() -> list:
@@ -112,7 +121,9 @@ def test_plan_matches_its_expected_file(expected_path: Path, name: str):
     for origin in expected["origins"]:
         node = _locate(plan, origin["at"])
         assert node.id in causes, f"{name}: {origin['at']} is not an origin ({origin['reason']})"
-        want = origin.get("cause_by_file", {}).get(name, origin["cause"])
+        want = origin.get("cause_by_file", {}).get(name, origin.get("cause"))
+        if want is None:
+            continue  # an origin whose cause the expected file does not name (see FIXTURES.md)
         assert causes[node.id] == want, f"{name}: {origin['at']} cause {causes[node.id]} != {want}"
     for quiet in expected["quiet"]:
         node = _locate(plan, quiet["at"])
