@@ -4,8 +4,9 @@
 # after writing the reviews: one HTML page and one Markdown ticket body per plan.
 set -euo pipefail
 cd "$(dirname "$0")/.."
-python3 -m pip install -q --disable-pip-version-check -e .
-planview demo --out planview-demo
+. tests/python-env.sh
+"$PY" -m pip install -q --disable-pip-version-check -e .
+"$PY" -m planview.cli demo --out planview-demo
 if [ "${1:-}" != "--no-lab" ] && [ -t 1 ]; then
-  exec jupyter lab example_notebooks/review_walkthrough.ipynb
+  exec "$PY" -m jupyterlab example_notebooks/review_walkthrough.ipynb
 fi

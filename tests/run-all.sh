@@ -18,10 +18,11 @@ if [ ${#need_apt[@]} -gt 0 ]; then
   $SUDO systemctl disable --now postgresql mariadb >/dev/null 2>&1 || true
 fi
 
-python3 -m pip install -q --disable-pip-version-check -e ".[test]"
+. tests/python-env.sh
+"$PY" -m pip install -q --disable-pip-version-check -e ".[test]"
 
 status=0
-python3 -m pytest -q -p no:cacheprovider "$@" || status=$?
+"$PY" -m pytest -q -p no:cacheprovider "$@" || status=$?
 if [ "$status" = 5 ]; then
   echo "no tests ran"; exit 1
 fi
