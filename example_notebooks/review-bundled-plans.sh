@@ -8,5 +8,6 @@ cd "$(dirname "$0")/.."
 "$PY" -m pip install -q --disable-pip-version-check -e .
 "$PY" -m planview.cli demo --out planview-demo
 if [ "${1:-}" != "--no-lab" ] && [ -t 1 ]; then
-  exec "$PY" -m jupyterlab example_notebooks/review_walkthrough.ipynb
+  as_root=(); [ "$(id -u)" = 0 ] && as_root=(--allow-root)  # JupyterLab refuses root without it
+  exec "$PY" -m jupyterlab "${as_root[@]}" example_notebooks/review_walkthrough.ipynb
 fi
