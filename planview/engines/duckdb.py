@@ -811,6 +811,12 @@ class DuckDB(Engine):
     WHOLE_RELATION_SCANS = frozenset({"SEQ_SCAN", "TABLE_SCAN"})
     CTE_SCANS = frozenset({"CTE_SCAN"})
     DEFAULT_SELECTIVITIES = DEFAULT_SELECTIVITIES
+    STATISTICS_KEPT = frozenset({"distinct", "min_max"})
+    # src/optimizer/join_order/relation_statistics_helper.cpp, ExtractGetStats: each filter of
+    # a scan gives a cardinality (an equality with a constant: rows / distinct count; any other
+    # filter: no change), the scan takes the smallest of them, and when no filter is an equality
+    # the rows x DEFAULT_SELECTIVITY (0.2) once, however many filters there are.
+    AND_FILTERS = ("minimum", "ExtractGetStats in src/optimizer/join_order/relation_statistics_helper.cpp")
 
     def input_rule(self, node: PlanNode, nodes: list[PlanNode], inputs: list[int]) -> str:
         op = node.operator

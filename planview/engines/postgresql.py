@@ -1578,6 +1578,19 @@ class PostgreSQL(Engine):
     CTE_SCANS = frozenset({"CTE Scan"})
     DEFAULT_NUM_DISTINCT = ("DEFAULT_NUM_DISTINCT", DEFAULT_SELECTIVITIES["DEFAULT_NUM_DISTINCT"])
     DEFAULT_SELECTIVITIES = {k: v for k, v in DEFAULT_SELECTIVITIES.items() if k != "DEFAULT_NUM_DISTINCT"}
+    # src/backend/utils/adt/selfuncs.c: eqsel returns DEFAULT_EQ_SEL when the clause is not
+    # "column = something" (two columns of one table); a column = non-constant is estimated as
+    # 1/n_distinct (var_eq_non_const); scalarineqsel returns DEFAULT_INEQ_SEL when the other
+    # side is not a constant (a parameter, an InitPlan or SubPlan result, another column).
+    NON_CONSTANT_DEFAULTS = {"inequality": "DEFAULT_INEQ_SEL", "equality_same_table": "DEFAULT_EQ_SEL"}
+    NON_CONSTANT_SOURCE = "eqsel and scalarineqsel in src/backend/utils/adt/selfuncs.c"
+    RECURSIVE_GUESSES = {
+        "Recursive Union": (10.0, "the non-recursive term's rows plus 10 iterations of the recursive "
+                                  "term's (cost_recursive_union in src/backend/optimizer/path/costsize.c: "
+                                  "\"we arbitrarily assume that about 10 recursive iterations will be needed\")"),
+        "WorkTable Scan": (10.0, "10 times the non-recursive term's rows for the work table "
+                                 "(set_cte_size_estimates in src/backend/optimizer/path/costsize.c)"),
+    }
 
     def input_rule(self, node: PlanNode, nodes: list[PlanNode], inputs: list[int]) -> str:
         if not node.children:
