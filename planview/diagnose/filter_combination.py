@@ -51,6 +51,8 @@ def rule(ctx: Context) -> Candidate | None:
     lines.append(f"It found {fmt_rows(ctx.actual_total)} rows, not {fmt_rows(ctx.est_total)}: the "
                  "filters narrow one another's rows, as independent filters do.")
     score = 0.8 if equalities or match else 0.6
+    if ctx.actual_total == 0:
+        score = 0.45  # no row at all: an impossible combination (correlation) fits better
     return Candidate(cause="filter_combination", score=score,
                      reason=f"ANDed filters on one table combined by the engine's {how} rule, "
                             "not as a product",

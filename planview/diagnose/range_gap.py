@@ -48,7 +48,7 @@ def rule(ctx: Context) -> Candidate | None:
     if ctx.est_selectivity is not None and ctx.est_selectivity > 1.5:
         score -= 0.3  # more rows estimated than the scan read: the row count is wrong, not a bucket
     match = ctx.default_match()
-    if match:
+    if match and ctx.actual_total > 0:
         score -= 0.3  # the estimate is a built-in default, so no histogram was used
         lines.append(f"But the estimated selectivity equals the built-in {match[0]}: the range was "
                      "not estimated from the column's statistics.")

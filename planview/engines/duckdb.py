@@ -772,6 +772,11 @@ def suggest_fix(cause: str, table: str | None, columns: list[str] | tuple[str, .
         "default_selectivity": "DuckDB applies a fixed selectivity to predicates it has no "
                                "statistics for (a range came out at 20% in our runs of 2.0.1); "
                                "there is no setting to change it.",
+        "filter_combination": "DuckDB estimates ANDed filters on one table by the smallest of "
+                              "their estimates (or 20% once when none is an equality), not their "
+                              "product, and no setting changes that.",
+        "join_selectivity": "DuckDB estimates a semi or anti join from its inputs' distinct "
+                            "counts; nothing describes which keys match.",
     }
     if cause not in lacks:
         return None
@@ -783,6 +788,10 @@ def suggest_fix(cause: str, table: str | None, columns: list[str] | tuple[str, .
                      "table of their own",
         "default_selectivity": "write the predicate on the bare column (no function or cast "
                                "around it), so min/max and distinct counts apply",
+        "filter_combination": "keep the combination the filters select as a column of its own "
+                              "and filter on it with one equality",
+        "join_selectivity": "apply the other side's filter first into a table of its own and "
+                            "join against that",
     }[cause]
     sql = (f"-- DuckDB offers no statistics lever for this: {lacks[cause]}\n"
            f"-- What DuckDB does offer: {analyze} refreshes the distinct counts (it cannot help "

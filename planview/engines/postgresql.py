@@ -1445,13 +1445,31 @@ def safe_expression(text: str) -> str | None:
     return "".join(out)
 
 
+_NO_STATISTIC_FIXES = {
+    "join_selectivity": [
+        "No statistic of one table describes which keys of the other side match: ANALYZE and",
+        "CREATE STATISTICS cannot change a semi or anti join's share of matches. What can:",
+        "1. apply the other side's filter first into a table of its own (CREATE TABLE ... AS,",
+        "   then ANALYZE it), so the planner counts the keys that are really there, or",
+        "2. rewrite the EXISTS / NOT EXISTS as a join against that pre-filtered set.",
+    ],
+    "planner_guess": [
+        "No statistic changes this guess: the planner cannot know how many times a recursion",
+        "runs. What can: run the recursion into a temporary table, ANALYZE it, and query that,",
+        "or bound the recursion (a depth column with a limit) so the plan above it is cheap",
+        "whatever the count.",
+    ],
+}
+"""Causes no statistic of PostgreSQL's can fix: the options, all as comments."""
+
+
 def suggest_fix(cause: str, table: str | None, columns: list[str], **details) -> tuple[str, str] | None:
     """The SQL that gives the optimizer what it missed, and what running it costs.
 
     Every name is quoted by `quote_ident`; an expression goes into SQL only as
     `safe_expression` re-rendered it, and plan text in a comment is one inert line.
     """
-    if not table:
+    if not table and cause not in _NO_STATISTIC_FIXES:
         return None
     qt = _qtable(table, details.get("table_parts"))
     cols = [quote_ident(c) for c in columns]
@@ -1507,6 +1525,10 @@ def suggest_fix(cause: str, table: str | None, columns: list[str], **details) ->
                    "EXCLUSIVE lock; more frequent auto-analyze means more background I/O. "
                    + _CHANGE_PROCESS)
         return sql, caution
+    if cause in _NO_STATISTIC_FIXES:
+        return ("\n".join("-- " + line for line in _NO_STATISTIC_FIXES[cause]),
+                "Nothing here runs as pasted: each option changes the query or the schema. "
+                + _CHANGE_PROCESS)
     if cause == "default_selectivity":
         return _expression_fix(table, qt, [e for e in details.get("expressions") or [] if e],
                                bool(details.get("aggregate")), details.get("table_parts"))
