@@ -10,7 +10,16 @@ The fix SQL comes from the engine module (`suggest_fix`), so it speaks the engin
 from __future__ import annotations
 
 from ..inert import UnquotableName, refused_fix
-from . import correlation, default_selectivity, range_gap, skew, stale_statistics
+from . import (
+    correlation,
+    default_selectivity,
+    filter_combination,
+    join_selectivity,
+    planner_guess,
+    range_gap,
+    skew,
+    stale_statistics,
+)
 from .context import Candidate, Context, build_context, fmt_rows, relation_map
 from .impact import ImpactWalk
 
@@ -20,6 +29,9 @@ RULES = (
     ("range_gap", range_gap.rule),
     ("stale_statistics", stale_statistics.rule),
     ("default_selectivity", default_selectivity.rule),
+    ("join_selectivity", join_selectivity.rule),
+    ("filter_combination", filter_combination.rule),
+    ("planner_guess", planner_guess.rule),
 )
 CAUSES = tuple(name for name, _ in RULES) + ("unexplained",)
 """What a finding's cause can be; `not_diagnosed` marks an origin past `MAX_DIAGNOSED`."""

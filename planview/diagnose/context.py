@@ -101,6 +101,23 @@ class Context:
     def group_keys(self) -> list[str]:
         return list(self.node.group_keys)
 
+    def keeps(self, statistic: str) -> bool:
+        """Whether the engine keeps this kind of statistic (``histogram``, ``most_common_values``)."""
+        return statistic in self.engine.STATISTICS_KEPT
+
+    def non_constant_kind(self, clause: Clause) -> str | None:
+        """``inequality`` or ``equality_same_table`` when the clause compares a column with no
+        constant (a parameter, a sub-plan's result, another column of the same table)."""
+        if not clause.bare or clause.aggregate or not clause.columns:
+            return None
+        same_table = len(clause.columns) == 2 and not clause.is_join
+        other_side = clause.has_parameter or clause.has_subplan
+        if clause.op_class in ("open_range", "closed_range") and (other_side or same_table):
+            return "inequality"
+        if clause.op_class == "equality" and same_table:
+            return "equality_same_table"
+        return None
+
     def default_match(self, tolerance: float = 0.05) -> tuple[str, float] | None:
         """The engine default (or product of two) that the estimated selectivity equals."""
         sel = self.est_selectivity

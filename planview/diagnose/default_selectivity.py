@@ -21,10 +21,11 @@ def rule(ctx: Context) -> Candidate | None:
     opaque = [c for c in clauses if c.columns and not c.bare and c.op_class != "or"]
     aggregates = [c for c in ctx.clauses if c.aggregate]
     special = [c for c in clauses if c.op_class in NO_STATS_CLASSES and c not in opaque]
+    non_constant = _non_constant(ctx, clauses)
     match = ctx.default_match()
     num_distinct = ctx.engine.DEFAULT_NUM_DISTINCT
     grouping_default = ctx.is_grouping and num_distinct is not None and ctx.est_total == num_distinct[1]
-    if not (opaque or aggregates or special or match or grouping_default):
+    if not (opaque or aggregates or special or match or grouping_default or non_constant):
         return None
     lines: list[str] = []
     fields: dict = {}
@@ -40,6 +41,13 @@ def rule(ctx: Context) -> Candidate | None:
     for clause in special:
         kind = "LIKE with a leading wildcard" if "like" in clause.op_class else "an operator without selectivity statistics"
         lines.append(f"{clause.text} uses {kind}.")
+    for clause, name, value in non_constant:
+        other = ("another column of the same table" if len(clause.columns) == 2 else
+                 "a sub-plan's result" if clause.has_subplan else "a parameter")
+        lines.append(f"{clause.text} compares a column with {other}, not a constant: the planner "
+                     f"cannot look the value up in its statistics and uses its fixed {name} = "
+                     f"{fmt_sel(value)} ({ctx.engine.NON_CONSTANT_SOURCE}).")
+        fields.setdefault("default", {"name": name, "value": value})
     if grouping_default:
         lines.append(f"Estimated exactly {fmt_rows(ctx.est_total)} groups: the default number of "
                      "distinct values when the grouping expression has no statistics.")
@@ -55,11 +63,13 @@ def rule(ctx: Context) -> Candidate | None:
     score = 0.0
     if opaque or aggregates or special:
         score = 0.75
+    if non_constant:
+        score = max(score, 0.8)
     if match or grouping_default:
         score = min(0.95, score + 0.2) if score else 0.55
     table = None
     columns: list[str] = []
-    for clause in opaque + special:
+    for clause in opaque + special + [c for c, _, _ in non_constant]:
         table = table or ctx.table_of(clause) or ctx.relation_of.get(None)
         columns += [c.name for c in clause.columns]
     return Candidate(cause="default_selectivity", score=score,
@@ -67,7 +77,18 @@ def rule(ctx: Context) -> Candidate | None:
                      + (" (its estimate equals a built-in default)" if match or grouping_default else ""),
                      lines=lines, fields=fields, table=table or ctx.relation_of.get(None),
                      columns=sorted(set(columns)), expressions=[e for e in expressions if e],
-                     details={"aggregate": bool(aggregates)})
+                     details={"aggregate": bool(aggregates), "non_constant": bool(non_constant)})
+
+
+def _non_constant(ctx: Context, clauses) -> list:
+    """(clause, default name, value) for each comparison with no constant the engine answers
+    with a fixed default."""
+    found = []
+    for clause in clauses:
+        name = ctx.engine.NON_CONSTANT_DEFAULTS.get(ctx.non_constant_kind(clause) or "")
+        if name and name in ctx.defaults:
+            found.append((clause, name, ctx.defaults[name]))
+    return found
 
 
 def _expression_of(clause) -> str:

@@ -50,6 +50,10 @@ def rule(ctx: Context) -> Candidate | None:
         lines.append("The value comes from each outer row (a join key): the estimate is the "
                      "average rows per key, and the keys really used are "
                      + ("more" if ctx.direction == "under" else "less") + " common than average.")
+    elif not ctx.keeps("most_common_values"):
+        lines.append("The engine keeps no list of frequent values, only a distinct count: every "
+                     "value is estimated at the average rows per value, and this one is far "
+                     + ("more" if ctx.direction == "under" else "less") + " common.")
     else:
         lines.append(("The value is far more common than the optimizer's average for values not "
                       "in its most-common-values list" if ctx.direction == "under" else

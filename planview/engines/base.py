@@ -71,6 +71,19 @@ class Engine:
     DEFAULT_NUM_DISTINCT: tuple[str, float] | None = None
     """The engine's name for, and number of, the groups it assumes when a grouping key has no
     statistics."""
+    STATISTICS_KEPT: frozenset[str] = frozenset({"histogram", "most_common_values", "distinct", "min_max"})
+    """What the engine keeps per column, so that evidence names only statistics it has."""
+    AND_FILTERS: tuple[str, str] | None = None
+    """How the engine combines ANDed filters on one table, when not as a product of their
+    selectivities: (``minimum``, where the engine's source says so)."""
+    NON_CONSTANT_DEFAULTS: Mapping[str, str] = {}
+    """Comparison kind (``inequality``, ``equality_same_table``) with something that is not a
+    constant, to the name in `DEFAULT_SELECTIVITIES` of the fixed estimate the engine uses."""
+    NON_CONSTANT_SOURCE: str | None = None
+    """Where the engine's source says so."""
+    RECURSIVE_GUESSES: Mapping[str, tuple[float, str]] = {}
+    """Operators of a recursive CTE whose estimate is a fixed guess of the planner's: operator
+    to (factor, what the factor multiplies and where the engine's source says so)."""
 
     def __init__(self) -> None:
         self._operators: dict[str, tuple] = {}

@@ -772,6 +772,11 @@ def suggest_fix(cause: str, table: str | None, columns: list[str] | tuple[str, .
         "default_selectivity": "DuckDB applies a fixed selectivity to predicates it has no "
                                "statistics for (a range came out at 20% in our runs of 2.0.1); "
                                "there is no setting to change it.",
+        "filter_combination": "DuckDB estimates ANDed filters on one table by the smallest of "
+                              "their estimates (or 20% once when none is an equality), not their "
+                              "product, and no setting changes that.",
+        "join_selectivity": "DuckDB estimates a semi or anti join from its inputs' distinct "
+                            "counts; nothing describes which keys match.",
     }
     if cause not in lacks:
         return None
@@ -783,6 +788,10 @@ def suggest_fix(cause: str, table: str | None, columns: list[str] | tuple[str, .
                      "table of their own",
         "default_selectivity": "write the predicate on the bare column (no function or cast "
                                "around it), so min/max and distinct counts apply",
+        "filter_combination": "keep the combination the filters select as a column of its own "
+                              "and filter on it with one equality",
+        "join_selectivity": "apply the other side's filter first into a table of its own and "
+                            "join against that",
     }[cause]
     sql = (f"-- DuckDB offers no statistics lever for this: {lacks[cause]}\n"
            f"-- What DuckDB does offer: {analyze} refreshes the distinct counts (it cannot help "
@@ -811,6 +820,12 @@ class DuckDB(Engine):
     WHOLE_RELATION_SCANS = frozenset({"SEQ_SCAN", "TABLE_SCAN"})
     CTE_SCANS = frozenset({"CTE_SCAN"})
     DEFAULT_SELECTIVITIES = DEFAULT_SELECTIVITIES
+    STATISTICS_KEPT = frozenset({"distinct", "min_max"})
+    # src/optimizer/join_order/relation_statistics_helper.cpp, ExtractGetStats: each filter of
+    # a scan gives a cardinality (an equality with a constant: rows / distinct count; any other
+    # filter: no change), the scan takes the smallest of them, and when no filter is an equality
+    # the rows x DEFAULT_SELECTIVITY (0.2) once, however many filters there are.
+    AND_FILTERS = ("minimum", "ExtractGetStats in src/optimizer/join_order/relation_statistics_helper.cpp")
 
     def input_rule(self, node: PlanNode, nodes: list[PlanNode], inputs: list[int]) -> str:
         op = node.operator

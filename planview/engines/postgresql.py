@@ -1445,13 +1445,31 @@ def safe_expression(text: str) -> str | None:
     return "".join(out)
 
 
+_NO_STATISTIC_FIXES = {
+    "join_selectivity": [
+        "No statistic of one table describes which keys of the other side match: ANALYZE and",
+        "CREATE STATISTICS cannot change a semi or anti join's share of matches. What can:",
+        "1. apply the other side's filter first into a table of its own (CREATE TABLE ... AS,",
+        "   then ANALYZE it), so the planner counts the keys that are really there, or",
+        "2. rewrite the EXISTS / NOT EXISTS as a join against that pre-filtered set.",
+    ],
+    "planner_guess": [
+        "No statistic changes this guess: the planner cannot know how many times a recursion",
+        "runs. What can: run the recursion into a temporary table, ANALYZE it, and query that,",
+        "or bound the recursion (a depth column with a limit) so the plan above it is cheap",
+        "whatever the count.",
+    ],
+}
+"""Causes no statistic of PostgreSQL's can fix: the options, all as comments."""
+
+
 def suggest_fix(cause: str, table: str | None, columns: list[str], **details) -> tuple[str, str] | None:
     """The SQL that gives the optimizer what it missed, and what running it costs.
 
     Every name is quoted by `quote_ident`; an expression goes into SQL only as
     `safe_expression` re-rendered it, and plan text in a comment is one inert line.
     """
-    if not table:
+    if not table and cause not in _NO_STATISTIC_FIXES:
         return None
     qt = _qtable(table, details.get("table_parts"))
     cols = [quote_ident(c) for c in columns]
@@ -1507,6 +1525,10 @@ def suggest_fix(cause: str, table: str | None, columns: list[str], **details) ->
                    "EXCLUSIVE lock; more frequent auto-analyze means more background I/O. "
                    + _CHANGE_PROCESS)
         return sql, caution
+    if cause in _NO_STATISTIC_FIXES:
+        return ("\n".join("-- " + line for line in _NO_STATISTIC_FIXES[cause]),
+                "Nothing here runs as pasted: each option changes the query or the schema. "
+                + _CHANGE_PROCESS)
     if cause == "default_selectivity":
         return _expression_fix(table, qt, [e for e in details.get("expressions") or [] if e],
                                bool(details.get("aggregate")), details.get("table_parts"))
@@ -1578,6 +1600,19 @@ class PostgreSQL(Engine):
     CTE_SCANS = frozenset({"CTE Scan"})
     DEFAULT_NUM_DISTINCT = ("DEFAULT_NUM_DISTINCT", DEFAULT_SELECTIVITIES["DEFAULT_NUM_DISTINCT"])
     DEFAULT_SELECTIVITIES = {k: v for k, v in DEFAULT_SELECTIVITIES.items() if k != "DEFAULT_NUM_DISTINCT"}
+    # src/backend/utils/adt/selfuncs.c: eqsel returns DEFAULT_EQ_SEL when the clause is not
+    # "column = something" (two columns of one table); a column = non-constant is estimated as
+    # 1/n_distinct (var_eq_non_const); scalarineqsel returns DEFAULT_INEQ_SEL when the other
+    # side is not a constant (a parameter, an InitPlan or SubPlan result, another column).
+    NON_CONSTANT_DEFAULTS = {"inequality": "DEFAULT_INEQ_SEL", "equality_same_table": "DEFAULT_EQ_SEL"}
+    NON_CONSTANT_SOURCE = "eqsel and scalarineqsel in src/backend/utils/adt/selfuncs.c"
+    RECURSIVE_GUESSES = {
+        "Recursive Union": (10.0, "the non-recursive term's rows plus 10 iterations of the recursive "
+                                  "term's (cost_recursive_union in src/backend/optimizer/path/costsize.c: "
+                                  "\"we arbitrarily assume that about 10 recursive iterations will be needed\")"),
+        "WorkTable Scan": (10.0, "10 times the non-recursive term's rows for the work table "
+                                 "(set_cte_size_estimates in src/backend/optimizer/path/costsize.c)"),
+    }
 
     def input_rule(self, node: PlanNode, nodes: list[PlanNode], inputs: list[int]) -> str:
         if not node.children:
