@@ -261,3 +261,14 @@ def test_cli_writes_the_page_and_the_ticket(tmp_path, capsys):
     assert page.read_text() == plan.to_html()
     assert ticket.read_text() == plan.to_markdown()
     assert compact_report(plan.report())["findings"] == plan.report()["findings"]
+
+
+def test_every_cause_has_words_in_python_and_in_the_page():
+    """Each cause a finding can carry reads as words in every view, not as its key."""
+    from planview.diagnose import CAUSES
+    from planview.export.common import CAUSE_WORDS
+
+    script = (Path(planview.__file__).parent / "widget" / "review.js").read_text()
+    for cause in (*CAUSES, "not_diagnosed"):
+        assert cause in CAUSE_WORDS, cause
+        assert re.search(rf'\n  {cause}: "{re.escape(CAUSE_WORDS[cause])}",', script), cause

@@ -26,6 +26,9 @@ CAUSE_WORDS = {
     "default_selectivity": "a default selectivity guess",
     "unexplained": "no cause found",
     "not_diagnosed": "not diagnosed (past the diagnosis cap)",
+    "join_selectivity": "a semi- or anti-join selectivity guess",
+    "filter_combination": "how the engine combines ANDed filters",
+    "planner_guess": "the planner's built-in guess",
 }
 
 GENERIC_CAUTION = (
