@@ -56,13 +56,14 @@ AGGREGATES = {
 INPUT_RULES: dict[str, str] = {
     **{op: "join" for op in JOINS},
     **{op: "source" for op in AGGREGATES},
-    "PROJECTION": "pass", "FILTER": "pass", "ORDER_BY": "pass", "LIMIT": "pass",
-    "STREAMING_LIMIT": "pass", "LIMIT_PERCENT": "pass", "TOP_N": "pass", "WINDOW": "pass",
+    "PROJECTION": "pass", "FILTER": "pass", "ORDER_BY": "pass", "LIMIT": "limit",
+    "STREAMING_LIMIT": "limit", "LIMIT_PERCENT": "pass", "TOP_N": "limit", "WINDOW": "pass",
     "STREAMING_WINDOW": "pass", "UNNEST": "pass", "STREAMING_SAMPLE": "pass",
     "RESERVOIR_SAMPLE": "pass", "RESULT_COLLECTOR": "pass", "EXPLAIN_ANALYZE": "pass",
     "REORDER": "pass", "BATCH_COLLECTOR": "pass",
     "UNION": "sum", "RECURSIVE_CTE": "sum",
-    # a materialised CTE reports no rows of its own (0 in 2.x); its scans re-read it
+    # a materialised CTE reports no rows of its own (0 in 2.x); its scans re-read it, and it
+    # returns what its last child (the query after the CTE) returns (see DuckDB.refine)
     "CTE": "uncounted", "CTE_SCAN": "cte",
 }
 # a grouping node's count scales with its input's estimate ("group" where the check has it)
@@ -708,6 +709,14 @@ def _subtree_dynamic_filter(node: PlanNode, nodes: list[PlanNode]) -> str | None
     return None
 
 
+def _emitted(node: PlanNode, nodes: list[PlanNode]) -> PlanNode:
+    """The node whose rows a node emits: a CTE node's last child (the query after the CTE),
+    else the node itself."""
+    if node.operator == "CTE" and len(node.children) > 1:
+        return nodes[node.children[-1]]
+    return node
+
+
 def _cte_key(node: PlanNode) -> tuple[int, Any] | None:
     """A CTE by its statement and table index (what a CTE_SCAN's "CTE Index" names)."""
     if node.operator != "CTE" or not node.children:
@@ -820,16 +829,15 @@ class DuckDB(Engine):
         if rule == "source" and op in GROUPING:
             return "group"
         if op in PURE_PASS and len(node.children) == 1:
-            child = nodes[node.children[0]]
+            child = _emitted(nodes[node.children[0]], nodes)
             if node.est_rows is not None and child.est_rows is not None \
                     and abs(node.est_rows - child.est_rows) > 0.5:
                 return "source"  # estimated afresh after a rewrite: its error is its own
-        if op == "TOP_N":
-            # Top-N reads all its input; when it reached its N its count is the N, not the input's
-            top = _count_or_none((node.extra.get("extra_info") or {}).get("Top"))
-            if top is not None and node.actual_rows is not None and node.actual_rows >= top:
-                return "source"
         return rule
+
+    def limit_count(self, node: PlanNode) -> float | None:
+        """Top-N prints its N as "Top"; a plain LIMIT prints no count."""
+        return _count_or_none((node.extra.get("extra_info") or {}).get("Top"))
 
     def cte_read(self, node: PlanNode, nodes: list[PlanNode], parsed: ParsedPlan) -> int | None:
         """A CTE_SCAN's "CTE Index" names the CTE's "Table Index"; it re-reads the CTE's child."""
@@ -847,6 +855,8 @@ class DuckDB(Engine):
     def refine(self, node: PlanNode, nodes: list[PlanNode], parsed: ParsedPlan, role: Role) -> None:
         if node.operator == "CTE_SCAN" and role.reads is None:
             role.rule = "source"
+        if node.operator == "CTE" and len(node.children) > 1:
+            role.emits = node.children[-1]
         if node.operator in JOINS and len(node.children) > 1:
             role.complete_inputs = tuple(node.children[1:])
         if node.operator == "HASH_JOIN" and node.children:
