@@ -694,7 +694,8 @@ def _join_text(value: Any, key: str, fmt: str) -> str:
 # ---------------------------------------------------------------------------------------
 
 def _subtree_dynamic_filter(node: PlanNode, nodes: list[PlanNode]) -> str | None:
-    """The dynamic filter a join pushed into its probe side, if the profile shows one."""
+    """The dynamic filter a join pushed into its probe side, if the profile shows one and it
+    may have cut rows (a scan that still emitted its whole table lost none to it)."""
     info = node.extra.get("extra_info") or {}
     if "Build Min" in info or "Build Max" in info:
         return "the join's build-side minimum and maximum"
@@ -703,10 +704,17 @@ def _subtree_dynamic_filter(node: PlanNode, nodes: list[PlanNode]) -> str | None
         current = nodes[todo.pop()]
         found = current.extra.get("dynamic_filters")
         if found:
-            return "; ".join(found)
+            return None if _cut_nothing(current) else "; ".join(found)
         if current.operator not in JOINS:
             todo.extend(current.children[:1] if current.operator in AGGREGATES else current.children)
     return None
+
+
+def _cut_nothing(scan: PlanNode) -> bool:
+    """A scan without filters of its own estimates its whole table; when it emitted at least
+    that many rows, the run-time filter it carries removed none."""
+    return (not scan.children and scan.est_rows is not None and scan.actual_rows is not None
+            and scan.actual_rows >= scan.est_rows and not any(c.kind == "filter" for c in scan.conditions))
 
 
 def _emitted(node: PlanNode, nodes: list[PlanNode]) -> PlanNode:
