@@ -1678,8 +1678,8 @@ class PostgreSQL(Engine):
         A node is on a partial path when it is parallel-aware, or when its first input is (a
         join over a parallel scan), below a Gather or Gather Merge. An aggregate, and what lies
         above it below the Gather, is not: each process emits its own groups (a Partial
-        Aggregate without grouping emits one row per process), so its total is est_rows x loops. We take the
-        divisor out (estimate x divisor) so that the total compares with actual rows x loops.
+        Aggregate without grouping emits one row per process), so its total is est_rows x
+        loops. On a partial path we take the divisor out (estimate x divisor) so that the total compares with actual rows x loops.
         Both facts are memoised on the parsed plan: `role` is asked once a node, in pre-order.
         """
         memo = parsed.__dict__.setdefault("_pg_parallel", {"gather": {}, "partial": {}})
