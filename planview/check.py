@@ -59,7 +59,12 @@ class Role:
       be told from theirs and does not make it an origin; an overestimate still does;
     - `stopped`: the node itself stopped before its end, with the reason (a scan that read
       far fewer rows than its table holds, under a LIMIT the plan does not show): it and the
-      inputs it stopped are not judged.
+      inputs it stopped are not judged;
+    - `limit_count`: a limit's row count per start, when the plan prints it (None: derived from
+      the figures: a limit emits at most its count, so the count is at least its estimate and
+      its actual rows);
+    - `emits`: an input whose rows this node emits without counting them (DuckDB's CTE node
+      returns what the query after its CTE returns): its consumer is judged against that input.
 
     The facts below are not the check's: it copies them onto the node for the diagnosis.
 
@@ -80,6 +85,8 @@ class Role:
     reads: int | None = None
     cut_inputs: dict[int, str] | None = None
     stopped: str | None = None
+    limit_count: float | None = None
+    emits: int | None = None
     reads_whole_relation: bool = False
     rows_discarded: float = 0.0
     conditions_from: tuple[int, ...] = ()
@@ -166,18 +173,49 @@ def _judge(nodes: list[PlanNode], roles: list[Role]) -> None:
                     cut.setdefault(child.id, reason)
         for child_id, why in (role.stops_inputs or {}).items():
             cut.setdefault(child_id, why)
-        for child_id in role.overestimate_unjudged:
-            child = nodes[child_id]
-            if child.est_total is not None and child.actual_total is not None \
-                    and child.actual_total < child.est_total:
-                cut.setdefault(child_id, "may have stopped early: a merge join stops reading one "
-                                         "input once the other runs out")
+        if role.overestimate_unjudged:
+            _merge_inputs(node, nodes, roles, role, cut)
     visited: set[int] = set()
     for node, role in zip(nodes, roles):
         if role.reads is not None and node.executed and node.not_judged_reason \
                 and node.not_judged_reason.startswith("stopped early"):
             _cut_subtree(nodes, roles, nodes[role.reads],
                          "stopped early: the reader of this CTE stopped before its end", visited)
+
+
+def _merge_inputs(node: PlanNode, nodes: list[PlanNode], roles: list[Role], role: Role,
+                  cut: dict[int, str]) -> None:
+    """A merge join stops reading one input once the other runs out, so an input that
+    returned fewer rows than estimated may have stopped early, unless the figures prove it
+    ran to its end. The join counts such an input with its printed figures, a lower bound,
+    as it counts an input cut while running."""
+    for child_id in role.overestimate_unjudged:
+        child = nodes[child_id]
+        if child.est_total is None or child.actual_total is None \
+                or child.actual_total >= child.est_total or _ran_to_end(child, nodes, roles):
+            continue
+        cut.setdefault(child_id, "may have stopped early: a merge join stops reading one "
+                                 "input once the other runs out")
+        role.cut_inputs = dict(role.cut_inputs or {})
+        role.cut_inputs[child_id] = (f"its input #{child_id} may have stopped early (a merge join "
+                                     "stops reading one input once the other runs out), so that "
+                                     "input's true count is at least what it shows")
+
+
+def _ran_to_end(top: PlanNode, nodes: list[PlanNode], roles: list[Role]) -> bool:
+    """True when a pass-through chain emitted every row of a blocking node below it that had
+    read all its input (a Sort emits what it sorted): then nothing stopped it early."""
+    current = top
+    for _ in range(len(nodes)):
+        inputs = [c for c in current.children if nodes[c].is_input_edge]
+        if len(inputs) != 1 or roles[current.id].rule != "pass" or current.rows_removed:
+            return False
+        below = nodes[inputs[0]]
+        if roles[current.id].blocking:
+            return below.actual_total is not None and current.actual_total == below.actual_total \
+                == top.actual_total
+        current = below
+    return False
 
 
 def _cut_subtree(nodes: list[PlanNode], roles: list[Role], top: PlanNode, reason: str,
@@ -211,32 +249,59 @@ def _carried(child: PlanNode, cut: dict[int, str] | None) -> float:
     return _judged_lr(child)
 
 
-def _own_as_is(lr: float, inputs: list[PlanNode], role: Role) -> float:
+def _own_as_is(node: PlanNode, inputs: list[PlanNode], role: Role) -> float:
     """Its own log ratio (scans, leaves, aggregates without grouping)."""
-    return lr
+    return node.log10_ratio
 
 
-def _own_minus_first(lr: float, inputs: list[PlanNode], role: Role) -> float:
-    """Minus its input's log ratio: the one input of Hash, Sort, Materialize, Memoize, Gather,
-    Limit...; the index bitmap under a heap scan; the outer input of a semi or anti join;
-    the CTE a CTE scan reads."""
-    return lr - _carried(inputs[0], role.cut_inputs)
+def _own_minus_first(node: PlanNode, inputs: list[PlanNode], role: Role) -> float:
+    """Minus its input's log ratio: the one input of Hash, Sort, Materialize, Memoize, Gather...;
+    the index bitmap under a heap scan; the outer input of a semi or anti join; the CTE a CTE
+    scan reads."""
+    return node.log10_ratio - _carried(inputs[0], role.cut_inputs)
 
 
-def _own_minus_last(lr: float, inputs: list[PlanNode], role: Role) -> float:
+def _own_minus_last(node: PlanNode, inputs: list[PlanNode], role: Role) -> float:
     """Minus the inner input's log ratio (right semi and right anti joins)."""
-    return lr - _carried(inputs[-1], role.cut_inputs)
+    return node.log10_ratio - _carried(inputs[-1], role.cut_inputs)
 
 
-def _own_of_group(lr: float, inputs: list[PlanNode], role: Role) -> float:
-    """Its own log ratio, or minus its input's when that explains more: a group count is
-    capped by, and scales with, the input estimate (grouping nodes)."""
-    return min((lr, lr - _carried(inputs[0], role.cut_inputs)), key=abs)
+def _own_of_limit(node: PlanNode, inputs: list[PlanNode], role: Role) -> float:
+    """Against min(count, input) for both the estimate and the actual rows: a limit emits
+    what its input gave, up to its count, so only its own arithmetic can be off. The input
+    counts with its printed figures even when the limit stopped it (that is the point)."""
+    child = inputs[0]
+    if child.est_total is None or child.actual_total is None:
+        return node.log10_ratio
+    if role.limit_count is not None:
+        count = role.limit_count * (node.starts or 1)
+    else:
+        count = max(node.est_total or 0.0, node.actual_total or 0.0)
+    return node.log10_ratio - log_ratio(min(count, child.est_total), min(count, child.actual_total))
 
 
-def _own_of_join(lr: float, inputs: list[PlanNode], role: Role) -> float:
+def _own_of_group(node: PlanNode, inputs: list[PlanNode], role: Role) -> float:
+    """Between its own log ratio (a group count that ignores the input estimate) and its log
+    ratio minus its input's (one that scales with, or is capped by, the input estimate): the
+    end nearest no error, and none when they lie either side of it, since its own error
+    cannot then be told from its input's."""
+    lr = node.log10_ratio
+    carried = _carried(inputs[0], role.cut_inputs)
+    scaled = lr - carried
+    if lr * scaled <= 0:
+        if abs(lr) >= 0.3 and abs(carried) >= 0.3:
+            node.derived.append(
+                f"group count follows its input: its input's error (x{10 ** abs(carried):,.1f} "
+                f"{_direction(carried)}) explains its own (x{10 ** abs(lr):,.1f} {_direction(lr)}) "
+                "as well as none at all, so no error of its own is counted")
+        return 0.0
+    return min((lr, scaled), key=abs)
+
+
+def _own_of_join(node: PlanNode, inputs: list[PlanNode], role: Role) -> float:
     """Minus the log ratios of both inputs (outer joins: of the preserved input alone when
     that explains more, as they emit the preserved rows anyway)."""
+    lr = node.log10_ratio
     outer = _carried(inputs[0], role.cut_inputs)
     inner = _carried(inputs[1], role.cut_inputs) if len(inputs) > 1 else 0.0
     candidates = [lr - outer - inner]
@@ -247,47 +312,93 @@ def _own_of_join(lr: float, inputs: list[PlanNode], role: Role) -> float:
     return min(candidates, key=abs)
 
 
-def _own_of_sum(lr: float, inputs: list[PlanNode], role: Role) -> float:
+def _own_of_sum(node: PlanNode, inputs: list[PlanNode], role: Role) -> float:
     """Against the sums of its inputs' estimated and actual rows (a concatenation of inputs)."""
     counted = [c for c in inputs if c.judged]
     if not counted:
-        return lr
+        return node.log10_ratio
     est = sum(c.est_total or 0.0 for c in counted)
     act = sum(c.actual_total or 0.0 for c in counted)
-    return lr - log_ratio(est, act)
+    return node.log10_ratio - log_ratio(est, act)
 
 
-OwnErrorRule = Callable[[float, list[PlanNode], Role], float]
+OwnErrorRule = Callable[[PlanNode, list[PlanNode], Role], float]
 
 RULES: dict[str, OwnErrorRule] = {
     "source": _own_as_is,
     "group": _own_of_group,
     "pass": _own_minus_first,
+    "limit": _own_of_limit,
     "join": _own_of_join,
     "semi_outer": _own_minus_first,
     "semi_inner": _own_minus_last,
     "bitmap_heap": _own_minus_first,
     "sum": _own_of_sum,
     "cte": _own_minus_first,
+    "last": _own_minus_last,
     # not judged: the engine does not count this node's rows (a combination of index bitmaps)
     "uncounted": _own_as_is,
 }
 """How each input rule separates a node's own error from what its inputs carry in: the rule's
 name (what an engine's table assigns) to the function that applies it. Each function gets the
-node's log ratio, its inputs (never empty: a node without inputs keeps its own log ratio) and
-its `Role`."""
+node (its log ratio and totals set), its inputs (never empty: a node without inputs keeps its
+own log ratio) and its `Role`."""
 
 
-def _own_error(node: PlanNode, role: Role, nodes: list[PlanNode]) -> float:
-    lr = node.log10_ratio
+def _direction(log10: float) -> str:
+    return "under" if log10 > 0 else "over"
+
+
+def _inputs(node: PlanNode, role: Role, nodes: list[PlanNode], roles: list[Role]) -> list[PlanNode]:
+    """The nodes whose rows feed this one: a CTE scan's CTE; through a node that emits an
+    input's rows uncounted, that input."""
+    if node.own_rule == "cte":  # a CTE scan's input is the CTE it reads, not a child
+        return [nodes[role.reads]] if role.reads is not None else []
+    found = []
+    for c in node.children:
+        if nodes[c].is_input_edge:
+            emits = roles[c].emits
+            found.append(nodes[emits] if emits is not None else nodes[c])
+    return found
+
+
+def _own_error(node: PlanNode, role: Role, nodes: list[PlanNode], roles: list[Role]) -> float | None:
+    """Its own log ratio by its rule, or None when the one-row floors make it unmeasurable
+    (then it is marked not judged, with the reason)."""
     apply = RULES.get(node.own_rule or "", _own_as_is)
     if apply is _own_as_is:
-        return lr
-    if node.own_rule == "cte":  # a CTE scan's input is the CTE it reads, not a child
-        inputs = [nodes[role.reads]] if role.reads is not None else []
-    else:
-        inputs = [nodes[c] for c in node.children if nodes[c].is_input_edge]
-    return apply(lr, inputs, role) if inputs else lr
+        return node.log10_ratio
+    inputs = _inputs(node, role, nodes, roles)
+    if not inputs:
+        return node.log10_ratio
+    own = apply(node, inputs, role)
+    reason = _unmeasurable(node, inputs, own)
+    if reason:
+        node.judged = False
+        node.not_judged_reason = reason
+        return None
+    return own
+
+
+def _unmeasurable(node: PlanNode, inputs: list[PlanNode], own: float) -> str | None:
+    """Why the error added here cannot be read from the figures, if it cannot: q-errors floor
+    both counts at one row, so taking an input's error out of a node that returned nothing,
+    or out of one whose estimate and actual both sit on the floor, measures the floors."""
+    if abs(own - node.log10_ratio) < 1e-9:
+        return None
+    if node.actual_total == 0:
+        empty = next((c for c in inputs if c.actual_total == 0), None)
+        if empty is not None:
+            return (f"not measurable: its input #{empty.id} returned no rows, so it could return "
+                    "none whatever its own estimate")
+        if own > 0:
+            return ("not measurable: it returned no rows, so its own error can only be an "
+                    "overestimate; the underestimate its inputs' figures leave is an artefact of "
+                    "the one-row floor")
+    if (node.est_total or 0.0) <= 1.0 and (node.actual_total or 0.0) <= 1.0 and abs(own) > 1e-9:
+        return ("not measurable: its estimate and its actual rows both sit on the one-row floor, "
+                "so what its inputs carry in cannot be taken out")
+    return None
 
 
 def _own_errors_and_origins(nodes: list[PlanNode], roles: list[Role], threshold: float) -> list[Finding]:
@@ -301,8 +412,8 @@ def _own_errors_and_origins(nodes: list[PlanNode], roles: list[Role], threshold:
     for node in reversed(nodes):
         role = roles[node.id]
         if node.judged and node.log10_ratio is not None:
-            node.own_log10_ratio = _own_error(node, role, nodes)
-            finding = _origin(node, role, threshold)
+            node.own_log10_ratio = _own_error(node, role, nodes, roles)
+            finding = _origin(node, role, threshold) if node.own_log10_ratio is not None else None
             if finding is not None:
                 findings.append(finding)
         _collect(node, nodes, roles, below, threshold)

@@ -145,6 +145,11 @@ class Engine:
         cte = index_of(parsed).first_by(self.cte_definition).get(reference)
         return None if cte is None else self.cte_output(nodes[cte], nodes)
 
+    def limit_count(self, node: PlanNode) -> float | None:
+        """A limit's row count per start, where the engine prints it (None: not printed; the
+        check then takes the least count its figures allow)."""
+        return None
+
     def refine(self, node: PlanNode, nodes: list[PlanNode], parsed: ParsedPlan, role: Role) -> None:
         """What this engine adds to the role the tables give (nothing by default)."""
 
@@ -187,6 +192,10 @@ class Engine:
             reads = self.cte_read(node, nodes, parsed)
             if reads is not None:
                 result.rule, result.reads = "cte", reads
+        if result.rule == "pass" and result.limit:
+            result.rule = "limit"
+        if result.rule == "limit":
+            result.limit_count = self.limit_count(node)
         self.refine(node, nodes, parsed, result)
         return result
 

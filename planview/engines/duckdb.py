@@ -56,13 +56,14 @@ AGGREGATES = {
 INPUT_RULES: dict[str, str] = {
     **{op: "join" for op in JOINS},
     **{op: "source" for op in AGGREGATES},
-    "PROJECTION": "pass", "FILTER": "pass", "ORDER_BY": "pass", "LIMIT": "pass",
-    "STREAMING_LIMIT": "pass", "LIMIT_PERCENT": "pass", "TOP_N": "pass", "WINDOW": "pass",
+    "PROJECTION": "pass", "FILTER": "pass", "ORDER_BY": "pass", "LIMIT": "limit",
+    "STREAMING_LIMIT": "limit", "LIMIT_PERCENT": "pass", "TOP_N": "limit", "WINDOW": "pass",
     "STREAMING_WINDOW": "pass", "UNNEST": "pass", "STREAMING_SAMPLE": "pass",
     "RESERVOIR_SAMPLE": "pass", "RESULT_COLLECTOR": "pass", "EXPLAIN_ANALYZE": "pass",
     "REORDER": "pass", "BATCH_COLLECTOR": "pass",
     "UNION": "sum", "RECURSIVE_CTE": "sum",
-    # a materialised CTE reports no rows of its own (0 in 2.x); its scans re-read it
+    # a materialised CTE reports no rows of its own (0 in 2.x); its scans re-read it, and it
+    # returns what its last child (the query after the CTE) returns (see DuckDB.refine)
     "CTE": "uncounted", "CTE_SCAN": "cte",
 }
 # a grouping node's count scales with its input's estimate ("group" where the check has it)
@@ -693,7 +694,8 @@ def _join_text(value: Any, key: str, fmt: str) -> str:
 # ---------------------------------------------------------------------------------------
 
 def _subtree_dynamic_filter(node: PlanNode, nodes: list[PlanNode]) -> str | None:
-    """The dynamic filter a join pushed into its probe side, if the profile shows one."""
+    """The dynamic filter a join pushed into its probe side, if the profile shows one and it
+    may have cut rows (a scan that still emitted its whole table lost none to it)."""
     info = node.extra.get("extra_info") or {}
     if "Build Min" in info or "Build Max" in info:
         return "the join's build-side minimum and maximum"
@@ -702,10 +704,25 @@ def _subtree_dynamic_filter(node: PlanNode, nodes: list[PlanNode]) -> str | None
         current = nodes[todo.pop()]
         found = current.extra.get("dynamic_filters")
         if found:
-            return "; ".join(found)
+            return None if _cut_nothing(current) else "; ".join(found)
         if current.operator not in JOINS:
             todo.extend(current.children[:1] if current.operator in AGGREGATES else current.children)
     return None
+
+
+def _cut_nothing(scan: PlanNode) -> bool:
+    """A scan without filters of its own estimates its whole table; when it emitted at least
+    that many rows, the run-time filter it carries removed none."""
+    return (not scan.children and scan.est_rows is not None and scan.actual_rows is not None
+            and scan.actual_rows >= scan.est_rows and not any(c.kind == "filter" for c in scan.conditions))
+
+
+def _emitted(node: PlanNode, nodes: list[PlanNode]) -> PlanNode:
+    """The node whose rows a node emits: a CTE node's last child (the query after the CTE),
+    else the node itself."""
+    if node.operator == "CTE" and len(node.children) > 1:
+        return nodes[node.children[-1]]
+    return node
 
 
 def _cte_key(node: PlanNode) -> tuple[int, Any] | None:
@@ -835,16 +852,15 @@ class DuckDB(Engine):
         if rule == "source" and op in GROUPING:
             return "group"
         if op in PURE_PASS and len(node.children) == 1:
-            child = nodes[node.children[0]]
+            child = _emitted(nodes[node.children[0]], nodes)
             if node.est_rows is not None and child.est_rows is not None \
                     and abs(node.est_rows - child.est_rows) > 0.5:
                 return "source"  # estimated afresh after a rewrite: its error is its own
-        if op == "TOP_N":
-            # Top-N reads all its input; when it reached its N its count is the N, not the input's
-            top = _count_or_none((node.extra.get("extra_info") or {}).get("Top"))
-            if top is not None and node.actual_rows is not None and node.actual_rows >= top:
-                return "source"
         return rule
+
+    def limit_count(self, node: PlanNode) -> float | None:
+        """Top-N prints its N as "Top"; a plain LIMIT prints no count."""
+        return _count_or_none((node.extra.get("extra_info") or {}).get("Top"))
 
     def cte_read(self, node: PlanNode, nodes: list[PlanNode], parsed: ParsedPlan) -> int | None:
         """A CTE_SCAN's "CTE Index" names the CTE's "Table Index"; it re-reads the CTE's child."""
@@ -862,6 +878,8 @@ class DuckDB(Engine):
     def refine(self, node: PlanNode, nodes: list[PlanNode], parsed: ParsedPlan, role: Role) -> None:
         if node.operator == "CTE_SCAN" and role.reads is None:
             role.rule = "source"
+        if node.operator == "CTE" and len(node.children) > 1:
+            role.emits = node.children[-1]
         if node.operator in JOINS and len(node.children) > 1:
             role.complete_inputs = tuple(node.children[1:])
         if node.operator == "HASH_JOIN" and node.children:

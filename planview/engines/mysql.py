@@ -49,6 +49,7 @@ SEMI = re.compile(r"\b(semijoin|antijoin)\b", re.I)
 LEFT = re.compile(r"\bleft\b", re.I)
 BLOCKING = ("Sort", "Aggregate using temporary table", "Materialize", "Temporary table", "Window")
 LIMITS = ("Limit", "Limit/Offset")
+_LIMIT_COUNT = re.compile(r"^Limit(?:/Offset)?: (\d+)\b")
 # Headings: lines that carry no numbers of their own
 HASH_HEADINGS = ("Hash", "Parallel hash")
 
@@ -458,6 +459,11 @@ class MySQL(Engine):
         if not inputs:
             return "source"
         return self.lookup(node.operator, self.INPUT_RULES) or "pass"
+
+    def limit_count(self, node: PlanNode) -> float | None:
+        """``Limit: 10 row(s)``, ``Limit/Offset: 10/5 row(s)``: the count, then the offset."""
+        found = _LIMIT_COUNT.match(node.operator)
+        return float(found.group(1)) if found else None
 
     def completes_inner(self, node: PlanNode, inner: PlanNode) -> bool:
         return "hash" in node.operator.lower() or bool(inner.extra.get("hashed"))

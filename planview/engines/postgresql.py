@@ -96,9 +96,11 @@ INPUT_RULES = {
     "Nested Loop": "join", "Hash Join": "join", "Merge Join": "join",
     # pass rows through (perhaps with a filter): minus the child
     "Hash": "pass", "Sort": "pass", "Incremental Sort": "pass", "Materialize": "pass",
-    "Memoize": "pass", "Gather": "pass", "Gather Merge": "pass", "Limit": "pass",
+    "Memoize": "pass", "Gather": "pass", "Gather Merge": "pass",
     "LockRows": "pass", "Subquery Scan": "pass", "Result": "pass", "ProjectSet": "pass",
     "WindowAgg": "pass", "ModifyTable": "pass",
+    # a Limit emits min(its count, its input): judged against that, for estimate and actual
+    "Limit": "limit",
     # a heap scan driven by a bitmap: minus its bitmap child
     "Bitmap Heap Scan": "bitmap_heap",
     # several inputs concatenated: against the sum of the children
@@ -152,16 +154,19 @@ def parallel_divisor(workers: int, leader_participates: bool = True) -> float:
 def repair(parsed: ParsedPlan) -> None:
     """Repair figures PostgreSQL printed too coarsely, and say so in `derived`.
 
-    - Per-start actual rows printed as integers (PostgreSQL 17 and earlier) hide averages
-      below 0.5: ``rows=0 loops=29780`` may be 6,000 rows. The inner side of an inner nested
-      loop must have returned at least the rows the join emitted plus those its join filter
-      removed, so the total is raised to that bound (within what the rounding allows).
+    - Per-start actual rows are printed rounded (to integers up to 17, to two decimals in 18):
+      ``rows=0 loops=29780`` may be 6,000 rows. The inner side of an inner nested loop returned
+      exactly the rows the join emitted plus those its join filter removed (each inner row is
+      paired with the current outer row, then kept or removed), so its total is set to that
+      proof and its range narrowed to it. Through a Memoize the proof is the Memoize's; the
+      scan below it ran only on cache misses, so its total is bounded by the Memoize's and
+      taken at the same rows per start.
     - The planner clamps a printed estimate to at least one row; for the inner side of an
       inner nested loop without a join filter, the join's estimate over the outer estimate
       gives the real per-start figure.
     """
     nodes = parsed.nodes
-    integer_rows = parsed.engine_version != "18"
+    half_step = 0.005 if parsed.engine_version == "18" else 0.5
     for node in nodes:
         if node.operator != "Nested Loop" or node.join_type != "Inner" or not node.executed:
             continue
@@ -169,21 +174,8 @@ def repair(parsed: ParsedPlan) -> None:
         if len(inputs) != 2:
             continue
         outer, inner = inputs
-        if integer_rows and inner.executed and inner.starts and inner.starts > 1 \
-                and node.actual_total is not None and inner.actual_rows is not None \
-                and inner.actual_total is not None and float(inner.actual_rows).is_integer():
-            removed = node.rows_removed.get("Join Filter", 0.0) * (node.starts or 1)
-            bound = node.actual_total + removed
-            high = (inner.actual_rows + 0.5) * inner.starts
-            low = max(0.0, (inner.actual_rows - 0.5) * inner.starts)
-            inner.extra["actual_total_range"] = [low, high]
-            if bound > inner.actual_total:
-                inner.actual_total = min(bound, high)
-                inner.derived.append(
-                    f"actual total raised to {inner.actual_total:,.0f}: the nested loop above "
-                    f"emitted {bound:,.0f} rows through it, and per-start rows are printed "
-                    f"rounded ({inner.actual_rows:g} x {inner.starts:,.0f} loops)"
-                )
+        if inner.executed and node.actual_total is not None:
+            _prove_inner_total(node, inner, nodes, half_step)
         has_join_filter = any(c.kind == "join_filter" for c in node.conditions)
         if (not has_join_filter and inner.est_rows == 1 and outer.est_rows and node.est_rows is not None
                 and inner.est_total is not None):
@@ -195,6 +187,68 @@ def repair(parsed: ParsedPlan) -> None:
                     f"{node.est_rows:,.0f} over the outer estimate {outer.est_rows:,.0f} gives "
                     f"{per_start:.3g} per start"
                 )
+
+
+def _rounding_range(node: PlanNode, half_step: float) -> tuple[float, float] | None:
+    """The totals a rounded per-start count allows (None: printed exactly, one start)."""
+    if not node.starts or node.starts <= 1 or node.actual_rows is None:
+        return None
+    known = node.extra.get("actual_total_range")
+    if known:
+        return known[0], known[1]
+    return (max(0.0, (node.actual_rows - half_step) * node.starts),
+            (node.actual_rows + half_step) * node.starts)
+
+
+def _prove_inner_total(join: PlanNode, inner: PlanNode, nodes: list[PlanNode], half_step: float) -> None:
+    """The inner input's total from what the join emitted and removed (see `repair`)."""
+    removed = sum(join.rows_removed.get(k, 0.0) for k in ("Join Filter", "Filter"))
+    join_range = _rounding_range(join, half_step) or (join.actual_total, join.actual_total)
+    removed_range = (removed * (join.starts or 1),) * 2
+    if removed and join.starts and join.starts > 1:
+        removed_range = (max(0.0, removed - half_step) * join.starts, (removed + half_step) * join.starts)
+    proof = (join_range[0] + removed_range[0], join_range[1] + removed_range[1])
+    own = _rounding_range(inner, half_step)
+    if own is None or inner.actual_total is None:
+        return
+    low, high = max(own[0], proof[0]), min(own[1], proof[1])
+    if low > high:  # the figures disagree: keep what was printed
+        return
+    value = min(max(inner.actual_total, low), high) if high > low else low
+    inner.extra["actual_total_range"] = [low, high]
+    if abs(value - inner.actual_total) > 1e-9:
+        exact = "exactly" if high == low else f"between {low:,.0f} and {high:,.0f}, so"
+        inner.derived.append(
+            f"actual total {value:,.0f}: the nested loop above emitted {proof[0]:,.0f} rows "
+            f"through it and removed {removed_range[0]:,.0f} by its join filter, so it returned "
+            f"{exact} that many; per-start rows are printed rounded ({inner.actual_rows:g} x "
+            f"{inner.starts:,.0f} loops)")
+        inner.actual_total = value
+    if inner.operator == "Memoize":
+        _through_memoize(inner, nodes, half_step)
+
+
+def _through_memoize(memo: PlanNode, nodes: list[PlanNode], half_step: float) -> None:
+    """The scan below a Memoize runs once per cache miss: its total is at most the Memoize's,
+    and is taken at the Memoize's rows per start, within what its own rounding allows."""
+    below = [nodes[c] for c in memo.children if nodes[c].is_input_edge]
+    if len(below) != 1 or memo.actual_total is None or not memo.starts:
+        return
+    scan = below[0]
+    own = _rounding_range(scan, half_step)
+    if own is None or scan.actual_total is None:
+        return
+    high = min(own[1], memo.actual_total)
+    low = min(own[0], high)
+    value = min(max(memo.actual_total / memo.starts * scan.starts, low), high)
+    scan.extra["actual_total_range"] = [value, value]
+    if abs(value - scan.actual_total) > 1e-9:
+        scan.derived.append(
+            f"actual total taken as {value:,.0f}: the Memoize above returned {memo.actual_total:,.0f} "
+            f"rows over {memo.starts:,.0f} lookups; this ran on its {scan.starts:,.0f} cache misses, "
+            f"taken at the same rows per lookup (per-start rows are printed rounded: "
+            f"{scan.actual_rows:g} x {scan.starts:,.0f} loops)")
+        scan.actual_total = value
 
 
 # ---------------------------------------------------------------------------------------
@@ -1657,8 +1711,10 @@ class PostgreSQL(Engine):
         """The parallel divisor when the node's estimate is per process, else None.
 
         A node is on a partial path when it is parallel-aware, or when its first input is (a
-        join or aggregate over a parallel scan), below a Gather or Gather Merge. We take the
-        divisor out (estimate x divisor) so that the total compares with actual rows x loops.
+        join over a parallel scan), below a Gather or Gather Merge. An aggregate, and what lies
+        above it below the Gather, is not: each process emits its own groups (a Partial
+        Aggregate without grouping emits one row per process), so its total is est_rows x
+        loops. On a partial path we take the divisor out (estimate x divisor) so that the total compares with actual rows x loops.
         Both facts are memoised on the parsed plan: `role` is asked once a node, in pre-order.
         """
         memo = parsed.__dict__.setdefault("_pg_parallel", {"gather": {}, "partial": {}})
@@ -1686,7 +1742,9 @@ class PostgreSQL(Engine):
                 answer = True
                 break
             inputs = [c for c in current.children if nodes[c].is_input_edge]
-            if not inputs or current.operator in GATHERS:
+            # an aggregate below a Gather (a Partial Aggregate) estimates the groups of one
+            # process's share and each process emits its own: est_rows x loops, no divisor
+            if not inputs or current.operator in GATHERS or current.operator == "Aggregate":
                 answer = False
                 break
             current = nodes[inputs[0]]
