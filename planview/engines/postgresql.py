@@ -69,6 +69,11 @@ NUMERIC_KEYS = {
     *BUFFER_NAMES,
 }
 BOOL_KEYS = {"Parallel Aware", "Async Capable", "Single Copy", "Inner Unique", "Disabled"}
+SINCE_18_KEYS = frozenset({"Disabled", "Index Searches", "Storage", "Maximum Storage"})
+"""Node keys first printed by PostgreSQL 18: the structured formats print "Disabled" on every
+node (text only when true), ANALYZE prints "Index Searches" on index scans and "Storage" on
+Materialize, CTE Scan and WindowAgg (PostgreSQL 18 release notes; on the captures in
+plans/tpch/pg18, absent from every pg15 and pg16 capture)."""
 
 # Keys that become PlanNode fields; every other key goes to `extra`.
 FIELD_KEYS = {
@@ -1146,7 +1151,7 @@ def _build(statements: list[dict], fmt: str) -> ParsedPlan:
     stmts: list[Statement] = []
     version: str | None = None
     has_actuals = False
-    decimal_rows = False
+    since_18 = False
     for stmt_no, stmt in enumerate(statements):
         path = stmt.pop("__path__", f"[{stmt_no}]")
         stmt_line = stmt.pop("__line__", None)
@@ -1166,7 +1171,8 @@ def _build(statements: list[dict], fmt: str) -> ParsedPlan:
                 node.parent_relationship = _text_relationship(nodes[parent], position)
             if node.actual_rows is not None:
                 has_actuals = True
-            decimal_rows = decimal_rows or bool(raw.get("__decimal_rows__"))
+            if not since_18:
+                since_18 = bool(raw.get("__decimal_rows__")) or not SINCE_18_KEYS.isdisjoint(raw)
             kids = raw.get("Plans") or []
             if not isinstance(kids, list):
                 raise PlanParseError("\"Plans\" is not a list", key=f"{key_path}.Plans",
@@ -1193,7 +1199,7 @@ def _build(statements: list[dict], fmt: str) -> ParsedPlan:
                                         "Triggers", "Settings", "Total Runtime")}
         stmts.append(statement)
     notes = []
-    if decimal_rows:
+    if since_18:
         version = "18"
     if not has_actuals:
         notes.append("no actuals: this is EXPLAIN without ANALYZE, so estimates cannot be checked")
