@@ -27,6 +27,7 @@ from ._tree import append_node, check_depth, read_number, typed_relationships
 from .base import Engine
 
 NAME = "mariadb"
+ALIASES = ("maria",)
 FORMATS = ("json", "table")
 SQL_DIALECT = "mysql"
 

@@ -26,6 +26,7 @@ from ._tree import append_node, check_depth, typed_relationships
 from .base import Engine
 
 NAME = "postgresql"
+ALIASES = ("postgres", "pg", "pgsql")
 FORMATS = ("text", "json", "xml", "yaml")
 SQL_DIALECT = "postgres"
 
