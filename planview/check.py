@@ -280,13 +280,24 @@ def _own_of_limit(node: PlanNode, inputs: list[PlanNode], role: Role) -> float:
     return node.log10_ratio - log_ratio(min(count, child.est_total), min(count, child.actual_total))
 
 
+GROUPS_CAPPED_AT = 0.5
+"""A group estimate at least this share of its input's estimate is taken as capped by, and
+scaling with, that input. Below it the count came from the keys' distinct values, which a right
+input estimate would not have changed unless the input really held fewer rows than that count."""
+
+
 def _own_of_group(node: PlanNode, inputs: list[PlanNode], role: Role) -> float:
-    """Between its own log ratio (a group count that ignores the input estimate) and its log
-    ratio minus its input's (one that scales with, or is capped by, the input estimate): the
-    end nearest no error, and none when they lie either side of it, since its own error
-    cannot then be told from its input's."""
+    """A group count far below its input estimate came from the keys' distinct values: its own
+    error is against that count, or against the input's real rows where they are fewer. A
+    count capped by (or scaling with) its input estimate lies between its own log ratio and
+    that ratio minus its input's: the end nearest no error, and none when they lie either side
+    of it, since its own error cannot then be told from its input's."""
     lr = node.log10_ratio
-    carried = _carried(inputs[0], role.cut_inputs)
+    child = inputs[0]
+    if node.est_total is not None and child.est_total is not None and child.actual_total is not None \
+            and node.est_total < GROUPS_CAPPED_AT * child.est_total and child.judged:
+        return log_ratio(min(node.est_total, max(child.actual_total, 1.0)), node.actual_total)
+    carried = _carried(child, role.cut_inputs)
     scaled = lr - carried
     if lr * scaled <= 0:
         if abs(lr) >= 0.3 and abs(carried) >= 0.3:

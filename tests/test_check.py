@@ -125,6 +125,9 @@ def test_rounded_per_start_rows_bounded_from_the_join(pg_servers):
     """Live: PG 15/16 print per-start rows as integers, so an inner scan averaging 0.2 rows a
     loop prints rows=0 loops=5000. The nested loop above emitted 1,000 rows through it, so
     its total is at least 1,000, not 0 (which would invent a 5,000x error)."""
+    if pg_servers.version >= 18:
+        pytest.skip("PostgreSQL 18 prints per-start rows with two decimals (rows=0.20 loops=5000): "
+                    "there is no rounding to repair")
     db = pg_servers.create_database(f"rounding_{pg_servers.source}")
     db.execute("CREATE TABLE marks (id int PRIMARY KEY, v int); "
                "INSERT INTO marks SELECT g, g FROM generate_series(1, 60000) g; ANALYZE marks;")

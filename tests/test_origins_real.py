@@ -287,3 +287,36 @@ def test_partial_aggregate_is_per_process(version):
     node = plan.nodes[partial]
     assert node.est_total == raw[partial]["Plan Rows"] * raw[partial]["Actual Loops"]
     assert partial in _origin_ids(plan)
+
+
+def test_group_count_far_below_its_input_estimate_is_its_own():
+    """Live DuckDB: late deliveries (every 1,000th) all belong to depot_0, so to one manager of
+    twelve. DuckDB estimates the grouping from the managers' distinct count (about a dozen
+    groups) far below its input's estimate (the LIKE default, 40,000 rows): a right input
+    estimate (200 rows, still above a dozen) would not have changed that count, so the grouping's
+    overestimate is its own (the filter correlates with the grouping key), not its input's."""
+    con = duckdb.connect()
+    con.execute("CREATE TABLE depots AS SELECT 'depot_' || i AS depot, 'manager_' || (i % 12) AS manager "
+                "FROM range(40) t(i)")
+    con.execute("CREATE TABLE deliveries AS SELECT i AS delivery_id, 'depot_' || (i % 40) AS depot, "
+                "CASE WHEN i % 1000 = 0 THEN 'late' ELSE 'on time' END AS status FROM range(200000) t(i)")
+    query = ("SELECT d.manager, count(*) FROM deliveries v JOIN depots d USING (depot) "
+             "WHERE v.status LIKE '%late%' GROUP BY d.manager")
+    profile = con.execute("EXPLAIN (ANALYZE, FORMAT json) " + query).fetchall()[0][1]
+    raw = [n for n in _walk_raw(json.loads(profile)["operator"]) if "GROUP_BY" in str(n.get("type", n.get("name")))]
+    assert len(raw) == 1
+    est_groups = float(raw[0]["extra_info"]["Estimated Cardinality"])
+    actual_groups = raw[0]["intermediate_rows"]
+    assert actual_groups == 1 and est_groups >= 10  # the planted correlation, read from the raw profile
+    plan = planview.load(profile)
+    group = next(n for n in plan.nodes if "GROUP" in n.operator)
+    assert group.origin and group.id in [f.node for f in plan.findings]
+    assert round(10 ** abs(group.own_log10_ratio)) == round(est_groups)
+
+
+def _walk_raw(doc):
+    todo = [doc] if isinstance(doc, dict) else list(doc)
+    while todo:
+        node = todo.pop()
+        yield node
+        todo.extend(node.get("children", []))

@@ -110,22 +110,23 @@ def test_capture_reads_node_for_node(path: Path):
     assert plan.engine == ("duckdb" if major is None else "postgresql")
 
 
-PG18_JSON_VERSION = ("planview tells PostgreSQL 18 only from the decimals in TEXT rows; JSON's "
-                     "\"Actual Rows\": 1.00 is a JSON number, so the version stays unknown, though "
-                     "every node carries 18's new \"Disabled\" key")
-
-
-@pytest.mark.parametrize("path", [
-    pytest.param(p, id=p.name, marks=[pytest.mark.xfail(strict=True, reason=PG18_JSON_VERSION)]
-                 if p.suffix == ".json" else [])
-    for p in sorted((TPCH / "pg18").glob("*.*")) if not p.name.endswith(".expected.json")])
+@pytest.mark.parametrize("path", [p for p in sorted((TPCH / "pg18").glob("*.*")) if not p.name.endswith(".expected.json")],
+                         ids=lambda p: p.name)
 def test_pg18_capture_is_read_as_18(path: Path):
     """The captures came from PostgreSQL 18.6 (manifest.json, server_version_num 180006)."""
     assert planview.load(path.read_text(encoding="utf-8")).engine_version == "18"
 
 
+@pytest.mark.parametrize("path", [p for p in sorted((TPCH / "pg15").glob("*.*")) + sorted((TPCH / "pg16").glob("*.*"))
+                                  if not p.name.endswith(".expected.json")],
+                         ids=lambda p: f"{p.parent.name}/{p.name}")
+def test_pg15_and_16_captures_are_not_read_as_18(path: Path):
+    """manifest.json: these came from 15 and 16, which print none of 18's keys nor decimal rows."""
+    assert planview.load(path.read_text(encoding="utf-8")).engine_version != "18"
+
+
 def test_pg18_rows_have_two_decimals_and_some_are_fractional():
-    # also the premise of PG18_JSON_VERSION: "Disabled" is on every node of a PostgreSQL 18 JSON plan
+    # also what tells 18's JSON from 17's: "Disabled" is on every node of a PostgreSQL 18 JSON plan
     """PostgreSQL 18 release notes: EXPLAIN shows fractional row counts; the captures hold such
     rows (else the exactness check above would prove nothing about decimals)."""
     fractional = [r["Actual Rows"] for p in sorted((TPCH / "pg18").glob("*.json"))

@@ -28,6 +28,7 @@ from ._tree import append_node, check_depth, link_inputs, read_number
 from .base import Engine
 
 NAME = "duckdb"
+ALIASES = ("duck",)
 FORMATS = ("json", "text")
 SQL_DIALECT = "duckdb"
 

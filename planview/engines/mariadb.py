@@ -21,12 +21,13 @@ from typing import Any
 from ..check import Role
 from ..errors import PlanParseError
 from ..inert import check_name
-from ..model import Condition, ParsedPlan, PlanNode, Statement
+from ..model import NO_ENTRIES, Condition, ParsedPlan, PlanNode, Statement
 from ._dispatch import dispatch, json_document
 from ._tree import append_node, check_depth, read_number, typed_relationships
 from .base import Engine
 
 NAME = "mariadb"
+ALIASES = ("maria",)
 FORMATS = ("json", "table")
 SQL_DIALECT = "mysql"
 
@@ -46,6 +47,13 @@ FULL_SCANS = {"ALL", "index", "hash_ALL", "hash_index"}
 WHOLE_RELATION_SCANS = {"ALL", "index"}
 NUMERIC_TABLE_KEYS = ("rows", "r_rows", "filtered", "r_filtered", "r_loops", "r_index_rows",
                       "r_icp_filtered", "r_total_filtered", "r_table_time_ms", "r_other_time_ms")
+ACTUAL_TABLE_KEYS = ("r_loops", "r_rows", "r_filtered")
+"""The figures an actual row count is made from: one masked, the count is unknown."""
+MASKED = frozenset({"REPLACED", "#"})
+"""What the engine's test suite prints in place of a figure that varies from run to run
+(mysqltest's --replace_regex and --replace_column): read as unknown, never refused."""
+RANGE_CHECKED = "range-checked-for-each-record"
+"""A nested_loop member wrapping a table whose index is chosen again for each outer row."""
 CONDITION_KEYS = {"attached_condition": "filter", "index_condition": "index_cond",
                   "index_condition_bka": "index_cond", "having_condition": "filter"}
 JOIN_OPERATORS = {"nested_loop", "block-nl-join"}
@@ -90,9 +98,26 @@ class _Builder:
         self.fmt = fmt
         self.nodes: list[PlanNode] = []
         self.has_actuals = False
+        self.masked: dict[str, str] = {}
+        """The keys whose figures the plan printed masked (read as unknown), with the mask."""
 
     def error(self, message: str, key: str) -> PlanParseError:
         return PlanParseError(message, key=key, engine=NAME, fmt=self.fmt)
+
+    def number(self, value: Any, key: str) -> float | None:
+        """A figure, or None where the plan prints it masked (the key is remembered for the note)."""
+        if value.__class__ is str and value.strip() in MASKED:
+            self.masked[key.rsplit(".", 1)[-1]] = value.strip()
+            return None
+        return _number(value, key, self.fmt)
+
+    def timing(self, raw: dict, key: str) -> float | None:
+        """A statement's time in ms: None when absent, masked or not a number (a time is shown,
+        never judged)."""
+        value = raw.get(key.rsplit(".", 1)[-1])
+        if value.__class__ is str and value.strip() in MASKED:
+            return self.number(value, key)
+        return float(value) if isinstance(value, (int, float)) and not isinstance(value, bool) else None
 
     def add(self, node: PlanNode, parent: int | None) -> PlanNode:
         return append_node(self.nodes, node, parent)
@@ -107,7 +132,7 @@ class _Builder:
                 [k for k in raw if k in ("query_block", "nested_loop", "table", "filesort")]) == 1:
             return self.block(raw["query_block"], parent, f"{path}.query_block", depth + 1,
                               relationship, loops)
-        block_loops = _number(raw.get("r_loops"), f"{path}.r_loops", self.fmt)
+        block_loops = self.number(raw.get("r_loops"), f"{path}.r_loops")
         if block_loops is None:
             block_loops = loops
         select_id = raw.get("select_id")
@@ -134,11 +159,7 @@ class _Builder:
             top = self.table(raw["table"], parent, f"{path}.table", depth, relationship)
         elif "message" in raw or "table" not in raw:
             message = raw.get("message") or raw.get("table", {}).get("message") if isinstance(raw.get("table"), dict) else raw.get("message")
-            node = PlanNode(id=0, parent=None, operator="message", label=str(message or "no tables"))
-            node.relation = None
-            node.extra["message"] = message
-            node.parent_relationship = relationship
-            top = self.add(node, parent).id
+            top = self.add(message_node(message, relationship), parent).id
         if top is None:
             raise self.error("a block without tables", path)
         root = self.nodes[top]
@@ -162,8 +183,8 @@ class _Builder:
         node.parent_relationship = relationship
         if key == "filesort":
             node.label = "filesort" + (f" ({inner['sort_key']})" if isinstance(inner.get("sort_key"), str) else "")
-            out = _number(inner.get("r_output_rows"), f"{path}.{key}.r_output_rows", self.fmt)
-            sort_loops = _number(inner.get("r_loops"), f"{path}.{key}.r_loops", self.fmt)
+            out = self.number(inner.get("r_output_rows"), f"{path}.{key}.r_output_rows")
+            sort_loops = self.number(inner.get("r_loops"), f"{path}.{key}.r_loops")
             if out is not None:
                 node.starts = sort_loops or 1.0
                 node.executed = bool(node.starts)
@@ -197,8 +218,8 @@ class _Builder:
         node = PlanNode(id=0, parent=None, operator="union_result",
                         label=f"union result {raw.get('table_name', '')}".strip())
         node.parent_relationship = relationship
-        rows = _number(raw.get("r_rows"), f"{path}.r_rows", self.fmt)
-        loops = _number(raw.get("r_loops"), f"{path}.r_loops", self.fmt)
+        rows = self.number(raw.get("r_rows"), f"{path}.r_rows")
+        loops = self.number(raw.get("r_loops"), f"{path}.r_loops")
         if rows is not None:
             node.starts = loops if loops is not None else 1.0
             node.executed = bool(node.starts)
@@ -226,6 +247,8 @@ class _Builder:
                 entries.append(("table", item["table"], f"{where}.table"))
             elif "block-nl-join" in item:
                 entries.append(("bnl", item["block-nl-join"], f"{where}.block-nl-join"))
+            elif RANGE_CHECKED in item:
+                entries.append(("range_checked", item[RANGE_CHECKED], f"{where}.{RANGE_CHECKED}"))
             elif "duplicates_removal" in item:
                 inner = item["duplicates_removal"]
                 members = inner if isinstance(inner, list) else [inner]
@@ -281,13 +304,13 @@ class _Builder:
             per_loop_est = inner.est_rows
             est = est * per_loop_est if est is not None and per_loop_est is not None else None
             if kind == "bnl" and est is not None:
-                join_filtered = _number(raw.get("filtered"), "filtered", self.fmt)
+                join_filtered = self.number(raw.get("filtered"), "filtered")
                 if join_filtered is not None:
                     est *= join_filtered / 100.0
             if kind == "bnl":
-                loops = _number(raw.get("r_loops"), "r_loops", self.fmt)
-                r_filtered = _number(raw.get("r_filtered"), "r_filtered", self.fmt)
-                effective = _number(raw.get("r_effective_rows"), "r_effective_rows", self.fmt)
+                loops = self.number(raw.get("r_loops"), "r_loops")
+                r_filtered = self.number(raw.get("r_filtered"), "r_filtered")
+                effective = self.number(raw.get("r_effective_rows"), "r_effective_rows")
                 # every buffered outer row meets every inner row read; r_filtered is the
                 # share of those pairs that passed the join condition
                 scanned = effective if effective is not None else inner.actual_rows
@@ -301,7 +324,7 @@ class _Builder:
                     join.conditions.append(Condition("join_filter", raw["attached_condition"],
                                                      "attached_condition"))
                 if r_filtered is not None:
-                    join.extra["selectivity"] = {"filtered": _number(raw.get("filtered"), "filtered", self.fmt),
+                    join.extra["selectivity"] = {"filtered": self.number(raw.get("filtered"), "filtered"),
                                                  "r_filtered": r_filtered,
                                                  "condition": raw.get("attached_condition")}
             else:
@@ -328,9 +351,15 @@ class _Builder:
     def member(self, kind: str, raw: Any, parent, path, depth, relationship) -> int:
         if kind == "table":
             return self.table(raw, parent, path, depth, relationship)
+        wrapper = RANGE_CHECKED if kind == "range_checked" else "block-nl-join"
         if not isinstance(raw, dict) or not isinstance(raw.get("table"), dict):
-            raise self.error("\"block-nl-join\" without a \"table\"", path)
-        return self.table(raw["table"], parent, f"{path}.table", depth, relationship)
+            raise self.error(f"\"{wrapper}\" without a \"table\"", path)
+        table = self.table(raw["table"], parent, f"{path}.table", depth, relationship)
+        if kind == "range_checked":
+            node = self.nodes[table]
+            node.label += " (range checked for each record)"
+            node.extra[RANGE_CHECKED] = {k: v for k, v in raw.items() if k != "table"}
+        return table
 
     def table(self, raw: Any, parent, path, depth, relationship) -> int:
         if not isinstance(raw, dict):
@@ -345,8 +374,15 @@ class _Builder:
             raise self.error("missing or invalid \"access_type\"", f"{path}.access_type")
         node = PlanNode(id=0, parent=None, operator=access, label="")
         node.parent_relationship = relationship
-        numbers = {k: _number(raw.get(k), f"{path}.{k}", self.fmt) for k in NUMERIC_TABLE_KEYS}
+        numbers = {k: self.number(raw.get(k), f"{path}.{k}") for k in NUMERIC_TABLE_KEYS}
         fill_table(node, name, raw, numbers)
+        masked = [k for k in ACTUAL_TABLE_KEYS if raw.get(k).__class__ is str and raw[k].strip() in MASKED]
+        if masked:
+            node.executed = node.actual_rows = node.starts = None
+            node.rows_removed = NO_ENTRIES
+            node.extra.pop("never_scanned", None)
+            node.derived.append(f"{', '.join(masked)} masked where the plan was printed: the actual "
+                                "rows are unknown")
         if node.actual_rows is not None or "r_loops" in raw:
             self.has_actuals = True
         node = self.add(node, parent)
@@ -443,12 +479,10 @@ def _parse_json(text: str) -> ParsedPlan:
         raise PlanParseError("query blocks nested too deeply; refused", engine=NAME, fmt="json") from None
     statement = Statement(root=root or 0)
     block = doc["query_block"]
-    total = block.get("r_total_time_ms")
-    if isinstance(total, (int, float)) and not isinstance(total, bool):
-        statement.execution_ms = float(total)
+    statement.execution_ms = builder.timing(block, "query_block.r_total_time_ms")
     optimization = doc.get("query_optimization")
-    if isinstance(optimization, dict) and isinstance(optimization.get("r_total_time_ms"), (int, float)):
-        statement.planning_ms = float(optimization["r_total_time_ms"])
+    if isinstance(optimization, dict):
+        statement.planning_ms = builder.timing(optimization, "query_optimization.r_total_time_ms")
     for node in builder.nodes:
         node.extra.pop("est_output_total", None)
     notes = []
@@ -458,6 +492,8 @@ def _parse_json(text: str) -> ParsedPlan:
     if not builder.has_actuals:
         notes.append("no actuals: this is EXPLAIN FORMAT=JSON; run ANALYZE FORMAT=JSON to "
                      "compare estimates with what really happened")
+    if builder.masked:
+        notes.append(masked_note(builder.masked))
     typed_relationships(builder.nodes)
     return ParsedPlan(engine=NAME, format="json", nodes=builder.nodes, statements=[statement],
                       engine_version=version, has_actuals=builder.has_actuals, notes=notes)
@@ -639,6 +675,10 @@ def _table_node(builder: _Builder, raw, numbers, extra, number, parent, relation
     access = raw.get("access_type")
     if not access or access == "NULL":
         access = "NULL"
+        if raw.get("table_name") in (None, "", "NULL"):
+            node = message_node(extra or None, relationship)
+            node.extra["line"] = number
+            return builder.add(node, parent)
     node = PlanNode(id=0, parent=None, operator=access, label="")
     node.parent_relationship = relationship
     fill_table(node, raw.get("table_name"), raw, numbers)
@@ -655,6 +695,22 @@ def _table_node(builder: _Builder, raw, numbers, extra, number, parent, relation
 # ---------------------------------------------------------------------------------------
 # Values
 # ---------------------------------------------------------------------------------------
+
+def message_node(message: Any, relationship: str | None) -> PlanNode:
+    """A statement-level row without a table ("Impossible WHERE", "Deleting all rows"): the
+    message the engine printed, no relation."""
+    node = PlanNode(id=0, parent=None, operator="message", label=str(message or "no tables"))
+    node.relation = None
+    node.extra["message"] = message
+    node.parent_relationship = relationship
+    return node
+
+
+def masked_note(masked: dict[str, str]) -> str:
+    shown = " or ".join(f"'{m}'" for m in sorted(set(masked.values())))
+    return (f"masked figures: the plan prints {shown} in place of {', '.join(sorted(masked))} (as the "
+            "engine's test suite does); those figures are read as unknown and nothing is judged on them")
+
 
 def _number(value: Any, key: str, fmt: str) -> float | None:
     return read_number(value, key=key, engine=NAME, fmt=fmt)

@@ -61,14 +61,22 @@ CONDITION_PATTERNS = (
     (re.compile(r" over \((.+)\)$"), "index_cond"),
 )
 
+_FIGURE = r"(?:\d+(?:\.\d*)?|\.\d+)(?:e[+-]?\d+)?"
 _METRICS = re.compile(
-    r"\s*\((?P<cost>cost=(?P<c1>[\d.e+-]+)(?:\.\.(?P<c2>[\d.e+-]+))? )?rows=(?P<rows>[\d.e+-]+)\)"
+    rf"\s*\((?P<cost>cost=(?P<c1>{_FIGURE})(?:\.\.(?P<c2>{_FIGURE}))? )?rows=(?P<rows>[\d.e+-]+)\)"
 )
+"""``(cost=C rows=R)``, or ``(cost=S..T rows=R)`` where MySQL prints a start-up cost apart (a
+materialized table's scan); a cost is one number, so ``2.5..2.5`` is split, not misread."""
 _ACTUAL = re.compile(
     r"\s*\(actual (?:time=(?P<t1>[\d.e+-]+)\.\.(?P<t2>[\d.e+-]+) )?rows=(?P<rows>[\d.e+-]+) "
     r"loops=(?P<loops>[\d.e+-]+)\)"
 )
 _NEVER = re.compile(r"\s*\(never executed\)")
+_MASKED = re.compile(r"\s+\(\.\.\.\)\s*$")
+"""What the engine's test suite prints in place of a line's figures (mysqltest --replace_regex),
+read as unknown."""
+MASKED_NOTE = ("masked figures: the plan prints '(...)' in place of its estimates and actuals (as the "
+               "engine's test suite does); the tree is shown and nothing is judged on them")
 _NUMBER = re.compile(r"^\d+(\.\d+)?(e[+-]?\d+)?$|^\d*\.\d+(e[+-]?\d+)?$")
 
 
@@ -87,7 +95,8 @@ def detect(text: str) -> tuple[str, float] | None:
             return "json", 0.8  # the classic JSON (v1): read only to say what to run instead
         return None
     if re.search(r"(^|\n)[|\s]*(EXPLAIN: )?-> .+\((cost=[\d.e+-]+(\.\.[\d.e+-]+)? )?rows=[\d.e+-]+\)", head) \
-            or re.search(r"(^|\n)[|\s]*(EXPLAIN: )?-> .+\(actual time=", head):
+            or re.search(r"(^|\n)[|\s]*(EXPLAIN: )?-> .+\(actual time=", head) \
+            or re.search(r"(^|\n)[|\s]*(EXPLAIN: )?-> \S.*\S\s+\(\.\.\.\)[ \t]*(\n|$)", head):
         if re.search(r"width=\d+\)", head):
             return None  # PostgreSQL prints width=
         return "tree", 0.92
@@ -216,15 +225,18 @@ def _parse_tree(text: str) -> ParsedPlan:
             current = nodes[todo.pop()]
             current.statement = i
             todo.extend(current.children)
-    notes = [] if has_actuals else [
-        "no actuals: this is EXPLAIN FORMAT=TREE; run EXPLAIN ANALYZE to compare estimates with "
-        "what really happened"]
+    masked = any(node.extra.get("masked") for node in nodes)
+    notes = [MASKED_NOTE] if masked else []
+    if not has_actuals and not masked:
+        notes.append("no actuals: this is EXPLAIN FORMAT=TREE; run EXPLAIN ANALYZE to compare "
+                     "estimates with what really happened")
     return ParsedPlan(engine=NAME, format="tree", nodes=nodes, statements=statements,
                       has_actuals=has_actuals, notes=notes)
 
 
 def _heading(content: str) -> dict[str, Any] | None:
-    if _METRICS.search(content) or _ACTUAL.search(content) or _NEVER.search(content):
+    if _METRICS.search(content) or _ACTUAL.search(content) or _NEVER.search(content) \
+            or _MASKED.search(content):
         return None
     text = content.strip()
     if text in HASH_HEADINGS:
@@ -236,6 +248,11 @@ def _heading(content: str) -> dict[str, Any] | None:
 
 def _read_metrics(node: PlanNode, content: str, line: int) -> str:
     text = content
+    masked = _MASKED.search(text)
+    if masked:
+        node.extra["masked"] = True
+        node.derived.append("figures masked as '(...)' where the plan was printed: unknown")
+        text = text[:masked.start()]
     actual = _ACTUAL.search(text)
     if actual:
         node.actual_rows = _readable(actual.group("rows"), line, "rows")

@@ -26,6 +26,7 @@ from ._tree import append_node, check_depth, typed_relationships
 from .base import Engine
 
 NAME = "postgresql"
+ALIASES = ("postgres", "pg", "pgsql")
 FORMATS = ("text", "json", "xml", "yaml")
 SQL_DIALECT = "postgres"
 
@@ -69,6 +70,11 @@ NUMERIC_KEYS = {
     *BUFFER_NAMES,
 }
 BOOL_KEYS = {"Parallel Aware", "Async Capable", "Single Copy", "Inner Unique", "Disabled"}
+SINCE_18_KEYS = frozenset({"Disabled", "Index Searches", "Storage", "Maximum Storage"})
+"""Node keys first printed by PostgreSQL 18: the structured formats print "Disabled" on every
+node (text only when true), ANALYZE prints "Index Searches" on index scans and "Storage" on
+Materialize, CTE Scan and WindowAgg (PostgreSQL 18 release notes; on the captures in
+plans/tpch/pg18, absent from every pg15 and pg16 capture)."""
 
 # Keys that become PlanNode fields; every other key goes to `extra`.
 FIELD_KEYS = {
@@ -260,8 +266,43 @@ _PSQL_RULE = re.compile(r"^\s*-{3,}\s*$")
 _PSQL_FOOTER = re.compile(r"^\s*\(\d+ rows?\)\s*$", re.M)
 _PSQL_PLUS = re.compile(r"\s*\+$")
 _TEXT_NODE_HINT = re.compile(
-    r"\(cost=\d[\d.]*\.\.\d[\d.]* rows=\d+ width=\d+\)|\(actual (time=[\d.]+\.\.[\d.]+ )?rows=[\d.]+ loops=\d+\)|\(never executed\)"
+    r"\(cost=\d[\d.]*\.\.\d[\d.]* rows=\d+ width=\d+\)"
+    r"|\(actual (time=(?:[\d.]+|N)\.\.(?:[\d.]+|N) )?rows=(?:[\d.]+|N) loops=(?:\d+|N)\)|\(never executed\)"
 )
+
+
+def _alternatives(names) -> str:
+    return "|".join(re.escape(n) for n in sorted(names, key=len, reverse=True))
+
+
+_OPERATOR_LABEL = re.compile(
+    r"^(?:Async )?(?:Parallel )?(?:Partial |Finalize )?(?:"
+    r"(?:Insert|Update|Delete|Merge) on \S.*"
+    r"|Nested Loop(?: (?:Left|Right Semi|Right Anti|Right|Full|Semi|Anti) Join)?"
+    r"|(?:Hash|Merge)(?: (?:Left|Right Semi|Right Anti|Right|Full|Semi|Anti))? Join"
+    rf"|(?:{_alternatives(SCAN_TYPES)})(?: \(\S[^)]*\))?(?: Backward)?(?: (?:using|on) \S.*)?"
+    rf"|(?:{_alternatives(SETOP_STRATEGY)}) (?:Intersect|Except)(?: All)?"
+    rf"|(?:{_alternatives(TEXT_TYPE_SET - SCAN_TYPES - set(SETOP_STRATEGY))})"
+    r")$")
+"""An operator line's label as PostgreSQL prints it, figures aside."""
+_COSTS_OFF_LINES = 400
+
+
+def _figureless_text(lines: list[str]) -> bool:
+    """A text plan printed without any figures (EXPLAIN (COSTS OFF)): every operator line is an
+    operator label PostgreSQL prints, children under '->  ', detail lines indented below them."""
+    shown = [x for x in lines[:_COSTS_OFF_LINES] if x.strip()]
+    if not shown or not _OPERATOR_LABEL.match(shown[0]):
+        return False
+    for line in shown[1:]:
+        content = line.lstrip(" ")
+        if content.startswith("->"):
+            if not content.startswith("->  ") or not _OPERATOR_LABEL.match(content[4:].lstrip(" ")):
+                return False
+        elif line == content and not (content.split(":", 1)[0] in STATEMENT_TEXT_KEYS
+                                      or _OPERATOR_LABEL.match(content)):
+            return False
+    return True
 
 
 def clean_paste(text: str) -> tuple[list[str], list[int]]:
@@ -309,6 +350,8 @@ def detect(text: str) -> tuple[str, float] | None:
         first = body.split("\n", 1)[0]
         if "width=" in body or not first.startswith("->"):
             return "text", 0.9 if "width=" in body else 0.6
+    if _figureless_text(body.split("\n", _COSTS_OFF_LINES)):
+        return "text", 0.5
     return None
 
 
@@ -608,12 +651,26 @@ def _xml_to_dict(top) -> Any:
 # The text format into the same dicts
 # ---------------------------------------------------------------------------------------
 
-_NUM = r"\d+(?:\.\d+)?"
+MASKED = "N"
+"""What PostgreSQL's regression suites print in place of a figure that varies from run to run
+(``loops=N``, ``Memory Usage: NkB``, ``Workers Launched: N``): read as unknown."""
+_NUM = rf"(?:\d+(?:\.\d+)?|{MASKED})"
+_INT = rf"(?:\d+|{MASKED})"
 _FIGURES = re.compile(
-    rf"(?:  \(cost=(?P<sc>{_NUM})\.\.(?P<tc>{_NUM}) rows=(?P<rows>\d+) width=(?P<width>\d+)\))?"
-    rf"(?: ?\((?:actual (?:time=(?P<ast>{_NUM})\.\.(?P<att>{_NUM}) )?rows=(?P<ar>{_NUM}) loops=(?P<loops>\d+)"
+    rf"(?:  \(cost=(?P<sc>{_NUM})\.\.(?P<tc>{_NUM}) rows=(?P<rows>{_INT}) width=(?P<width>{_INT})\))?"
+    rf"(?: ?\((?:actual (?:time=(?P<ast>{_NUM})\.\.(?P<att>{_NUM}) )?rows=(?P<ar>{_NUM}) loops=(?P<loops>{_INT})"
     r"|(?P<never>never executed))\))?\s*$"
 )
+MASKED_NOTE = ("masked figures: the plan prints 'N' in place of some numbers (as the engine's regression "
+               "suites do); those figures are read as unknown and nothing is judged on them")
+
+
+def _figure(text: str, key: str, node: dict) -> float | None:
+    """A printed figure, or None where it is masked (the key is noted on the node)."""
+    if text == MASKED:
+        node.setdefault("__masked__", []).append(key)
+        return None
+    return float(text)
 
 
 class _LineMatch:
@@ -653,7 +710,7 @@ _NODE_LINE = _NodeLine
 _HEADER_LINE = re.compile(r"^(?:(?P<init>InitPlan \d+)(?: \(returns .*\))?|(?P<sub>SubPlan \d+)|CTE (?P<cte>.+))$")
 _WORKER_LINE = re.compile(r"^Worker (?P<n>\d+):\s+(?P<rest>.*)$")
 _ACTUAL_PART = re.compile(
-    rf"actual (?:time=(?P<ast>{_NUM})\.\.(?P<att>{_NUM}) )?rows=(?P<ar>{_NUM}) loops=(?P<loops>\d+)")
+    rf"actual (?:time=(?P<ast>{_NUM})\.\.(?P<att>{_NUM}) )?rows=(?P<ar>{_NUM}) loops=(?P<loops>{_INT})")
 _IDENT = r'(?:"(?:[^"]|"")+"|[^\s".]+)'
 _TARGET = re.compile(rf"^(?P<name>{_IDENT}(?:\.{_IDENT})*)(?: (?P<alias>{_IDENT}))?$")
 
@@ -789,22 +846,22 @@ def _text_node(text: str, lineno: int) -> dict:
     node["__line__"] = lineno
     node["__label__"] = label
     if rows is not None:
-        node["Startup Cost"] = float(sc)
-        node["Total Cost"] = float(tc)
-        node["Plan Rows"] = float(rows)
-        node["Plan Width"] = float(width)
+        node["Startup Cost"] = _figure(sc, "Startup Cost", node)
+        node["Total Cost"] = _figure(tc, "Total Cost", node)
+        node["Plan Rows"] = _figure(rows, "Plan Rows", node)
+        node["Plan Width"] = _figure(width, "Plan Width", node)
     if never:
         node["Actual Rows"] = 0.0
         node["Actual Loops"] = 0.0
         node["__never__"] = True
     elif ar is not None:
-        node["Actual Rows"] = float(ar)
-        node["Actual Loops"] = float(loops)
+        node["Actual Rows"] = _figure(ar, "Actual Rows", node)
+        node["Actual Loops"] = _figure(loops, "Actual Loops", node)
         if "." in ar:
             node["__decimal_rows__"] = True
         if ast is not None:
-            node["Actual Startup Time"] = float(ast)
-            node["Actual Total Time"] = float(att)
+            node["Actual Startup Time"] = _figure(ast, "Actual Startup Time", node)
+            node["Actual Total Time"] = _figure(att, "Actual Total Time", node)
     return node
 
 
@@ -958,11 +1015,11 @@ def _detail_line(frame: _Frame, content: str, lineno: int) -> None:
         entry: dict[str, Any] = {"Worker Number": float(worker.group("n"))}
         actual = _ACTUAL_PART.search(worker.group("rest"))
         if actual:
-            entry["Actual Rows"] = float(actual.group("ar"))
-            entry["Actual Loops"] = float(actual.group("loops"))
+            entry["Actual Rows"] = _figure(actual.group("ar"), "Actual Rows", node)
+            entry["Actual Loops"] = _figure(actual.group("loops"), "Actual Loops", node)
             if actual.group("ast"):
-                entry["Actual Startup Time"] = float(actual.group("ast"))
-                entry["Actual Total Time"] = float(actual.group("att"))
+                entry["Actual Startup Time"] = _figure(actual.group("ast"), "Actual Startup Time", node)
+                entry["Actual Total Time"] = _figure(actual.group("att"), "Actual Total Time", node)
         elif worker.group("rest").strip() != "never executed":
             entry["__text__"] = worker.group("rest")
         node.setdefault("Workers", []).append(entry)
@@ -983,6 +1040,9 @@ def _detail_line(frame: _Frame, content: str, lineno: int) -> None:
         _parse_buffers(value, node)
     elif key.startswith(ROWS_REMOVED_PREFIX) or key in ("Workers Planned", "Workers Launched",
                                                          "Index Searches"):
+        if value == MASKED:
+            node[key] = _figure(value, key, node)
+            return
         try:
             node[key] = float(value)
         except ValueError:
@@ -1200,7 +1260,8 @@ def _build(statements: list[dict], fmt: str) -> ParsedPlan:
     stmts: list[Statement] = []
     version: str | None = None
     has_actuals = False
-    decimal_rows = False
+    since_18 = False
+    has_estimates = masked = False
     for stmt_no, stmt in enumerate(statements):
         path = stmt.pop("__path__", f"[{stmt_no}]")
         stmt_line = stmt.pop("__line__", None)
@@ -1218,9 +1279,14 @@ def _build(statements: list[dict], fmt: str) -> ParsedPlan:
                                parent)
             if parent is not None and node.parent_relationship is None:
                 node.parent_relationship = _text_relationship(nodes[parent], position)
-            if node.actual_rows is not None:
-                has_actuals = True
-            decimal_rows = decimal_rows or bool(raw.get("__decimal_rows__"))
+            if not has_actuals:
+                has_actuals = "Actual Loops" in raw or "Actual Rows" in raw
+            if not has_estimates:
+                has_estimates = "Plan Rows" in raw
+            if not masked:
+                masked = "__masked__" in raw
+            if not since_18:
+                since_18 = bool(raw.get("__decimal_rows__")) or not SINCE_18_KEYS.isdisjoint(raw)
             kids = raw.get("Plans") or []
             if not isinstance(kids, list):
                 raise PlanParseError("\"Plans\" is not a list", key=f"{key_path}.Plans",
@@ -1247,10 +1313,18 @@ def _build(statements: list[dict], fmt: str) -> ParsedPlan:
                                         "Triggers", "Settings", "Total Runtime")}
         stmts.append(statement)
     notes = []
-    if decimal_rows:
+    if since_18:
         version = "18"
-    if not has_actuals:
+    if not has_estimates and not has_actuals:
+        notes.append("no estimates and no actuals: this is EXPLAIN (COSTS OFF), so the tree is "
+                     "shown and nothing can be judged")
+    elif not has_estimates:
+        notes.append("no estimates: the plan was printed with COSTS OFF, so actual rows cannot be "
+                     "checked against anything")
+    elif not has_actuals:
         notes.append("no actuals: this is EXPLAIN without ANALYZE, so estimates cannot be checked")
+    if masked:
+        notes.append(MASKED_NOTE)
     typed_relationships(nodes)
     return ParsedPlan(engine=NAME, format=fmt, nodes=nodes, statements=stmts,
                       engine_version=version, has_actuals=has_actuals, notes=notes)
@@ -1362,7 +1436,12 @@ def _node_from_dict(raw: dict, node_id: int, parent: int | None, depth: int, stm
         node.join_type = "Inner"
     if node.operator == "Aggregate" and node.partial_mode is None:
         node.partial_mode = "Simple"
-    if node.starts is not None or node.actual_rows is not None:
+    masked = raw.get("__masked__")
+    if masked and ("Actual Rows" in masked or "Actual Loops" in masked):
+        node.executed = None  # it ran, but its actual total cannot be known
+        node.derived.append(f"{' and '.join(k.lower() for k in masked if k.startswith('Actual'))} "
+                            "masked as 'N' where the plan was printed: the actual total is unknown")
+    elif node.starts is not None or node.actual_rows is not None:
         if node.starts is None:
             node.starts = 1.0
         node.executed = bool(node.starts) and "__never__" not in raw
