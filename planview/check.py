@@ -424,6 +424,10 @@ def _own_errors_and_origins(nodes: list[PlanNode], roles: list[Role], threshold:
         role = roles[node.id]
         if node.judged and node.log10_ratio is not None:
             node.own_log10_ratio = _own_error(node, role, nodes, roles)
+            if node.own_log10_ratio is not None and not abs(node.own_log10_ratio) <= MAX_LOG10_ERROR:
+                node.own_log10_ratio = None  # figures near the count limit: no error can be told
+                node.derived.append("own error not computed: its figures and its inputs' are too "
+                                    "far apart to compare")
             finding = _origin(node, role, threshold) if node.own_log10_ratio is not None else None
             if finding is not None:
                 findings.append(finding)
@@ -433,6 +437,11 @@ def _own_errors_and_origins(nodes: list[PlanNode], roles: list[Role], threshold:
             _collect(node, nodes, roles, below, threshold)
     findings.reverse()
     return findings
+
+
+MAX_LOG10_ERROR = 300.0
+"""The largest own error (as a power of ten) the check reports; beyond it, or NaN, the figures
+are damage, and a q-error would overflow a float."""
 
 
 def _origin(node: PlanNode, role: Role, threshold: float) -> Finding | None:

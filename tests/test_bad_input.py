@@ -390,3 +390,30 @@ def test_each_format_has_its_own_limit(monkeypatch):
         planview.load(REAL_JSON)
     assert "limit for json" in str(err.value)
     planview.load(REAL_TEXT)  # the text limit is its own
+
+
+def test_own_error_beyond_a_float_is_not_computed():
+    """A hostile plan whose figures sit at the count limit (1e100, PostgreSQL's own clamp) in
+    opposite directions: the join's own error would be 10^400, past a float. It reads, the join
+    says why it has no own error, and no q-error overflows."""
+    def scan(name: str, est: float, actual: float, rel: str) -> dict:
+        return {"Node Type": "Seq Scan", "Parent Relationship": rel, "Relation Name": name, "Alias": name,
+                "Startup Cost": 0, "Total Cost": 1, "Plan Rows": est, "Plan Width": 4,
+                "Actual Startup Time": 0, "Actual Total Time": 1, "Actual Rows": actual, "Actual Loops": 1}
+
+    inner = {"Node Type": "Hash", "Parent Relationship": "Inner", "Startup Cost": 0, "Total Cost": 1,
+             "Plan Rows": 1, "Plan Width": 4, "Actual Startup Time": 0, "Actual Total Time": 1,
+             "Actual Rows": 1e100, "Actual Loops": 1, "Plans": [scan("b", 1, 1e100, "Outer")]}
+    join = {"Node Type": "Hash Join", "Join Type": "Inner", "Parent Relationship": "Outer",
+            "Startup Cost": 0, "Total Cost": 1, "Plan Rows": 1e100, "Plan Width": 4,
+            "Actual Startup Time": 0, "Actual Total Time": 1, "Actual Rows": 0, "Actual Loops": 1e100,
+            "Plans": [scan("a", 1, 1e100, "Outer"), inner]}
+    root = {"Node Type": "Nested Loop", "Join Type": "Inner", "Startup Cost": 0, "Total Cost": 1,
+            "Plan Rows": 1, "Plan Width": 4, "Actual Startup Time": 0, "Actual Total Time": 1,
+            "Actual Rows": 0, "Actual Loops": 1,
+            "Plans": [scan("c", 1, 1, "Outer"), join | {"Parent Relationship": "Inner"}]}
+    plan = planview.load(json.dumps([{"Plan": root}]))
+    plan.to_text(), plan.to_json(), plan.to_markdown()
+    assert all(f.own_q_error < float("inf") for f in plan.findings)
+    hash_join = next(n for n in plan.nodes if n.operator == "Hash Join")
+    assert hash_join.own_log10_ratio is None or abs(hash_join.own_log10_ratio) <= 300
