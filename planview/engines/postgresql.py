@@ -1796,7 +1796,9 @@ class PostgreSQL(Engine):
         loops. On a partial path we take the divisor out (estimate x divisor) so that the total compares with actual rows x loops.
         Both facts are memoised on the parsed plan: `role` is asked once a node, in pre-order.
         """
-        memo = parsed.__dict__.setdefault("_pg_parallel", {"gather": {}, "partial": {}})
+        memo = parsed.__dict__.get("_pg_parallel")
+        if memo is None:
+            memo = parsed.__dict__["_pg_parallel"] = {"gather": {}, "partial": {}}
         gathers: dict[int, int | None] = memo["gather"]
         parent = nodes[node.parent] if node.parent is not None else None
         if parent is None:
