@@ -1274,7 +1274,8 @@ def _build(statements: list[dict], fmt: str) -> ParsedPlan:
         todo: list[tuple[dict, int | None, int, str, int]] = [(plan, None, 0, f"{path}.Plan", 0)]
         while todo:
             raw, parent, depth, key_path, position = todo.pop()
-            check_depth(depth, key=key_path, engine=NAME, fmt=fmt)
+            if depth > MAX_DEPTH:
+                check_depth(depth, key=key_path, engine=NAME, fmt=fmt)
             node = append_node(nodes, _node_from_dict(raw, len(nodes), parent, depth, stmt_no, key_path, fmt),
                                parent)
             if parent is not None and node.parent_relationship is None:
@@ -1395,6 +1396,7 @@ def _node_from_dict(raw: dict, node_id: int, parent: int | None, depth: int, stm
                     statement=stmt_no, depth=depth)
     extra = node.extra
     actions = _ACTIONS
+    intern = sys.intern
     for key, value in raw.items():
         action = actions.get(key)
         if action is None:
@@ -1408,15 +1410,17 @@ def _node_from_dict(raw: dict, node_id: int, parent: int | None, depth: int, stm
                 extra[_intern(key)] = value
             continue
         code, attr = action
-        if code == 0:  # a text field: names repeat across nodes, so one copy of each is kept
-            if value is not None:
-                setattr(node, attr, _intern(value) if value.__class__ is str
-                        else _text(value, key, path, fmt, line))
-        elif code == 1:  # a number field
+        if code == 1:  # a number field (the most frequent key)
             if (value.__class__ is float or value.__class__ is int) and 0 <= value <= MAX_COUNT:
                 setattr(node, attr, float(value))
             else:
                 setattr(node, attr, _num(value, key, path, fmt, line))
+        elif code == 0:  # a text field: names repeat across nodes, so one copy of each is kept
+            if value is not None:
+                if value.__class__ is str:
+                    setattr(node, attr, intern(value) if len(value) <= 64 else value)
+                else:
+                    setattr(node, attr, _text(value, key, path, fmt, line))
         elif code == 3:  # a condition
             if value is not None and value != "":
                 text = value if value.__class__ is str else _text(value, key, path, fmt, line)
@@ -1431,7 +1435,10 @@ def _node_from_dict(raw: dict, node_id: int, parent: int | None, depth: int, stm
         order = {k: i for i, k in enumerate(CONDITION_KEYS)}
         node.conditions.sort(key=lambda c: order[c.key])
     aware = raw.get("Parallel Aware")
-    node.parallel_aware = bool(_bool(aware, "Parallel Aware", path, fmt, line)) if aware is not None else False
+    if aware is None or aware.__class__ is bool:
+        node.parallel_aware = aware is True
+    else:
+        node.parallel_aware = bool(_bool(aware, "Parallel Aware", path, fmt, line))
     if node.operator in ("Nested Loop", "Hash Join", "Merge Join") and node.join_type is None:
         node.join_type = "Inner"
     if node.operator == "Aggregate" and node.partial_mode is None:
