@@ -732,6 +732,7 @@ def _read_text(lines: list[str], numbers: list[int]) -> list[dict]:
     stmt: dict | None = None
     stack: list[_Frame] = []
     stmt_last_key: str | None = None
+    labels: dict[str, dict[str, Any]] = {}
     for index, line in enumerate(lines):
         if not line.strip():
             continue
@@ -749,7 +750,7 @@ def _read_text(lines: list[str], numbers: list[int]) -> list[dict]:
                 raise PlanParseError("child operator is indented less than its parent",
                                      line=lineno, engine=NAME, fmt="text")
             top = stack[-1]
-            node = _text_node(content[2:].lstrip(" "), lineno)
+            node = _text_node(content[2:].lstrip(" "), lineno, labels)
             if top.header is not None:
                 kind, name = top.header
                 node["Parent Relationship"] = kind
@@ -776,7 +777,7 @@ def _read_text(lines: list[str], numbers: list[int]) -> list[dict]:
                 # a detail line pushed to column 0 (unusual, but seen in hand-edited pastes)
                 _detail_line(stack[0], content, lineno)
                 continue
-            stmt = {"Plan": _text_node(content, lineno), "__path__": f"statement {len(statements) + 1}",
+            stmt = {"Plan": _text_node(content, lineno, labels), "__path__": f"statement {len(statements) + 1}",
                     "__line__": lineno}
             statements.append(stmt)
             stack = [_Frame(stmt["Plan"], 2)]
@@ -827,7 +828,9 @@ def _next_is_arrow(lines: list[str], index: int, col: int) -> bool:
 _BAD_FIGURES = re.compile(r"\((cost|actual)[ =]|\bloops=")
 
 
-def _text_node(text: str, lineno: int) -> dict:
+def _text_node(text: str, lineno: int, labels: dict[str, dict[str, Any]]) -> dict:
+    """The keys of one operator line. `labels` holds the keys of each label already read in
+    this plan (Hash, Sort, Hash Join repeat on many lines), which the node gets a copy of."""
     match = _NODE_LINE.match(text)
     label = match.label.strip()
     figures = match.figures
@@ -842,10 +845,18 @@ def _text_node(text: str, lineno: int) -> dict:
         raise PlanParseError(f"cannot read the figures {shown!r} (expected cost=S..T rows=N "
                              "width=W and actual time=A..B rows=N loops=L, all non-negative)",
                              line=lineno, engine=NAME, fmt="text")
-    node: dict[str, Any] = _label_to_keys(label, lineno)
+    keys = labels.get(label)
+    if keys is None:
+        keys = labels[label] = _label_to_keys(label, lineno)
+    node: dict[str, Any] = dict(keys)
     node["__line__"] = lineno
     node["__label__"] = label
-    if rows is not None:
+    if rows is not None and MASKED not in (sc, tc, rows, width):
+        node["Startup Cost"] = float(sc)
+        node["Total Cost"] = float(tc)
+        node["Plan Rows"] = float(rows)
+        node["Plan Width"] = float(width)
+    elif rows is not None:
         node["Startup Cost"] = _figure(sc, "Startup Cost", node)
         node["Total Cost"] = _figure(tc, "Total Cost", node)
         node["Plan Rows"] = _figure(rows, "Plan Rows", node)
@@ -882,6 +893,9 @@ _JOIN_LABEL = re.compile(
     r"^(Nested Loop|Hash|Merge)(?: (Left|Right Semi|Right Anti|Right|Full|Semi|Anti))?(?: Join)?$")
 
 
+_MODIFY_PREFIXES = tuple(op + " on " for op in MODIFY_OPS)
+
+
 def _label_to_keys(label: str, lineno: int) -> dict[str, Any]:
     """The JSON keys a text label stands for ("Parallel Hash Left Join" -> Hash Join, Left)."""
     keys: dict[str, Any] = {}
@@ -898,12 +912,13 @@ def _label_to_keys(label: str, lineno: int) -> dict[str, Any]:
             keys["Partial Mode"] = mode.strip()
             rest = rest[len(mode):]
             break
-    for op in MODIFY_OPS:
-        if rest.startswith(op + " on "):
-            keys["Node Type"] = "ModifyTable"
-            keys["Operation"] = op
-            _target(keys, rest[len(op) + 4:], "relation")
-            return keys
+    if rest.startswith(_MODIFY_PREFIXES):
+        for op in MODIFY_OPS:
+            if rest.startswith(op + " on "):
+                keys["Node Type"] = "ModifyTable"
+                keys["Operation"] = op
+                _target(keys, rest[len(op) + 4:], "relation")
+                return keys
     join = _JOIN_LABEL.match(rest) if rest.startswith(("Nested Loop", "Hash", "Merge")) else None
     if join and (join.group(1) == "Nested Loop" or rest.endswith("Join")):
         keys["Node Type"] = "Nested Loop" if join.group(1) == "Nested Loop" else f"{join.group(1)} Join"
