@@ -162,9 +162,11 @@ def _judge(nodes: list[PlanNode], roles: list[Role]) -> None:
             node.q_error = 10 ** abs(node.log10_ratio)
         if not node.children:
             continue
-        inputs = [nodes[c] for c in node.children if nodes[c].is_input_edge]
-        if role.limit and node.executed and node.est_total is not None \
-                and node.actual_total is not None and node.actual_total >= node.est_total:
+        limit_met = role.limit and node.executed and node.est_total is not None \
+            and node.actual_total is not None and node.actual_total >= node.est_total
+        inputs = [nodes[c] for c in node.children if nodes[c].is_input_edge] \
+            if limit_met or (reason and not role.blocking) else []
+        if limit_met:
             for child in inputs:
                 cut.setdefault(child.id, "stopped early: the limit above had all the rows it needed")
         if reason and not role.blocking:
@@ -470,11 +472,13 @@ def _charitable_own(node: PlanNode) -> float:
 
 def _collect(node: PlanNode, nodes: list[PlanNode], roles: list[Role], below: dict[int, list[int]],
              threshold: float) -> None:
-    found: list[int] = []
-    seen: set[int] = set()
     feeds = [c for c in node.children if c in below and nodes[c].is_input_edge]
     if roles[node.id].reads is not None and roles[node.id].reads in below:
         feeds.append(roles[node.id].reads)
+    if not feeds and not node.origin:
+        return
+    found: list[int] = []
+    seen: set[int] = set()
     for child in feeds:
         for origin in below[child]:
             if origin not in seen:

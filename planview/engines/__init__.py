@@ -109,23 +109,24 @@ def detect(text: str, engine: str | None = None, fmt: str | None = None) -> tupl
             continue
         if best is None or score > best[0]:
             best = (score, module, found_fmt)
+    if best is not None:
+        return best[1], best[2]
+    if elsewhere is None and engine and fmt:
+        return get(engine), fmt
+    # only an error needs the first line: splitting a large plan into lines costs more than detecting it
     first = next((i for i, line in enumerate(text.splitlines(), 1) if line.strip()), 1)
-    if best is None and elsewhere is not None:
+    if elsewhere is not None:
         _, module, found_fmt = elsewhere
         raise PlanParseError(f"format {fmt!r} was forced, but this is a {module.NAME} plan in "
                              f"{found_fmt} format; force {found_fmt!r} or let the format be detected",
                              line=first)
-    if best is None:
-        if engine and fmt:
-            return get(engine), fmt
-        if engine:
-            name = get(engine).NAME
-            formats = ", ".join(get(engine).FORMATS)
-            raise PlanParseError(f"this does not look like a {name} plan ({formats})"
-                                 + (f" in {fmt} format" if fmt else ""), line=first)
-        raise PlanParseError(
-            "this does not look like a query plan of any known engine "
-            f"({', '.join(sorted(engines()))}); pass engine= and fmt= to force one",
-            line=first,
-        )
-    return best[1], best[2]
+    if engine:
+        name = get(engine).NAME
+        formats = ", ".join(get(engine).FORMATS)
+        raise PlanParseError(f"this does not look like a {name} plan ({formats})"
+                             + (f" in {fmt} format" if fmt else ""), line=first)
+    raise PlanParseError(
+        "this does not look like a query plan of any known engine "
+        f"({', '.join(sorted(engines()))}); pass engine= and fmt= to force one",
+        line=first,
+    )

@@ -43,7 +43,7 @@ def _refuse_constant(name: str):
 
 
 def _checked_int(literal: str) -> int:
-    if len(literal.lstrip("-")) > 300:
+    if len(literal) > 300 and len(literal.lstrip("-")) > 300:  # the strip only for a long one
         raise BadNumber(literal, f"a {len(literal):,}-digit integer is beyond any count or cost")
     return int(literal)
 

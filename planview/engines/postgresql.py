@@ -732,6 +732,7 @@ def _read_text(lines: list[str], numbers: list[int]) -> list[dict]:
     stmt: dict | None = None
     stack: list[_Frame] = []
     stmt_last_key: str | None = None
+    labels: dict[str, dict[str, Any]] = {}
     for index, line in enumerate(lines):
         if not line.strip():
             continue
@@ -749,7 +750,7 @@ def _read_text(lines: list[str], numbers: list[int]) -> list[dict]:
                 raise PlanParseError("child operator is indented less than its parent",
                                      line=lineno, engine=NAME, fmt="text")
             top = stack[-1]
-            node = _text_node(content[2:].lstrip(" "), lineno)
+            node = _text_node(content[2:].lstrip(" "), lineno, labels)
             if top.header is not None:
                 kind, name = top.header
                 node["Parent Relationship"] = kind
@@ -776,7 +777,7 @@ def _read_text(lines: list[str], numbers: list[int]) -> list[dict]:
                 # a detail line pushed to column 0 (unusual, but seen in hand-edited pastes)
                 _detail_line(stack[0], content, lineno)
                 continue
-            stmt = {"Plan": _text_node(content, lineno), "__path__": f"statement {len(statements) + 1}",
+            stmt = {"Plan": _text_node(content, lineno, labels), "__path__": f"statement {len(statements) + 1}",
                     "__line__": lineno}
             statements.append(stmt)
             stack = [_Frame(stmt["Plan"], 2)]
@@ -827,7 +828,9 @@ def _next_is_arrow(lines: list[str], index: int, col: int) -> bool:
 _BAD_FIGURES = re.compile(r"\((cost|actual)[ =]|\bloops=")
 
 
-def _text_node(text: str, lineno: int) -> dict:
+def _text_node(text: str, lineno: int, labels: dict[str, dict[str, Any]]) -> dict:
+    """The keys of one operator line. `labels` holds the keys of each label already read in
+    this plan (Hash, Sort, Hash Join repeat on many lines), which the node gets a copy of."""
     match = _NODE_LINE.match(text)
     label = match.label.strip()
     figures = match.figures
@@ -842,10 +845,18 @@ def _text_node(text: str, lineno: int) -> dict:
         raise PlanParseError(f"cannot read the figures {shown!r} (expected cost=S..T rows=N "
                              "width=W and actual time=A..B rows=N loops=L, all non-negative)",
                              line=lineno, engine=NAME, fmt="text")
-    node: dict[str, Any] = _label_to_keys(label, lineno)
+    keys = labels.get(label)
+    if keys is None:
+        keys = labels[label] = _label_to_keys(label, lineno)
+    node: dict[str, Any] = dict(keys)
     node["__line__"] = lineno
     node["__label__"] = label
-    if rows is not None:
+    if rows is not None and MASKED not in (sc, tc, rows, width):
+        node["Startup Cost"] = float(sc)
+        node["Total Cost"] = float(tc)
+        node["Plan Rows"] = float(rows)
+        node["Plan Width"] = float(width)
+    elif rows is not None:
         node["Startup Cost"] = _figure(sc, "Startup Cost", node)
         node["Total Cost"] = _figure(tc, "Total Cost", node)
         node["Plan Rows"] = _figure(rows, "Plan Rows", node)
@@ -882,6 +893,9 @@ _JOIN_LABEL = re.compile(
     r"^(Nested Loop|Hash|Merge)(?: (Left|Right Semi|Right Anti|Right|Full|Semi|Anti))?(?: Join)?$")
 
 
+_MODIFY_PREFIXES = tuple(op + " on " for op in MODIFY_OPS)
+
+
 def _label_to_keys(label: str, lineno: int) -> dict[str, Any]:
     """The JSON keys a text label stands for ("Parallel Hash Left Join" -> Hash Join, Left)."""
     keys: dict[str, Any] = {}
@@ -898,12 +912,13 @@ def _label_to_keys(label: str, lineno: int) -> dict[str, Any]:
             keys["Partial Mode"] = mode.strip()
             rest = rest[len(mode):]
             break
-    for op in MODIFY_OPS:
-        if rest.startswith(op + " on "):
-            keys["Node Type"] = "ModifyTable"
-            keys["Operation"] = op
-            _target(keys, rest[len(op) + 4:], "relation")
-            return keys
+    if rest.startswith(_MODIFY_PREFIXES):
+        for op in MODIFY_OPS:
+            if rest.startswith(op + " on "):
+                keys["Node Type"] = "ModifyTable"
+                keys["Operation"] = op
+                _target(keys, rest[len(op) + 4:], "relation")
+                return keys
     join = _JOIN_LABEL.match(rest) if rest.startswith(("Nested Loop", "Hash", "Merge")) else None
     if join and (join.group(1) == "Nested Loop" or rest.endswith("Join")):
         keys["Node Type"] = "Nested Loop" if join.group(1) == "Nested Loop" else f"{join.group(1)} Join"
@@ -1274,7 +1289,8 @@ def _build(statements: list[dict], fmt: str) -> ParsedPlan:
         todo: list[tuple[dict, int | None, int, str, int]] = [(plan, None, 0, f"{path}.Plan", 0)]
         while todo:
             raw, parent, depth, key_path, position = todo.pop()
-            check_depth(depth, key=key_path, engine=NAME, fmt=fmt)
+            if depth > MAX_DEPTH:
+                check_depth(depth, key=key_path, engine=NAME, fmt=fmt)
             node = append_node(nodes, _node_from_dict(raw, len(nodes), parent, depth, stmt_no, key_path, fmt),
                                parent)
             if parent is not None and node.parent_relationship is None:
@@ -1395,6 +1411,7 @@ def _node_from_dict(raw: dict, node_id: int, parent: int | None, depth: int, stm
                     statement=stmt_no, depth=depth)
     extra = node.extra
     actions = _ACTIONS
+    intern = sys.intern
     for key, value in raw.items():
         action = actions.get(key)
         if action is None:
@@ -1408,15 +1425,17 @@ def _node_from_dict(raw: dict, node_id: int, parent: int | None, depth: int, stm
                 extra[_intern(key)] = value
             continue
         code, attr = action
-        if code == 0:  # a text field: names repeat across nodes, so one copy of each is kept
-            if value is not None:
-                setattr(node, attr, _intern(value) if value.__class__ is str
-                        else _text(value, key, path, fmt, line))
-        elif code == 1:  # a number field
+        if code == 1:  # a number field (the most frequent key)
             if (value.__class__ is float or value.__class__ is int) and 0 <= value <= MAX_COUNT:
                 setattr(node, attr, float(value))
             else:
                 setattr(node, attr, _num(value, key, path, fmt, line))
+        elif code == 0:  # a text field: names repeat across nodes, so one copy of each is kept
+            if value is not None:
+                if value.__class__ is str:
+                    setattr(node, attr, intern(value) if len(value) <= 64 else value)
+                else:
+                    setattr(node, attr, _text(value, key, path, fmt, line))
         elif code == 3:  # a condition
             if value is not None and value != "":
                 text = value if value.__class__ is str else _text(value, key, path, fmt, line)
@@ -1431,7 +1450,10 @@ def _node_from_dict(raw: dict, node_id: int, parent: int | None, depth: int, stm
         order = {k: i for i, k in enumerate(CONDITION_KEYS)}
         node.conditions.sort(key=lambda c: order[c.key])
     aware = raw.get("Parallel Aware")
-    node.parallel_aware = bool(_bool(aware, "Parallel Aware", path, fmt, line)) if aware is not None else False
+    if aware is None or aware.__class__ is bool:
+        node.parallel_aware = aware is True
+    else:
+        node.parallel_aware = bool(_bool(aware, "Parallel Aware", path, fmt, line))
     if node.operator in ("Nested Loop", "Hash Join", "Merge Join") and node.join_type is None:
         node.join_type = "Inner"
     if node.operator == "Aggregate" and node.partial_mode is None:
@@ -1796,7 +1818,9 @@ class PostgreSQL(Engine):
         loops. On a partial path we take the divisor out (estimate x divisor) so that the total compares with actual rows x loops.
         Both facts are memoised on the parsed plan: `role` is asked once a node, in pre-order.
         """
-        memo = parsed.__dict__.setdefault("_pg_parallel", {"gather": {}, "partial": {}})
+        memo = parsed.__dict__.get("_pg_parallel")
+        if memo is None:
+            memo = parsed.__dict__["_pg_parallel"] = {"gather": {}, "partial": {}}
         gathers: dict[int, int | None] = memo["gather"]
         parent = nodes[node.parent] if node.parent is not None else None
         if parent is None:
