@@ -106,8 +106,9 @@ class Context:
         return statistic in self.engine.STATISTICS_KEPT
 
     def non_constant_kind(self, clause: Clause) -> str | None:
-        """``inequality`` or ``equality_same_table`` when the clause compares a column with no
-        constant (a parameter, a sub-plan's result, another column of the same table)."""
+        """``inequality``, ``equality_same_table`` or ``equality_subplan`` when the clause
+        compares a column with no constant (a parameter, a sub-plan's result, another column
+        of the same table)."""
         if not clause.bare or clause.aggregate or not clause.columns:
             return None
         same_table = len(clause.columns) == 2 and not clause.is_join
@@ -116,6 +117,8 @@ class Context:
             return "inequality"
         if clause.op_class == "equality" and same_table:
             return "equality_same_table"
+        if clause.op_class == "equality" and clause.has_subplan and len(clause.columns) == 1:
+            return "equality_subplan"
         return None
 
     def default_match(self, tolerance: float = 0.05) -> tuple[str, float] | None:

@@ -44,9 +44,15 @@ def rule(ctx: Context) -> Candidate | None:
     for clause, name, value in non_constant:
         other = ("another column of the same table" if len(clause.columns) == 2 else
                  "a sub-plan's result" if clause.has_subplan else "a parameter")
-        lines.append(f"{clause.text} compares a column with {other}, not a constant: the planner "
-                     f"cannot look the value up in its statistics and uses its fixed {name} = "
-                     f"{fmt_sel(value)} ({ctx.engine.NON_CONSTANT_SOURCE}).")
+        head = (f"{clause.text} compares a column with {other}, not a constant: the planner "
+                "cannot look the value up in its statistics")
+        if isinstance(value, str):  # a guess that is not one fixed number
+            lines.append(f"{head}; {value}."
+                         + (" A value chosen from the rows themselves (a correlated minimum or "
+                            "maximum) matches far more often than that guess." if ctx.direction == "under" else ""))
+            continue
+        lines.append(f"{head} and uses its fixed {name} = {fmt_sel(value)} "
+                     f"({ctx.engine.NON_CONSTANT_SOURCE}).")
         fields.setdefault("default", {"name": name, "value": value})
     if grouping_default:
         lines.append(f"Estimated exactly {fmt_rows(ctx.est_total)} groups: the default number of "
@@ -77,17 +83,21 @@ def rule(ctx: Context) -> Candidate | None:
                      + (" (its estimate equals a built-in default)" if match or grouping_default else ""),
                      lines=lines, fields=fields, table=table or ctx.relation_of.get(None),
                      columns=sorted(set(columns)), expressions=[e for e in expressions if e],
-                     details={"aggregate": bool(aggregates), "non_constant": bool(non_constant)})
+                     details={"aggregate": bool(aggregates), "non_constant": bool(non_constant),
+                              "subplan_value": any(c.has_subplan for c, _, _ in non_constant)})
 
 
 def _non_constant(ctx: Context, clauses) -> list:
     """(clause, default name, value) for each comparison with no constant the engine answers
-    with a fixed default."""
+    with a fixed default; (clause, None, how it guesses) where the guess is not one number."""
     found = []
     for clause in clauses:
-        name = ctx.engine.NON_CONSTANT_DEFAULTS.get(ctx.non_constant_kind(clause) or "")
+        kind = ctx.non_constant_kind(clause) or ""
+        name = ctx.engine.NON_CONSTANT_DEFAULTS.get(kind)
         if name and name in ctx.defaults:
             found.append((clause, name, ctx.defaults[name]))
+        elif kind in ctx.engine.NON_CONSTANT_GUESSES:
+            found.append((clause, None, ctx.engine.NON_CONSTANT_GUESSES[kind]))
     return found
 
 

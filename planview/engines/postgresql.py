@@ -1662,6 +1662,15 @@ def suggest_fix(cause: str, table: str | None, columns: list[str], **details) ->
         return ("\n".join("-- " + line for line in _NO_STATISTIC_FIXES[cause]),
                 "Nothing here runs as pasted: each option changes the query or the schema. "
                 + _CHANGE_PROCESS)
+    if cause == "default_selectivity" and details.get("subplan_value") and not details.get("expressions"):
+        sql = ("-- No statistics can describe a sub-plan's result: no ANALYZE or CREATE STATISTICS "
+               "changes this guess.\n"
+               "-- Where the low estimate leads to a bad plan above this node, change the query so "
+               "that it needs\n"
+               "-- no comparison with the sub-plan, e.g. the row with the minimum per key as\n"
+               "--   SELECT DISTINCT ON (key) ... ORDER BY key, value\n"
+               "-- or keep the sub-plan's results in a table of their own that is ANALYZEd.")
+        return sql, "Nothing here runs as pasted: it changes the query. " + _CHANGE_PROCESS
     if cause == "default_selectivity":
         return _expression_fix(table, qt, [e for e in details.get("expressions") or [] if e],
                                bool(details.get("aggregate")), details.get("table_parts"))
@@ -1739,6 +1748,15 @@ class PostgreSQL(Engine):
     # side is not a constant (a parameter, an InitPlan or SubPlan result, another column).
     NON_CONSTANT_DEFAULTS = {"inequality": "DEFAULT_INEQ_SEL", "equality_same_table": "DEFAULT_EQ_SEL"}
     NON_CONSTANT_SOURCE = "eqsel and scalarineqsel in src/backend/utils/adt/selfuncs.c"
+    # selfuncs.c: a sub-plan's result has no statistics. As a restriction, column = value is
+    # 1/n_distinct of the column (var_eq_non_const); as a join clause (a correlated sub-plan
+    # names the outer table) eqjoinsel divides by the larger of the two sides' distinct counts,
+    # the sub-plan side counting as DEFAULT_NUM_DISTINCT (get_variable_numdistinct).
+    NON_CONSTANT_GUESSES = {
+        "equality_subplan": "it guesses that the value is any one of the column's distinct values "
+                            "(1 / its distinct values, and at most 1/200 = DEFAULT_NUM_DISTINCT's "
+                            "share: var_eq_non_const and eqjoinsel in src/backend/utils/adt/selfuncs.c)",
+    }
     RECURSIVE_GUESSES = {
         "Recursive Union": (10.0, "the non-recursive term's rows plus 10 iterations of the recursive "
                                   "term's (cost_recursive_union in src/backend/optimizer/path/costsize.c: "
