@@ -1632,6 +1632,34 @@ def suggest_fix(cause: str, table: str | None, columns: list[str], **details) ->
                    "lock (no reads or writes meanwhile), and the query must be rewritten to use the "
                    "new key. " + _ANALYZE_CAUTION + " " + _CHANGE_PROCESS)
         return sql, caution
+    if cause == "correlation" and details.get("cross_filter"):
+        other = _qtable(details.get("other_table") or "other_table", details.get("other_table_parts"))
+        inner_name = columns[0] if columns else "column"
+        outer_name = (details.get("other_columns") or ["column"])[0]
+        inner_col, outer_col = quote_ident(inner_name), quote_ident(outer_name)
+        copy_name = f"{(details.get('other_table_parts') or (None, 'outer'))[-1]}_{outer_name}"
+        copy = _made_name([copy_name], "")
+        stats = _made_name([(details.get("table_parts") or (None, table))[-1], inner_name, copy_name], "_stats")
+        sql = (f"-- {qt}.{inner_col} is filtered in step with {other}.{outer_col} across the join; "
+               "extended statistics\n"
+               "-- are per table (CREATE STATISTICS names one table) and cannot correct this estimate. "
+               "What can:\n"
+               f"-- 1. where the data guarantees a bound between the two columns (e.g. a line ships "
+               "within N days\n"
+               f"--    of its order), add it to the query as a redundant constant range on {qt}.{inner_col},\n"
+               "--    so that its per-table statistics see the narrow range the outer filter implies;\n"
+               f"-- 2. (heavy: a new column on {qt}, filled by updating every row; read the caution and\n"
+               f"--    take it through your change process) keep a copy of {outer_col} in {qt}, then give both\n"
+               "--    columns statistics together and filter on the copy:\n"
+               f"-- ALTER TABLE {qt} ADD COLUMN {copy} <type of {outer_col}>;  -- filled from {other}, kept by the application or a trigger\n"
+               f"-- CREATE STATISTICS {stats} (dependencies, mcv) ON {inner_col}, {copy} FROM {qt};\n"
+               f"-- ANALYZE {qt};")
+        caution = ("Nothing here runs as pasted. The commented-out option 2 is heavy: ALTER TABLE ... "
+                   "ADD COLUMN takes an ACCESS EXCLUSIVE lock (briefly, without a default), filling the "
+                   "column updates every row (row locks, a new version of each row, WAL, then VACUUM), "
+                   "and the query must filter on the copy. "
+                   + _ANALYZE_CAUTION + " " + _CHANGE_PROCESS)
+        return sql, caution
     if cause == "correlation" and len(cols) >= 2:
         kinds = {"dependencies", "ndistinct", "mcv"}
         name = _made_name([(details.get("table_parts") or (None, table))[-1], *columns], "_stats")
