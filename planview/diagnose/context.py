@@ -180,6 +180,8 @@ def build_context(plan, node, relation_of: Mapping[str | None, str] | None = Non
                     continue
                 seen.add(key)
                 clauses.append(clause)
+    if node.own_rule == "join" and not any(c.source in JOIN_KINDS or c.is_join for c in clauses):
+        clauses += _parameterised_join_clauses(plan, node, engine.dialect)
     clauses = merge_ranges(clauses)
     starts = node.starts or 1
     removed = node.rows_discarded * starts
@@ -192,6 +194,25 @@ def build_context(plan, node, relation_of: Mapping[str | None, str] | None = Non
                    est_total=node.est_total or 0.0, actual_total=node.actual_total or 0.0,
                    own_log10_ratio=node.own_log10_ratio or 0.0, rows_read=rows_read,
                    rows_removed=removed, engine=engine)
+
+
+def _parameterised_join_clauses(plan, join, dialect: str | None) -> list[Clause]:
+    """A nested loop whose inner scan is keyed by the outer row prints its join clauses on
+    that scan (``Index Cond: (l.k = o.k)``): they are the join's, read as join clauses."""
+    found: list[Clause] = []
+    for child_id in join.children:
+        child = plan.nodes[child_id]
+        if not child.is_input_edge or child.relation is None:
+            continue
+        own = child.alias or child.relation
+        for cond in child.conditions:
+            if cond.kind not in RESTRICTION_KINDS:
+                continue
+            for clause in parse_condition(cond.text, cond.kind, dialect):
+                if clause.is_join and any(c.qualifier and c.qualifier != own for c in clause.columns):
+                    clause.source = "join_cond"
+                    found.append(clause)
+    return found
 
 
 def fmt_rows(value: float | None) -> str:

@@ -169,7 +169,10 @@ def repair(parsed: ParsedPlan) -> None:
       taken at the same rows per start.
     - The planner clamps a printed estimate to at least one row; for the inner side of an
       inner nested loop without a join filter, the join's estimate over the outer estimate
-      gives the real per-start figure.
+      gives the real per-start figure. Where the inner side found fewer than a row a start,
+      that figure is its estimate (the printed floor would invent an overestimate); where it
+      found a row or more a start, it is judged at the printed row and the share below it,
+      the selectivity the join's keys were given, stays with the join, which is judged on it.
     """
     nodes = parsed.nodes
     half_step = 0.005 if parsed.engine_version == "18" else 0.5
@@ -186,13 +189,23 @@ def repair(parsed: ParsedPlan) -> None:
         if (not has_join_filter and inner.est_rows == 1 and outer.est_rows and node.est_rows is not None
                 and inner.est_total is not None):
             per_start = node.est_rows / outer.est_rows
-            if per_start < 1:
-                inner.est_total = per_start * (inner.starts or 1) if inner.executed else per_start
-                inner.derived.append(
-                    f"estimate printed as 1 row (the planner's floor); the join's estimate "
-                    f"{node.est_rows:,.0f} over the outer estimate {outer.est_rows:,.0f} gives "
-                    f"{per_start:.3g} per start"
-                )
+            if per_start >= 1:
+                continue
+            figure = (f"estimate printed as 1 row (the planner's floor); the join's estimate "
+                      f"{node.est_rows:,.0f} over the outer estimate {outer.est_rows:,.0f} gives "
+                      f"{per_start:.3g} per start")
+            if inner.executed and inner.actual_rows is not None and inner.actual_rows >= 1:
+                # it found at least a row a start: judged at the floor, so the share below one
+                # row a start, the selectivity of the join's keys, is the join's own
+                inner.derived.append(f"{figure}; it found {inner.actual_rows:g} a start, so it is "
+                                     "judged against the 1 row printed and the share below one row "
+                                     "a start (the join keys' selectivity) is judged at the join")
+                node.derived.append(f"its inner input #{inner.id} is judged at the 1 row a start "
+                                    f"printed; the join's own estimate carries the {per_start:.3g} "
+                                    "rows a start its keys were given")
+                continue
+            inner.est_total = per_start * (inner.starts or 1) if inner.executed else per_start
+            inner.derived.append(figure)
 
 
 def _rounding_range(node: PlanNode, half_step: float) -> tuple[float, float] | None:
