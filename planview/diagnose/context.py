@@ -101,6 +101,18 @@ class Context:
     def group_keys(self) -> list[str]:
         return list(self.node.group_keys)
 
+    @property
+    def condition_shares(self) -> tuple[float, float] | None:
+        """The shares (in %) of its rows the node's condition was estimated to keep and kept,
+        where the engine prints them (MariaDB's ``filtered`` and ``r_filtered``)."""
+        shares = self.node.extra.get("selectivity")
+        if not isinstance(shares, dict):
+            return None
+        estimated, actual = shares.get("filtered"), shares.get("r_filtered")
+        if not isinstance(estimated, (int, float)) or not isinstance(actual, (int, float)):
+            return None
+        return float(estimated), float(actual)
+
     def keeps(self, statistic: str) -> bool:
         """Whether the engine keeps this kind of statistic (``histogram``, ``most_common_values``)."""
         return statistic in self.engine.STATISTICS_KEPT

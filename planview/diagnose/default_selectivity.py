@@ -25,6 +25,9 @@ def rule(ctx: Context) -> Candidate | None:
     match = ctx.default_match()
     num_distinct = ctx.engine.DEFAULT_NUM_DISTINCT
     grouping_default = ctx.is_grouping and num_distinct is not None and ctx.est_total == num_distinct[1]
+    unestimated = _unestimated_join_condition(ctx)
+    if unestimated:
+        return unestimated
     if not (opaque or aggregates or special or match or grouping_default or non_constant):
         return None
     lines: list[str] = []
@@ -111,3 +114,29 @@ def _expression_of(clause) -> str:
                 return left
             return text.split(op, 1)[1].strip()
     return text
+
+
+UNESTIMATED_SHARE = 100.0
+"""A join condition the optimizer gave no selectivity keeps, by its estimate, every pair."""
+
+
+def _unestimated_join_condition(ctx: Context) -> Candidate | None:
+    """A join condition the engine applied but did not print, estimated to keep every pair
+    while it kept a small share of them: the optimizer put no selectivity on it."""
+    shares = ctx.condition_shares
+    if ctx.node.unprinted_condition != "join_filter" or shares is None or ctx.clauses:
+        return None
+    estimated, actual = shares
+    if estimated < UNESTIMATED_SHARE or actual * 10 > estimated:
+        return None
+    return Candidate(
+        cause="default_selectivity", score=0.7,
+        reason="the join condition was estimated to keep every pair: no selectivity was put on it",
+        lines=[f"The join condition was estimated to keep {estimated:g}% of the pairs and kept "
+               f"{actual:g}%: an estimate of all pairs means the optimizer had no selectivity for "
+               "the condition (no index or statistics it could use, e.g. a column inside an "
+               "expression).",
+               "This output format prints no condition, so the condition is not named here; "
+               "the same plan in a format that prints conditions names it."],
+        fields={"estimated_share": estimated, "actual_share": actual},
+        table=ctx.relation_of.get(None), columns=[])
