@@ -138,6 +138,10 @@ class PlanNode:
     conditions_from: tuple[int, ...] = ()
     """Nodes below whose conditions restrict this node's rows (an index bitmap under a scan)."""
     group_keys: tuple[str, ...] = ()
+    unprinted_condition: str | None = None
+    """A condition the engine applied here but did not print (an output format that prints
+    none): ``filter`` (rows filtered by a WHERE part), ``key_lookup`` (an equality lookup on
+    the index `index` by each outer row's value), ``join_filter`` (a join condition)."""
 
     def condition_texts(self, *kinds: str) -> list[str]:
         """The texts of this node's conditions of the given kinds (all kinds if none given)."""

@@ -143,6 +143,11 @@ def _fill(plan, finding, node, ctx: Context, candidates: list[Candidate], checke
         finding.cause = "unexplained"
         finding.confidence = 0.2
         finding.confidence_reason = "no rule fits the clauses and numbers of this node"
+        if node.unprinted_condition and not ctx.clauses:
+            evidence["lines"].append(
+                "This output format prints no condition for this node, though one was applied "
+                "here: without it no cause can be named. The same plan in a format that prints "
+                "conditions can be diagnosed.")
         evidence["lines"].append("Checked and not fitting: " + ", ".join(checked) + ".")
         evidence["checked"] = checked
         finding.summary = "unexplained: no known statistics gap fits; read the evidence."

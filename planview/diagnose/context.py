@@ -101,13 +101,26 @@ class Context:
     def group_keys(self) -> list[str]:
         return list(self.node.group_keys)
 
+    @property
+    def condition_shares(self) -> tuple[float, float] | None:
+        """The shares (in %) of its rows the node's condition was estimated to keep and kept,
+        where the engine prints them (MariaDB's ``filtered`` and ``r_filtered``)."""
+        shares = self.node.extra.get("selectivity")
+        if not isinstance(shares, dict):
+            return None
+        estimated, actual = shares.get("filtered"), shares.get("r_filtered")
+        if not isinstance(estimated, (int, float)) or not isinstance(actual, (int, float)):
+            return None
+        return float(estimated), float(actual)
+
     def keeps(self, statistic: str) -> bool:
         """Whether the engine keeps this kind of statistic (``histogram``, ``most_common_values``)."""
         return statistic in self.engine.STATISTICS_KEPT
 
     def non_constant_kind(self, clause: Clause) -> str | None:
-        """``inequality`` or ``equality_same_table`` when the clause compares a column with no
-        constant (a parameter, a sub-plan's result, another column of the same table)."""
+        """``inequality``, ``equality_same_table`` or ``equality_subplan`` when the clause
+        compares a column with no constant (a parameter, a sub-plan's result, another column
+        of the same table)."""
         if not clause.bare or clause.aggregate or not clause.columns:
             return None
         same_table = len(clause.columns) == 2 and not clause.is_join
@@ -116,6 +129,8 @@ class Context:
             return "inequality"
         if clause.op_class == "equality" and same_table:
             return "equality_same_table"
+        if clause.op_class == "equality" and clause.has_subplan and len(clause.columns) == 1:
+            return "equality_subplan"
         return None
 
     def default_match(self, tolerance: float = 0.05) -> tuple[str, float] | None:
@@ -177,6 +192,8 @@ def build_context(plan, node, relation_of: Mapping[str | None, str] | None = Non
                     continue
                 seen.add(key)
                 clauses.append(clause)
+    if node.own_rule == "join" and not any(c.source in JOIN_KINDS or c.is_join for c in clauses):
+        clauses += _parameterised_join_clauses(plan, node, engine.dialect)
     clauses = merge_ranges(clauses)
     starts = node.starts or 1
     removed = node.rows_discarded * starts
@@ -189,6 +206,25 @@ def build_context(plan, node, relation_of: Mapping[str | None, str] | None = Non
                    est_total=node.est_total or 0.0, actual_total=node.actual_total or 0.0,
                    own_log10_ratio=node.own_log10_ratio or 0.0, rows_read=rows_read,
                    rows_removed=removed, engine=engine)
+
+
+def _parameterised_join_clauses(plan, join, dialect: str | None) -> list[Clause]:
+    """A nested loop whose inner scan is keyed by the outer row prints its join clauses on
+    that scan (``Index Cond: (l.k = o.k)``): they are the join's, read as join clauses."""
+    found: list[Clause] = []
+    for child_id in join.children:
+        child = plan.nodes[child_id]
+        if not child.is_input_edge or child.relation is None:
+            continue
+        own = child.alias or child.relation
+        for cond in child.conditions:
+            if cond.kind not in RESTRICTION_KINDS:
+                continue
+            for clause in parse_condition(cond.text, cond.kind, dialect):
+                if clause.is_join and any(c.qualifier and c.qualifier != own for c in clause.columns):
+                    clause.source = "join_cond"
+                    found.append(clause)
+    return found
 
 
 def fmt_rows(value: float | None) -> str:

@@ -25,6 +25,9 @@ def rule(ctx: Context) -> Candidate | None:
     match = ctx.default_match()
     num_distinct = ctx.engine.DEFAULT_NUM_DISTINCT
     grouping_default = ctx.is_grouping and num_distinct is not None and ctx.est_total == num_distinct[1]
+    unestimated = _unestimated_join_condition(ctx)
+    if unestimated:
+        return unestimated
     if not (opaque or aggregates or special or match or grouping_default or non_constant):
         return None
     lines: list[str] = []
@@ -44,9 +47,15 @@ def rule(ctx: Context) -> Candidate | None:
     for clause, name, value in non_constant:
         other = ("another column of the same table" if len(clause.columns) == 2 else
                  "a sub-plan's result" if clause.has_subplan else "a parameter")
-        lines.append(f"{clause.text} compares a column with {other}, not a constant: the planner "
-                     f"cannot look the value up in its statistics and uses its fixed {name} = "
-                     f"{fmt_sel(value)} ({ctx.engine.NON_CONSTANT_SOURCE}).")
+        head = (f"{clause.text} compares a column with {other}, not a constant: the planner "
+                "cannot look the value up in its statistics")
+        if isinstance(value, str):  # a guess that is not one fixed number
+            lines.append(f"{head}; {value}."
+                         + (" A value chosen from the rows themselves (a correlated minimum or "
+                            "maximum) matches far more often than that guess." if ctx.direction == "under" else ""))
+            continue
+        lines.append(f"{head} and uses its fixed {name} = {fmt_sel(value)} "
+                     f"({ctx.engine.NON_CONSTANT_SOURCE}).")
         fields.setdefault("default", {"name": name, "value": value})
     if grouping_default:
         lines.append(f"Estimated exactly {fmt_rows(ctx.est_total)} groups: the default number of "
@@ -77,17 +86,21 @@ def rule(ctx: Context) -> Candidate | None:
                      + (" (its estimate equals a built-in default)" if match or grouping_default else ""),
                      lines=lines, fields=fields, table=table or ctx.relation_of.get(None),
                      columns=sorted(set(columns)), expressions=[e for e in expressions if e],
-                     details={"aggregate": bool(aggregates), "non_constant": bool(non_constant)})
+                     details={"aggregate": bool(aggregates), "non_constant": bool(non_constant),
+                              "subplan_value": any(c.has_subplan for c, _, _ in non_constant)})
 
 
 def _non_constant(ctx: Context, clauses) -> list:
     """(clause, default name, value) for each comparison with no constant the engine answers
-    with a fixed default."""
+    with a fixed default; (clause, None, how it guesses) where the guess is not one number."""
     found = []
     for clause in clauses:
-        name = ctx.engine.NON_CONSTANT_DEFAULTS.get(ctx.non_constant_kind(clause) or "")
+        kind = ctx.non_constant_kind(clause) or ""
+        name = ctx.engine.NON_CONSTANT_DEFAULTS.get(kind)
         if name and name in ctx.defaults:
             found.append((clause, name, ctx.defaults[name]))
+        elif kind in ctx.engine.NON_CONSTANT_GUESSES:
+            found.append((clause, None, ctx.engine.NON_CONSTANT_GUESSES[kind]))
     return found
 
 
@@ -101,3 +114,29 @@ def _expression_of(clause) -> str:
                 return left
             return text.split(op, 1)[1].strip()
     return text
+
+
+UNESTIMATED_SHARE = 100.0
+"""A join condition the optimizer gave no selectivity keeps, by its estimate, every pair."""
+
+
+def _unestimated_join_condition(ctx: Context) -> Candidate | None:
+    """A join condition the engine applied but did not print, estimated to keep every pair
+    while it kept a small share of them: the optimizer put no selectivity on it."""
+    shares = ctx.condition_shares
+    if ctx.node.unprinted_condition != "join_filter" or shares is None or ctx.clauses:
+        return None
+    estimated, actual = shares
+    if estimated < UNESTIMATED_SHARE or actual * 10 > estimated:
+        return None
+    return Candidate(
+        cause="default_selectivity", score=0.7,
+        reason="the join condition was estimated to keep every pair: no selectivity was put on it",
+        lines=[f"The join condition was estimated to keep {estimated:g}% of the pairs and kept "
+               f"{actual:g}%: an estimate of all pairs means the optimizer had no selectivity for "
+               "the condition (no index or statistics it could use, e.g. a column inside an "
+               "expression).",
+               "This output format prints no condition, so the condition is not named here; "
+               "the same plan in a format that prints conditions names it."],
+        fields={"estimated_share": estimated, "actual_share": actual},
+        table=ctx.relation_of.get(None), columns=[])

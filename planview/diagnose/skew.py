@@ -32,6 +32,8 @@ def rule(ctx: Context) -> Candidate | None:
               or (c.is_join and ctx.is_scan and sum(1 for x in c.columns if x.qualifier in own) == 1)]
     others = [c for c in ctx.restriction_clauses() if c not in single and not c.has_parameter
               and c.op_class not in ("subplan",)]
+    if not ctx.clauses and ctx.node.unprinted_condition == "key_lookup":
+        return _key_lookup(ctx)
     if len(single) != 1 or others:
         return None
     clause = single[0]
@@ -68,3 +70,21 @@ def rule(ctx: Context) -> Candidate | None:
                      lines=lines, fields=fields,
                      table=ctx.relation_of.get(mine[0].qualifier) or ctx.relation_of.get(None),
                      columns=[column])
+
+
+def _key_lookup(ctx: Context) -> Candidate:
+    """A lookup by index key per outer row whose output format prints no condition: its
+    estimate is the index's average rows per key, so a gap is the keys used being uncommon."""
+    node = ctx.node
+    more = ctx.direction == "under"
+    lines = [f"{node.label} looks rows up by an equality on the key of index {node.index or '?'} "
+             "with each outer row's value: its estimate "
+             f"({fmt_rows(node.est_rows)} a lookup) is the index's average rows per key, and the "
+             f"keys really used are {'more' if more else 'less'} common than average "
+             f"({fmt_rows(node.actual_rows)} a lookup).",
+             "This output format prints no condition, so the key's column is not named here; "
+             "the same plan in a format that prints conditions names it."]
+    return Candidate(cause="skew", score=0.5,
+                     reason="a lookup by index key, estimated from the average rows per key",
+                     lines=lines, fields={"index": node.index},
+                     table=ctx.relation_of.get(None), columns=[])

@@ -47,7 +47,8 @@ def rule(ctx: Context) -> Candidate | None:
     shrunk = _shrunk(ctx)
     if shrunk:
         return shrunk
-    if ctx.is_scan and node.relation and not node.conditions and not ctx.clauses:
+    if ctx.is_scan and node.relation and not node.conditions and not ctx.clauses \
+            and not node.unprinted_condition:
         return Candidate(
             cause="stale_statistics", score=0.9,
             reason="a scan with no restriction cannot be misestimated unless the row count changed",

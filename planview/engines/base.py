@@ -81,6 +81,9 @@ class Engine:
     constant, to the name in `DEFAULT_SELECTIVITIES` of the fixed estimate the engine uses."""
     NON_CONSTANT_SOURCE: str | None = None
     """Where the engine's source says so."""
+    NON_CONSTANT_GUESSES: Mapping[str, str] = {}
+    """Comparison kind (``equality_subplan``) with a value that has no statistics, to how the
+    engine guesses its selectivity when the guess is not one fixed number (with its source)."""
     RECURSIVE_GUESSES: Mapping[str, tuple[float, str]] = {}
     """Operators of a recursive CTE whose estimate is a fixed guess of the planner's: operator
     to (factor, what the factor multiplies and where the engine's source says so)."""

@@ -48,6 +48,9 @@ WHOLE_RELATION_SCANS = {"ALL", "index"}
 NUMERIC_TABLE_KEYS = ("rows", "r_rows", "filtered", "r_filtered", "r_loops", "r_index_rows",
                       "r_icp_filtered", "r_total_filtered", "r_table_time_ms", "r_other_time_ms")
 ACTUAL_TABLE_KEYS = ("r_loops", "r_rows", "r_filtered")
+KEY_LOOKUPS = frozenset({"ref", "eq_ref", "ref_or_null"})
+"""Access types that look rows up by an equality on an index key (the ``ref`` column names
+the value): their ``rows`` is the rows per key."""
 """The figures an actual row count is made from: one masked, the count is unknown."""
 MASKED = frozenset({"REPLACED", "#"})
 """What the engine's test suite prints in place of a figure that varies from run to run
@@ -655,6 +658,12 @@ def _table_block(builder: _Builder, members, parent, relationship) -> int:
         if join_r_filtered is not None and per_loop_actual is not None:
             per_loop_actual *= join_r_filtered / 100.0
             node.extra["join_r_filtered"] = join_r_filtered
+            if "Using where" in extra:
+                # the buffered row's condition is the join's: its selectivity is the join's
+                buffered_join = joins[len(raws) - 1 - k]
+                buffered_join.unprinted_condition = "join_filter"
+                buffered_join.extra["selectivity"] = {"filtered": node.extra.get("filtered"),
+                                                      "r_filtered": join_r_filtered, "condition": None}
             node.derived.append("read once: with a join buffer the tabular output does not say "
                                 "how often the table was read")
         prefix_est = prefix_est * node.est_rows if prefix_est is not None and node.est_rows is not None else None
@@ -684,6 +693,10 @@ def _table_node(builder: _Builder, raw, numbers, extra, number, parent, relation
     fill_table(node, raw.get("table_name"), raw, numbers)
     if raw.get("ref_text"):
         node.extra["ref"] = raw["ref_text"]
+        if access in KEY_LOOKUPS and raw["ref_text"] not in ("const", "func"):
+            node.unprinted_condition = "key_lookup"
+    if "Using where" in (extra or "") or (numbers.get("filtered") or 100.0) < 100.0:
+        node.unprinted_condition = node.unprinted_condition or "filter"
     if extra:
         node.extra["Extra"] = extra
     node.extra["line"] = number

@@ -169,7 +169,10 @@ def repair(parsed: ParsedPlan) -> None:
       taken at the same rows per start.
     - The planner clamps a printed estimate to at least one row; for the inner side of an
       inner nested loop without a join filter, the join's estimate over the outer estimate
-      gives the real per-start figure.
+      gives the real per-start figure. Where the inner side found fewer than a row a start,
+      that figure is its estimate (the printed floor would invent an overestimate); where it
+      found a row or more a start, it is judged at the printed row and the share below it,
+      the selectivity the join's keys were given, stays with the join, which is judged on it.
     """
     nodes = parsed.nodes
     half_step = 0.005 if parsed.engine_version == "18" else 0.5
@@ -186,13 +189,23 @@ def repair(parsed: ParsedPlan) -> None:
         if (not has_join_filter and inner.est_rows == 1 and outer.est_rows and node.est_rows is not None
                 and inner.est_total is not None):
             per_start = node.est_rows / outer.est_rows
-            if per_start < 1:
-                inner.est_total = per_start * (inner.starts or 1) if inner.executed else per_start
-                inner.derived.append(
-                    f"estimate printed as 1 row (the planner's floor); the join's estimate "
-                    f"{node.est_rows:,.0f} over the outer estimate {outer.est_rows:,.0f} gives "
-                    f"{per_start:.3g} per start"
-                )
+            if per_start >= 1:
+                continue
+            figure = (f"estimate printed as 1 row (the planner's floor); the join's estimate "
+                      f"{node.est_rows:,.0f} over the outer estimate {outer.est_rows:,.0f} gives "
+                      f"{per_start:.3g} per start")
+            if inner.executed and inner.actual_rows is not None and inner.actual_rows >= 1:
+                # it found at least a row a start: judged at the floor, so the share below one
+                # row a start, the selectivity of the join's keys, is the join's own
+                inner.derived.append(f"{figure}; it found {inner.actual_rows:g} a start, so it is "
+                                     "judged against the 1 row printed and the share below one row "
+                                     "a start (the join keys' selectivity) is judged at the join")
+                node.derived.append(f"its inner input #{inner.id} is judged at the 1 row a start "
+                                    f"printed; the join's own estimate carries the {per_start:.3g} "
+                                    "rows a start its keys were given")
+                continue
+            inner.est_total = per_start * (inner.starts or 1) if inner.executed else per_start
+            inner.derived.append(figure)
 
 
 def _rounding_range(node: PlanNode, half_step: float) -> tuple[float, float] | None:
@@ -1654,6 +1667,34 @@ def suggest_fix(cause: str, table: str | None, columns: list[str], **details) ->
                    "lock (no reads or writes meanwhile), and the query must be rewritten to use the "
                    "new key. " + _ANALYZE_CAUTION + " " + _CHANGE_PROCESS)
         return sql, caution
+    if cause == "correlation" and details.get("cross_filter"):
+        other = _qtable(details.get("other_table") or "other_table", details.get("other_table_parts"))
+        inner_name = columns[0] if columns else "column"
+        outer_name = (details.get("other_columns") or ["column"])[0]
+        inner_col, outer_col = quote_ident(inner_name), quote_ident(outer_name)
+        copy_name = f"{(details.get('other_table_parts') or (None, 'outer'))[-1]}_{outer_name}"
+        copy = _made_name([copy_name], "")
+        stats = _made_name([(details.get("table_parts") or (None, table))[-1], inner_name, copy_name], "_stats")
+        sql = (f"-- {qt}.{inner_col} is filtered in step with {other}.{outer_col} across the join; "
+               "extended statistics\n"
+               "-- are per table (CREATE STATISTICS names one table) and cannot correct this estimate. "
+               "What can:\n"
+               f"-- 1. where the data guarantees a bound between the two columns (e.g. a line ships "
+               "within N days\n"
+               f"--    of its order), add it to the query as a redundant constant range on {qt}.{inner_col},\n"
+               "--    so that its per-table statistics see the narrow range the outer filter implies;\n"
+               f"-- 2. (heavy: a new column on {qt}, filled by updating every row; read the caution and\n"
+               f"--    take it through your change process) keep a copy of {outer_col} in {qt}, then give both\n"
+               "--    columns statistics together and filter on the copy:\n"
+               f"-- ALTER TABLE {qt} ADD COLUMN {copy} <type of {outer_col}>;  -- filled from {other}, kept by the application or a trigger\n"
+               f"-- CREATE STATISTICS {stats} (dependencies, mcv) ON {inner_col}, {copy} FROM {qt};\n"
+               f"-- ANALYZE {qt};")
+        caution = ("Nothing here runs as pasted. The commented-out option 2 is heavy: ALTER TABLE ... "
+                   "ADD COLUMN takes an ACCESS EXCLUSIVE lock (briefly, without a default), filling the "
+                   "column updates every row (row locks, a new version of each row, WAL, then VACUUM), "
+                   "and the query must filter on the copy. "
+                   + _ANALYZE_CAUTION + " " + _CHANGE_PROCESS)
+        return sql, caution
     if cause == "correlation" and len(cols) >= 2:
         kinds = {"dependencies", "ndistinct", "mcv"}
         name = _made_name([(details.get("table_parts") or (None, table))[-1], *columns], "_stats")
@@ -1684,6 +1725,15 @@ def suggest_fix(cause: str, table: str | None, columns: list[str], **details) ->
         return ("\n".join("-- " + line for line in _NO_STATISTIC_FIXES[cause]),
                 "Nothing here runs as pasted: each option changes the query or the schema. "
                 + _CHANGE_PROCESS)
+    if cause == "default_selectivity" and details.get("subplan_value") and not details.get("expressions"):
+        sql = ("-- No statistics can describe a sub-plan's result: no ANALYZE or CREATE STATISTICS "
+               "changes this guess.\n"
+               "-- Where the low estimate leads to a bad plan above this node, change the query so "
+               "that it needs\n"
+               "-- no comparison with the sub-plan, e.g. the row with the minimum per key as\n"
+               "--   SELECT DISTINCT ON (key) ... ORDER BY key, value\n"
+               "-- or keep the sub-plan's results in a table of their own that is ANALYZEd.")
+        return sql, "Nothing here runs as pasted: it changes the query. " + _CHANGE_PROCESS
     if cause == "default_selectivity":
         return _expression_fix(table, qt, [e for e in details.get("expressions") or [] if e],
                                bool(details.get("aggregate")), details.get("table_parts"))
@@ -1761,6 +1811,15 @@ class PostgreSQL(Engine):
     # side is not a constant (a parameter, an InitPlan or SubPlan result, another column).
     NON_CONSTANT_DEFAULTS = {"inequality": "DEFAULT_INEQ_SEL", "equality_same_table": "DEFAULT_EQ_SEL"}
     NON_CONSTANT_SOURCE = "eqsel and scalarineqsel in src/backend/utils/adt/selfuncs.c"
+    # selfuncs.c: a sub-plan's result has no statistics. As a restriction, column = value is
+    # 1/n_distinct of the column (var_eq_non_const); as a join clause (a correlated sub-plan
+    # names the outer table) eqjoinsel divides by the larger of the two sides' distinct counts,
+    # the sub-plan side counting as DEFAULT_NUM_DISTINCT (get_variable_numdistinct).
+    NON_CONSTANT_GUESSES = {
+        "equality_subplan": "it guesses that the value is any one of the column's distinct values "
+                            "(1 / its distinct values, and at most 1/200 = DEFAULT_NUM_DISTINCT's "
+                            "share: var_eq_non_const and eqjoinsel in src/backend/utils/adt/selfuncs.c)",
+    }
     RECURSIVE_GUESSES = {
         "Recursive Union": (10.0, "the non-recursive term's rows plus 10 iterations of the recursive "
                                   "term's (cost_recursive_union in src/backend/optimizer/path/costsize.c: "
