@@ -23,6 +23,9 @@ from pathlib import Path
 
 ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT))
+sys.path.insert(0, str(ROOT / "tests"))
+
+from hostile_inputs import json_objects  # noqa: E402
 
 import planview  # noqa: E402
 from planview.errors import PlanParseError  # noqa: E402
@@ -98,14 +101,7 @@ def mutate_json(rng: random.Random, text: str) -> str:
         doc = json.loads(text)
     except ValueError:
         return text
-    nodes, todo = [], [doc]
-    while todo:
-        item = todo.pop()
-        if isinstance(item, dict):
-            nodes.append(item)
-            todo.extend(item.values())
-        elif isinstance(item, list):
-            todo.extend(item)
+    nodes = json_objects(doc)
     if not nodes:
         return text
     target = rng.choice(nodes)

@@ -1,4 +1,4 @@
-"""Small hostile inputs shared by the tests and bench/bench_limits.py."""
+"""Small hostile inputs, and the walk the fuzzers mutate with, shared by the tests and bench/."""
 
 from __future__ import annotations
 
@@ -17,3 +17,16 @@ def yaml_merge_bomb() -> str:
     lines = ["      l0: &l0 {k0: 1, k1: 2}"]
     lines += [f"      l{i}: &l{i} {{<<: [*l{i - 1}, *l{i - 1}], m{i}: 1}}" for i in range(1, 26)]
     return '- Plan:\n    Node Type: "Seq Scan"\n    Plan Rows: 1\n    X:\n' + "\n".join(lines) + "\n"
+
+
+def json_objects(doc) -> list[dict]:
+    """Every JSON object in a decoded document, without recursion: what a mutation may pick."""
+    objects, todo = [], [doc]
+    while todo:
+        item = todo.pop()
+        if isinstance(item, dict):
+            objects.append(item)
+            todo.extend(item.values())
+        elif isinstance(item, list):
+            todo.extend(item)
+    return objects

@@ -11,6 +11,7 @@ import json
 from pathlib import Path
 
 import pytest
+from hostile_inputs import json_objects
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
@@ -51,15 +52,7 @@ def seed_text(engine: str, index: int) -> tuple[str, str]:
 
 def mutate_json(doc, draw_ops):
     """Apply mutations to a JSON document: delete keys, swap values, wrong types."""
-    nodes = []
-    todo = [doc]
-    while todo:
-        item = todo.pop()
-        if isinstance(item, dict):
-            nodes.append(item)
-            todo.extend(item.values())
-        elif isinstance(item, list):
-            todo.extend(item)
+    nodes = json_objects(doc)
     for op, pick, value in draw_ops:
         if not nodes:
             break
