@@ -5,6 +5,8 @@ from __future__ import annotations
 import math
 from typing import Any
 
+from . import words
+
 REPORT_VERSION = 1
 
 
@@ -63,7 +65,31 @@ def node_record(node) -> dict[str, Any]:
         "workers_planned": node.workers_planned,
         "workers_launched": node.workers_launched,
         "buffers": {k: _clean(v) for k, v in node.buffers.items()},
+        "text": node_text(node),
     }
+
+
+def node_text(node) -> dict[str, str]:
+    """The node's numbers as every view prints them (planview/words.py decides the words)."""
+    own = node.own_log10_ratio if node.judged else None
+    return {
+        "id": f"#{node.id}",
+        "est": words.rows(node.est_total),
+        "actual": words.rows(node.actual_total),
+        "starts": words.rows(node.starts),
+        "error": words.error(node.log10_ratio, node.q_error),
+        "direction": words.direction(node.log10_ratio),
+        "added": words.added_words(own, node.own_rule == "join") if own is not None else "–",
+        "state": words.STATE_WORDS[_state(node)],
+    }
+
+
+def _state(node) -> str:
+    if node.origin:
+        return "origin"
+    if node.inherits_from:
+        return "inherited"
+    return "judged" if node.judged else "neutral"
 
 
 def finding_record(finding) -> dict[str, Any]:
@@ -82,6 +108,15 @@ def finding_record(finding) -> dict[str, Any]:
         "fix": finding.fix,
         "caution": finding.caution,
         "impact": finding.impact,
+        "text": {
+            "rank": f"origin {finding.rank}",
+            "cause": words.cause(finding.cause),
+            "added": words.error((1 if finding.direction == "under" else -1) * math.log10(max(1.0, finding.own_q_error)),
+                                 finding.own_q_error),
+            "in_all": words.error((1 if finding.direction == "under" else -1) * math.log10(max(1.0, finding.q_error)),
+                                  finding.q_error),
+            "also": [words.cause(c) for c in finding.also],
+        },
     }
 
 
@@ -93,6 +128,7 @@ def build_report(plan) -> dict[str, Any]:
         "engine_version": plan.engine_version,
         "has_actuals": plan.has_actuals,
         "threshold": plan.options.threshold,
+        "words": words.vocabulary(),
         "notes": list(plan.notes),
         "statements": [
             {"root": s.root, "planning_ms": _clean(s.planning_ms),
