@@ -13,6 +13,7 @@ from .check import CheckOptions, check
 from .errors import PlanParseError
 from .index import PlanIndex, index_of
 from .model import Finding, ParsedPlan, PlanNode, Statement
+from .timing import PlanTimes, time_plan
 from .source import check_format_size, read_text, without_lone_surrogates
 
 READER_ERROR = "could not read this plan: the reader failed on it"
@@ -39,6 +40,8 @@ class Plan:
         """The engine's tables, defaults, dialect and fixes, which the diagnosis is handed."""
         self.findings: list[Finding] = check(parsed, engine_module, options)
         self.index: PlanIndex = index_of(parsed)
+        self.times: PlanTimes = time_plan(parsed, self.engine_spec)
+        """Time per operator, with its inputs and its own (`planview.timing`)."""
         from .diagnose import diagnose
 
         diagnose(self)

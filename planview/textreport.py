@@ -21,6 +21,12 @@ def _num(value) -> str:
     return f"{value:,.2f}"
 
 
+def _ms(value) -> str:
+    if value is None:
+        return "-"
+    return f"{value:,.1f}" if value >= 100 else f"{value:,.3f}"
+
+
 def _mark(node: dict, by_id: dict) -> str:
     if node["origin"]:
         return "<< origin"
@@ -45,14 +51,17 @@ def render(plan, width: int | None = None, color: bool = False) -> str:
     width = width or shutil.get_terminal_size((120, 24)).columns
     nodes = report["nodes"]
     by_id = {n["id"]: n for n in nodes}
-    label_width = max(24, min(60, width - 68))
+    timed = any(n.get("total_ms") is not None for n in nodes)
+    label_width = max(24, min(60, width - 68 - (22 if timed else 0)))
     lines = [
         visible(f"planview: {report['engine']} ({report['format']}"
         + (f", version {report['engine_version']}" if report["engine_version"] else "")
         + f"), {len(nodes)} operators, {len(report['findings'])} origin(s) at q >= {report['threshold']:g}"),
     ]
     lines += [visible(f"note: {note}") for note in report["notes"]]
-    header = f"{'#':>4}  {'operator':<{label_width}} {'est total':>11} {'actual':>11} {'starts':>8} {'q-error':>9} {'dir':<5}  mark"
+    times_head = f" {'total ms':>10} {'self ms':>10}" if timed else ""
+    header = (f"{'#':>4}  {'operator':<{label_width}} {'est total':>11} {'actual':>11} {'starts':>8}"
+              f"{times_head} {'q-error':>9} {'dir':<5}  mark")
     lines += [header, "-" * min(width, len(header) + 20)]
     for node in nodes:
         prefix = "  " * node["depth"]
@@ -65,12 +74,21 @@ def render(plan, width: int | None = None, color: bool = False) -> str:
         q = node["q_error"]
         q_text = "-" if q is None else (f"{q:,.1f}" if q < 1000 else f"{q:.2e}")
         row = visible(f"{node['id']:>4}  {label:<{label_width}} {_num(node['est_total']):>11} "
-                      f"{_num(node['actual_total']):>11} {_num(node['starts']):>8} {q_text:>9} "
+                      f"{_num(node['actual_total']):>11} {_num(node['starts']):>8}"
+                      + (f" {_ms(node.get('total_ms')):>10} {_ms(node.get('self_ms')):>10}" if timed else "")
+                      + f" {q_text:>9} "
                       f"{_direction(node):<5}  {_mark(node, by_id)}").rstrip()
         if color and node["origin"]:
             row = f"\x1b[1m{row}\x1b[0m"
         lines.append(row)
     below: list[str] = []
+    if report.get("slowest"):
+        below += ["", "Slowest operators (own time, in all starts; share of all operators' own time):"]
+        for item in report["slowest"]:
+            share = f"{item['share'] * 100:.1f}%" if item.get("share") is not None else "-"
+            below.append(f"{item['rank']}. #{item['node']} {item['label']}: {_ms(item['self_ms'])} ms own, "
+                         f"{share}; {_ms(item['total_ms'])} ms with its inputs"
+                         + (" (an origin)" if item.get("origin") else ""))
     if report["findings"]:
         below += ["", "Origins (where an error was introduced), most impact first:"]
     for finding in report["findings"]:
@@ -86,6 +104,11 @@ def render(plan, width: int | None = None, color: bool = False) -> str:
                          + (f"; also: {', '.join(finding['also'])}" if finding["also"] else ""))
         if finding["summary"]:
             below.append(f"   {finding['summary']}")
+        impact = finding.get("impact") or {}
+        if isinstance(impact, dict) and impact.get("origin_ms") is not None:
+            share = impact.get("origin_share")
+            below.append(f"   time under it: {_ms(impact['origin_ms'])} ms"
+                         + (f" ({share * 100:.0f}% of the query)" if share is not None else ""))
         if finding["fix"]:
             below.append("   fix:")
             below += [f"     {line}" for line in finding["fix"].splitlines()]
