@@ -13,8 +13,8 @@ from .check import CheckOptions, check
 from .errors import PlanParseError
 from .index import PlanIndex, index_of
 from .model import Finding, ParsedPlan, PlanNode, Statement
-from .timing import PlanTimes, time_plan
 from .source import check_format_size, read_text, without_lone_surrogates
+from .timing import PlanTimes, time_plan
 
 READER_ERROR = "could not read this plan: the reader failed on it"
 
