@@ -250,6 +250,9 @@ class _Builder:
                 entries.append(("table", item["table"], f"{where}.table"))
             elif "block-nl-join" in item:
                 entries.append(("bnl", item["block-nl-join"], f"{where}.block-nl-join"))
+            elif isinstance(item.get("read_sorted_file"), dict) \
+                    and isinstance(item["read_sorted_file"].get("filesort"), dict):
+                entries.append(("sorted", item["read_sorted_file"], f"{where}.read_sorted_file"))
             elif RANGE_CHECKED in item:
                 entries.append(("range_checked", item[RANGE_CHECKED], f"{where}.{RANGE_CHECKED}"))
             elif "duplicates_removal" in item:
@@ -358,6 +361,8 @@ class _Builder:
     def member(self, kind: str, raw: Any, parent, path, depth, relationship) -> int:
         if kind == "table":
             return self.table(raw, parent, path, depth, relationship)
+        if kind == "sorted":  # the first table, sorted before the join reads it
+            return self.sorted_block("filesort", raw, parent, path, depth, relationship, None)
         wrapper = RANGE_CHECKED if kind == "range_checked" else "block-nl-join"
         if not isinstance(raw, dict) or not isinstance(raw.get("table"), dict):
             raise self.error(f"\"{wrapper}\" without a \"table\"", path)
