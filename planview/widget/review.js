@@ -385,7 +385,7 @@ class Review {
   slowestList() {
     const items = this.plan.report.slowest || [];
     if (!items.length) return null;
-    return el("details", { class: "pv-slowest", open: "" },
+    const box = el("details", { class: "pv-slowest" },
       el("summary", {}, "Slowest operators, by own time"),
       el("ol", {}, items.map((item) => el("li", { "data-node": String(item.node) },
         this.nodeLink(item.node, "pv-slowest-link"), " ",
@@ -393,6 +393,8 @@ class Review {
         item.share !== null && item.share !== undefined ? ` (${(item.share * 100).toFixed(1)}%)` : "",
         `, ${formatMs(item.total_ms)} with its inputs`,
         item.origin ? el("span", { class: "pv-slowest-origin" }, " · origin") : ""))));
+    box.open = true;
+    return box;
   }
 
   buildToolbar() {
