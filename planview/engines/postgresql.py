@@ -1959,13 +1959,15 @@ class PostgreSQL(Engine):
             cte = self.cte_read(node, nodes, parsed)
             if cte is not None:
                 found.append(cte)
-        if node.conditions:
+        for condition in node.conditions:
+            text = condition.text
+            if "$" not in text and "InitPlan" not in text:
+                continue
             names = index_of(parsed).first_by(_init_plan_key)
-            for condition in node.conditions:
-                for token in _PARAM_TOKEN.findall(condition.text):
-                    init_plan = names.get((node.statement, token))
-                    if init_plan is not None and init_plan not in found:
-                        found.append(init_plan)
+            for token in _PARAM_TOKEN.findall(text):
+                init_plan = names.get((node.statement, token))
+                if init_plan is not None and init_plan not in found:
+                    found.append(init_plan)
         return tuple(found)
 
     def suggest_fix(self, cause, table, columns=(), **details):
