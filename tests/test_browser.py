@@ -211,6 +211,9 @@ def test_export_page_shows_own_time_per_row_and_the_slowest_operators(browser, t
         page.locator(f'.pv-row[data-id="{first["node"]}"]').click()
         numbers = page.locator(".pv-detail .pv-numbers").inner_text()
         assert "own time, in all / per start" in numbers and "time with inputs" in numbers
+        origin = report["findings"][0]
+        page.locator(f'.pv-row[data-id="{origin["node"]}"]').click()
+        assert "Time under it" in page.locator(".pv-detail .pv-impact-time").inner_text()
         assert not errors
 
 

@@ -815,6 +815,12 @@ class Review {
       parts.push(el("p", { class: "pv-impact" }, el("strong", {}, "Impact: "),
         impact.ms !== null && impact.ms !== undefined ? `${formatMs(impact.ms)}. ` : "", impact.text || ""));
     }
+    if (impact.origin_ms !== null && impact.origin_ms !== undefined) {
+      parts.push(el("p", { class: "pv-impact-time" }, el("strong", {}, "Time under it: "),
+        `${formatMs(impact.origin_ms)} with its inputs`,
+        impact.origin_share !== null && impact.origin_share !== undefined
+          ? `, ${Math.round(impact.origin_share * 100)}% of the query` : ""));
+    }
     if (finding.fix) {
       parts.push(el("h4", {}, "Suggested fix"));
       const code = el("pre", { class: "pv-fix" }, el("code", {}, textBlock(finding.fix)));
