@@ -19,8 +19,8 @@ def _clean(value: Any) -> Any:
     return value
 
 
-def node_record(node) -> dict[str, Any]:
-    return {
+def node_record(node, times=None) -> dict[str, Any]:
+    record = {
         "id": node.id,
         "parent": node.parent,
         "children": list(node.children),
@@ -67,6 +67,43 @@ def node_record(node) -> dict[str, Any]:
         "buffers": {k: _clean(v) for k, v in node.buffers.items()},
         "text": node_text(node),
     }
+    if times is not None:
+        i = node.id
+        record["total_ms"] = _ms(times.total_ms[i])
+        record["self_ms"] = _ms(times.self_ms[i])
+        record["total_ms_per_start"] = _ms(times.total_ms_per_start[i])
+        record["self_ms_per_start"] = _ms(times.self_ms_per_start[i])
+        record["time_note"] = times.notes.get(i)
+    return record
+
+
+def _ms(value: float | None) -> float | None:
+    """A time for reading: microseconds are the finest any engine prints."""
+    return None if value is None else _clean(round(value, 4))
+
+
+def slowest_records(plan) -> list[dict[str, Any]]:
+    """The operators with the largest own time, with their share of the plan's operator time
+    (the sum of every operator's own time)."""
+    times = plan.times
+    whole = times.operator_ms()
+    out = []
+    for rank, node_id in enumerate(times.slowest(), 1):
+        node = plan.nodes[node_id]
+        own = times.self_ms[node_id]
+        out.append({"rank": rank, "node": node_id, "label": node.label,
+                    "self_ms": _ms(own), "total_ms": _ms(times.total_ms[node_id]),
+                    "self_ms_per_start": _ms(times.self_ms_per_start[node_id]),
+                    "starts": _clean(node.starts),
+                    "share": round(own / whole, 4) if whole else None,
+                    "origin": node.origin})
+    return out
+
+
+def _statement_times(plan, statement) -> dict[str, Any]:
+    times = plan.times
+    root = statement.root
+    return {"total_ms": _ms(times.total_ms[root]) if root < len(times.total_ms) else None}
 
 
 def node_text(node) -> dict[str, str]:
@@ -132,9 +169,13 @@ def build_report(plan) -> dict[str, Any]:
         "notes": list(plan.notes),
         "statements": [
             {"root": s.root, "planning_ms": _clean(s.planning_ms),
-             "execution_ms": _clean(s.execution_ms), "query_text": s.query_text}
+             "execution_ms": _clean(s.execution_ms), "query_text": s.query_text,
+             **_statement_times(plan, s)}
             for s in plan.statements
         ],
-        "nodes": [node_record(n) for n in plan.nodes],
+        "nodes": [node_record(n, plan.times) for n in plan.nodes],
         "findings": [finding_record(f) for f in plan.findings],
+        "slowest": slowest_records(plan),
+        "operator_ms": _ms(plan.times.operator_ms()),
+        "time_rules": [list(rule) for rule in plan.engine_spec.TIME_RULES],
     }

@@ -12,6 +12,12 @@ from . import words
 from .inert import visible
 
 
+def _ms(value) -> str:
+    if value is None:
+        return "-"
+    return f"{value:,.1f}" if value >= 100 else f"{value:,.3f}"
+
+
 def _mark(node: dict, by_id: dict) -> str:
     if node["origin"]:
         return "<< error introduced here"
@@ -27,7 +33,8 @@ def render(plan, width: int | None = None, color: bool = False) -> str:
     width = width or shutil.get_terminal_size((120, 24)).columns
     nodes = report["nodes"]
     by_id = {n["id"]: n for n in nodes}
-    label_width = max(24, min(60, width - 68))
+    timed = any(n.get("total_ms") is not None for n in nodes)
+    label_width = max(24, min(60, width - 68 - (22 if timed else 0)))
     lines = [
         visible(f"planview: {report['engine']} ({report['format']}"
         + (f", version {report['engine_version']}" if report["engine_version"] else "")
@@ -35,8 +42,9 @@ def render(plan, width: int | None = None, color: bool = False) -> str:
         f"at q-error >= {report['threshold']:g}"),
     ]
     lines += [visible(f"note: {note}") for note in report["notes"]]
-    header = (f"{'id':>5}  {'operator':<{label_width}} {'est total':>11} {'actual':>11} {'starts':>8} "
-              f"{'error':>20}  mark")
+    times_head = f" {'total ms':>10} {'self ms':>10}" if timed else ""
+    header = (f"{'id':>5}  {'operator':<{label_width}} {'est total':>11} {'actual':>11} {'starts':>8}"
+              f"{times_head} {'error':>20}  mark")
     lines += [header, "-" * min(width, len(header) + 20)]
     for node in nodes:
         prefix = "  " * node["depth"]
@@ -48,12 +56,21 @@ def render(plan, width: int | None = None, color: bool = False) -> str:
             label = label[: label_width - 1] + "~"
         text = node["text"]
         row = visible(f"{text['id']:>5}  {label:<{label_width}} {text['est']:>11} "
-                      f"{text['actual']:>11} {text['starts']:>8} {text['error']:>20}  "
+                      f"{text['actual']:>11} {text['starts']:>8}"
+                      + (f" {_ms(node.get('total_ms')):>10} {_ms(node.get('self_ms')):>10}" if timed else "")
+                      + f" {text['error']:>20}  "
                       f"{_mark(node, by_id)}").rstrip()
         if color and node["origin"]:
             row = f"\x1b[1m{row}\x1b[0m"
         lines.append(row)
     below: list[str] = []
+    if report.get("slowest"):
+        below += ["", "Slowest operators (own time, in all starts; share of all operators' own time):"]
+        for item in report["slowest"]:
+            share = f"{item['share'] * 100:.1f}%" if item.get("share") is not None else "-"
+            below.append(f"{item['rank']}. #{item['node']} {item['label']}: {_ms(item['self_ms'])} ms own, "
+                         f"{share}; {_ms(item['total_ms'])} ms with its inputs"
+                         + (" (an origin)" if item.get("origin") else ""))
     if report["findings"]:
         below += ["", "Origins (where an error was introduced), most impact first:"]
     cautions: dict[str, int] = {}
@@ -69,6 +86,11 @@ def render(plan, width: int | None = None, color: bool = False) -> str:
                          + (f"; also: {', '.join(text['also'])}" if text["also"] else ""))
         if finding["summary"]:
             below.append(f"   {finding['summary']}")
+        impact = finding.get("impact") or {}
+        if isinstance(impact, dict) and impact.get("origin_ms") is not None:
+            share = impact.get("origin_share")
+            below.append(f"   time under it: {_ms(impact['origin_ms'])} ms"
+                         + (f" ({share * 100:.0f}% of the query)" if share is not None else ""))
         if finding["fix"]:
             below.append("   fix:")
             below += [f"     {line}" for line in finding["fix"].splitlines()]
