@@ -1,0 +1,370 @@
+"""Many plans at once: a server log or a folder into one table, one row per node and per query.
+
+The review of one entry is a pure function (`review_entry`) of the entry's text: the
+single-plan review (`planview.load`) and a flattening of its report into rows. So the work is
+spread over processes here, and over a Dask cluster in `planview.fleet.dask_run`, without either
+knowing more than that function.
+
+Memory: the entries are read as a stream (`planview.fleet.logread`), at most a few chunks of them
+are in flight at a time, and `write_batch` appends each chunk's rows to the Parquet or CSV file
+as it comes back, so its memory stays flat however long the log; `batch()` returns a
+DataFrame, which of course holds every row.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import os
+import sys
+from collections import deque
+from concurrent.futures import ProcessPoolExecutor
+from dataclasses import dataclass, field
+from typing import Any, Iterable, Iterator
+
+from ..errors import PlanviewError
+from .logread import Entry, Unreadable, fingerprint, iter_entries
+
+# the table's columns, in order, with their Arrow types (one schema for every chunk)
+COLUMNS: tuple[tuple[str, str], ...] = (
+    ("row", "string"),            # "query" or "node"
+    ("query_id", "string"),       # file:line of the entry
+    ("fingerprint", "string"),
+    ("source", "string"),
+    ("line", "int64"),
+    ("log_time", "string"),
+    ("pid", "int64"),
+    ("duration_ms", "float64"),
+    ("engine", "string"),
+    ("format", "string"),
+    ("statement", "int64"),
+    ("node", "int64"),
+    ("parent", "int64"),
+    ("position", "string"),       # child indexes from the root, "0.1.0"
+    ("depth", "int64"),
+    ("operator", "string"),
+    ("relation", "string"),
+    ("schema", "string"),
+    ("alias", "string"),
+    ("index_name", "string"),
+    ("est_rows", "float64"),
+    ("actual_rows", "float64"),
+    ("starts", "float64"),
+    ("est_total", "float64"),
+    ("actual_total", "float64"),
+    ("q_error", "float64"),
+    ("own_q_error", "float64"),
+    ("judged", "bool"),
+    ("origin", "bool"),
+    ("direction", "string"),
+    ("cause", "string"),
+    ("confidence", "float64"),
+    ("table", "string"),
+    ("columns", "string"),
+    ("fix", "string"),
+    ("caution", "string"),
+    ("actual_total_ms", "float64"),
+    ("impact_ms", "float64"),
+    # per query
+    ("query_text", "string"),
+    ("shape", "string"),          # a digest of the tree's operators and relations
+    ("nodes", "int64"),
+    ("judged_nodes", "int64"),
+    ("origins", "int64"),
+    ("worst_q_error", "float64"),
+    ("execution_ms", "float64"),
+)
+COLUMN_NAMES = tuple(name for name, _ in COLUMNS)
+
+
+@dataclass
+class BatchResult:
+    """The rows of a batch and what could not be read."""
+
+    rows: list[dict[str, Any]] = field(default_factory=list)
+    unreadable: list[Unreadable] = field(default_factory=list)
+    entries: int = 0
+
+    def frame(self):
+        return rows_frame(self.rows, self.unreadable)
+
+
+def _position_paths(nodes: list[dict]) -> list[str]:
+    """Each node's place as child indexes from its statement's root ("0.1.0"); nodes come in
+    pre-order, so a parent's place is known before its children's."""
+    paths = [""] * len(nodes)
+    for node in nodes:
+        if node["parent"] is None:
+            paths[node["id"]] = str(node["statement"])
+        for i, child in enumerate(node["children"]):
+            paths[child] = f"{paths[node['id']]}.{i}"
+    return paths
+
+
+def shape_of(nodes: list[dict]) -> str:
+    """A digest of the tree's shape: each node's place, operator and relation."""
+    paths = _position_paths(nodes)
+    digest = hashlib.sha1()
+    for node, path in zip(nodes, paths):
+        digest.update(f"{path}|{node['operator']}|{node.get('relation') or ''}\n".encode())
+    return digest.hexdigest()[:16]
+
+
+def review_entry(entry: Entry, threshold: float = 10.0) -> list[dict[str, Any]] | Unreadable:
+    """The rows of one entry (the query row first), or why it could not be read."""
+    from ..errors import PlanParseError
+    from ..plan import load
+
+    try:
+        plan = load(entry.text, engine=entry.engine, fmt=entry.fmt, threshold=threshold)
+    except PlanParseError as exc:
+        line = entry.line
+        if getattr(exc, "line", None):
+            line = (entry.text_line or entry.line) + exc.line - 1
+        return Unreadable(entry.source, line, str(exc))
+    except Exception as exc:  # one bad entry never stops the batch; the reason is kept
+        return Unreadable(entry.source, entry.line, f"internal error ({type(exc).__name__}: {exc})")
+    report = plan.report()
+    nodes = report["nodes"]
+    findings = {f["node"]: f for f in report["findings"]}
+    statements = report["statements"]
+    query_text = entry.query_text or next((s["query_text"] for s in statements if s.get("query_text")), None)
+    common = {
+        "query_id": entry.query_id, "fingerprint": fingerprint(query_text), "source": entry.source,
+        "line": entry.line, "log_time": entry.log_time, "pid": entry.pid,
+        "duration_ms": entry.duration_ms, "engine": report["engine"], "format": report["format"],
+    }
+    paths = _position_paths(nodes)
+    judged = [n for n in nodes if n.get("judged")]
+    query = dict(common, row="query", query_text=query_text, shape=shape_of(nodes), nodes=len(nodes),
+                 judged_nodes=len(judged), origins=len(findings),
+                 worst_q_error=max((f["own_q_error"] for f in findings.values()), default=None),
+                 execution_ms=next((s["execution_ms"] for s in statements
+                                    if s.get("execution_ms") is not None), None))
+    rows = [query]
+    for node, path in zip(nodes, paths):
+        found = findings.get(node["id"])
+        evidence = (found or {}).get("evidence") or {}
+        impact = (found or {}).get("impact") or {}
+        columns = evidence.get("columns")
+        rows.append(dict(
+            common, row="node", statement=node["statement"], node=node["id"], parent=node["parent"],
+            position=path, depth=node["depth"], operator=node["operator"], relation=node.get("relation"),
+            schema=node.get("schema"), alias=node.get("alias"), index_name=node.get("index"),
+            est_rows=node.get("est_rows"), actual_rows=node.get("actual_rows"), starts=node.get("starts"),
+            est_total=node.get("est_total"), actual_total=node.get("actual_total"),
+            q_error=node.get("q_error"), judged=bool(node.get("judged")), origin=bool(node.get("origin")),
+            own_q_error=found["own_q_error"] if found else None,
+            direction=found["direction"] if found else None,
+            cause=found["cause"] if found else None,
+            confidence=found["confidence"] if found else None,
+            table=evidence.get("table") if found else None,
+            columns=",".join(columns) if found and isinstance(columns, list) else None,
+            fix=found.get("fix") if found else None, caution=found.get("caution") if found else None,
+            actual_total_ms=node.get("actual_total_ms"), impact_ms=impact.get("ms"),
+        ))
+    return rows
+
+
+def review_chunk(entries: list[Entry], threshold: float = 10.0) -> tuple[list[dict], list[Unreadable]]:
+    rows: list[dict] = []
+    bad: list[Unreadable] = []
+    for entry in entries:
+        result = review_entry(entry, threshold)
+        if isinstance(result, Unreadable):
+            bad.append(result)
+        else:
+            rows.extend(result)
+    return rows, bad
+
+
+def _chunks(items: Iterable[Entry | Unreadable], size: int) -> Iterator[tuple[list[Entry], list[Unreadable]]]:
+    entries: list[Entry] = []
+    bad: list[Unreadable] = []
+    for item in items:
+        if isinstance(item, Unreadable):
+            bad.append(item)
+        else:
+            entries.append(item)
+        if len(entries) >= size or len(bad) >= size:
+            yield entries, bad
+            entries, bad = [], []
+    if entries or bad:
+        yield entries, bad
+
+
+def default_workers() -> int:
+    try:
+        return max(1, len(os.sched_getaffinity(0)))
+    except AttributeError:
+        return max(1, os.cpu_count() or 1)
+
+
+def run_batch(path, *, workers: int | None = None, threshold: float = 10.0, chunk: int = 32,
+              progress: bool | None = None) -> Iterator[tuple[list[dict], list[Unreadable], int]]:
+    """Review every entry under `path`; yields (rows, unreadable, entries reviewed) per chunk, in
+    the log's order. At most ``2 × workers`` chunks are in flight, so memory stays flat."""
+    if not (isinstance(threshold, (int, float)) and threshold > 1):
+        raise PlanviewError(f"threshold must be a q-error above 1, got {threshold!r}")
+    if not os.path.exists(path):
+        raise PlanviewError(f"{os.fspath(path)}: no such file or folder")
+    workers = default_workers() if workers is None else max(1, int(workers))
+    bar = _progress(path, progress)
+    chunks = _chunks(iter_entries(path), chunk)
+    try:
+        if workers == 1:
+            for entries, bad in chunks:
+                rows, more = review_chunk(entries, threshold)
+                bar.update(len(entries) + len(bad))
+                yield rows, bad + more, len(entries)
+            return
+        with ProcessPoolExecutor(max_workers=workers) as pool:
+            flight: deque = deque()
+            for entries, bad in chunks:
+                flight.append((pool.submit(review_chunk, entries, threshold), bad, len(entries)))
+                while len(flight) >= 2 * workers:
+                    yield _collect(flight.popleft(), bar)
+            while flight:
+                yield _collect(flight.popleft(), bar)
+    finally:
+        bar.close()
+
+
+def _collect(item, bar):
+    future, bad, count = item
+    rows, more = future.result()
+    bar.update(count + len(bad))
+    return rows, bad + more, count
+
+
+class _NoBar:
+    def update(self, n):
+        pass
+
+    def close(self):
+        pass
+
+
+def _progress(path, progress: bool | None):
+    """tqdm on standard error for a long run (a log over 1 MB or a folder), unless told otherwise."""
+    if progress is None:
+        progress = sys.stderr.isatty() and _large(path)
+    if not progress:
+        return _NoBar()
+    from tqdm import tqdm
+
+    return tqdm(unit=" entries", desc="planview batch", file=sys.stderr, mininterval=0.5)
+
+
+def _large(path) -> bool:
+    try:
+        return os.path.isdir(path) or os.path.getsize(path) > 1_000_000
+    except OSError:
+        return False
+
+
+def collect(path, **options) -> BatchResult:
+    result = BatchResult()
+    for rows, bad, count in run_batch(path, **options):
+        result.rows.extend(rows)
+        result.unreadable.extend(bad)
+        result.entries += count
+    return result
+
+
+def rows_frame(rows: list[dict], unreadable: list[Unreadable] | None = None):
+    """The rows as a pandas DataFrame with every column, typed (missing values as NA)."""
+    import pandas as pd
+
+    frame = pd.DataFrame.from_records(rows, columns=list(COLUMN_NAMES))
+    for name, kind in COLUMNS:
+        if kind == "int64":
+            frame[name] = frame[name].astype("Int64")
+        elif kind == "float64":
+            frame[name] = frame[name].astype("Float64")
+        elif kind == "bool":
+            frame[name] = frame[name].astype("boolean")
+        else:
+            frame[name] = frame[name].astype("string")
+    frame.attrs["unreadable"] = [str(u) for u in (unreadable or [])]
+    return frame
+
+
+def batch(path, *, workers: int | None = None, threshold: float = 10.0, progress: bool | None = False):
+    """Review every plan under `path` (a server log with auto_explain output, a plan file, or a
+    folder of either) into one pandas DataFrame: one row a query (``row == "query"``) and one
+    row a node (``row == "node"``). Entries that could not be read are listed, with file and
+    line, in ``frame.attrs["unreadable"]``."""
+    return collect(path, workers=workers, threshold=threshold, progress=progress).frame()
+
+
+def arrow_schema():
+    import pyarrow as pa
+
+    types = {"string": pa.string(), "int64": pa.int64(), "float64": pa.float64(), "bool": pa.bool_()}
+    return pa.schema([(name, types[kind]) for name, kind in COLUMNS])
+
+
+def arrow_table(rows: list[dict]):
+    import pyarrow as pa
+
+    schema = arrow_schema()
+    return pa.table({name: pa.array([r.get(name) for r in rows], type=schema.field(name).type)
+                     for name in COLUMN_NAMES}, schema=schema)
+
+
+@dataclass
+class BatchTotals:
+    entries: int = 0
+    queries: int = 0
+    nodes: int = 0
+    origins: int = 0
+    worst_q_error: float = 1.0
+    unreadable: list[Unreadable] = field(default_factory=list)
+
+
+def write_batch(path, out, *, workers: int | None = None, threshold: float = 10.0,
+                progress: bool | None = None, on_unreadable=None, keep=None) -> BatchTotals:
+    """Review `path` and write the table to `out` (``.parquet`` through pyarrow, ``.csv``), a chunk
+    at a time. `on_unreadable` is called with each unreadable entry as it is found; `keep`, when
+    given, is handed each chunk's rows (the summary keeps what it needs from them)."""
+    out = os.fspath(out)
+    kind = "csv" if out.lower().endswith(".csv") else "parquet" if out.lower().endswith((".parquet", ".pq")) else None
+    if kind is None:
+        raise PlanviewError(f"--out {out}: the file name must end in .parquet or .csv")
+    totals = BatchTotals()
+    writer = None
+    first = True
+    try:
+        if kind == "parquet":
+            import pyarrow.parquet as pq
+
+            writer = pq.ParquetWriter(out, arrow_schema())
+        for rows, bad, count in run_batch(path, workers=workers, threshold=threshold, progress=progress):
+            totals.entries += count
+            for item in bad:
+                totals.unreadable.append(item)
+                if on_unreadable:
+                    on_unreadable(item)
+            for row in rows:
+                if row["row"] == "query":
+                    totals.queries += 1
+                    totals.origins += row["origins"] or 0
+                    if row["worst_q_error"] is not None:
+                        totals.worst_q_error = max(totals.worst_q_error, row["worst_q_error"])
+                else:
+                    totals.nodes += 1
+            if keep is not None:
+                keep(rows)
+            if not rows:
+                continue
+            if writer is not None:
+                writer.write_table(arrow_table(rows))
+            else:
+                rows_frame(rows).to_csv(out, mode="w" if first else "a", header=first, index=False)
+            first = False
+        if kind == "csv" and first:
+            rows_frame([]).to_csv(out, index=False)
+    finally:
+        if writer is not None:
+            writer.close()
+    return totals
