@@ -66,6 +66,25 @@ def workload(round_no: int) -> list[str]:
     return statements
 
 
+SHAPE_SETTING = "SET enable_hashjoin = off"
+"""Set in the second round before the join: the same query planned another way by the engine."""
+
+
+def shape_of(plan_json: list) -> tuple:
+    """Each operator's node type and relation, in pre-order, from PostgreSQL's own JSON."""
+    out = []
+    todo = [doc["Plan"] for doc in reversed(plan_json)]
+    while todo:
+        node = todo.pop()
+        out.append((node["Node Type"], node.get("Relation Name")))
+        todo.extend(reversed(node.get("Plans", [])))
+    return tuple(out)
+
+
+def _settings_for(round_no: int, i: int) -> list[str]:
+    return [SHAPE_SETTING] if round_no == 1 and i % 4 == 1 else []
+
+
 def count_operators(plan_json: list) -> int:
     """Operators in PostgreSQL's own EXPLAIN (FORMAT JSON) output, counted here."""
     count = 0
@@ -86,6 +105,8 @@ class CapturedLog:
     json_entries: int = 0
     operators: int = 0
     operators_per_statement: list[int] = field(default_factory=list)
+    templates: list[int] = field(default_factory=list)        # which of the 4 statement shapes
+    engine_shapes: list[tuple] = field(default_factory=list)  # from EXPLAIN (FORMAT JSON)
     sql: list[str] = field(default_factory=list)
 
 
@@ -117,9 +138,14 @@ def capture(server: PgServer, out: Path) -> CapturedLog:
     with server.connect(db, autocommit=True) as conn:
         conn.execute("SET auto_explain.log_min_duration = -1")
         for round_no in range(len(PREFIXES)):
-            for sql in workload(round_no):
+            for i, sql in enumerate(workload(round_no)):
+                for setting in _settings_for(round_no, i):
+                    conn.execute(setting)
                 (doc,), = conn.execute(f"EXPLAIN (FORMAT JSON) {sql}").fetchall()
-                shapes[sql] = count_operators(doc if isinstance(doc, list) else json.loads(doc))
+                doc = doc if isinstance(doc, list) else json.loads(doc)
+                shapes[sql] = (count_operators(doc), shape_of(doc))
+                conn.execute("RESET ALL")
+                conn.execute("SET auto_explain.log_min_duration = -1")
     _wait_for_log(server)
     start = server.logfile.stat().st_size
     for round_no, prefix in enumerate(PREFIXES):
@@ -133,11 +159,17 @@ def capture(server: PgServer, out: Path) -> CapturedLog:
             for i, sql in enumerate(workload(round_no)):
                 fmt = "json" if i % 3 else "text"
                 conn.execute(f"SET auto_explain.log_format = {fmt}")
+                for setting in _settings_for(round_no, i):
+                    conn.execute(setting)
                 conn.execute(sql).fetchall()
+                if _settings_for(round_no, i):
+                    conn.execute("RESET enable_hashjoin")
                 captured.statements += 1
                 captured.sql.append(sql)
-                captured.operators_per_statement.append(shapes[sql])
-                captured.operators += shapes[sql]
+                captured.templates.append(i % 4)
+                captured.operators_per_statement.append(shapes[sql][0])
+                captured.engine_shapes.append(shapes[sql][1])
+                captured.operators += shapes[sql][0]
                 if fmt == "json":
                     captured.json_entries += 1
                 else:

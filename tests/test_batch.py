@@ -269,3 +269,40 @@ def test_gate_fails_on_the_misestimate_only_against_the_fixed_baseline(captured,
 def _cli(*args):
     return subprocess.run([sys.executable, "-m", "planview.cli", *args], capture_output=True, text=True,
                           cwd=ROOT, timeout=300, env={"PYTHONPATH": str(ROOT), "PATH": "/usr/bin:/bin"})
+
+
+# -- the summary --------------------------------------------------------------------------
+
+def test_summary_merges_the_fix_and_finds_the_shape_change(captured, tmp_path):
+    from planview.fleet.summary import summary
+
+    log, _ = captured
+    frame = planview.batch(log.path, workers=1)
+    report = summary(frame).report()
+    planted = [i for i, s in enumerate(log.sql) if "postcode = 'pc" in s]
+    pets = [t for t in report["targets"] if t["table"].endswith("pets") and t["cause"] == "correlation"]
+    assert len(pets) == 1  # one fix for the pair, however many queries misestimate it
+    target = pets[0]
+    assert target["entries"] == len(planted)
+    assert target["queries"] == len({log.templates[i] for i in planted})  # distinct statement shapes
+    assert target["fix"].count("CREATE STATISTICS") == 1 and '"postcode", "town"' in target["fix"]
+    assert "SHARE UPDATE EXCLUSIVE" in target["caution"] and report["statistics_caution"]
+    # a plan shape changed for a fingerprint exactly where PostgreSQL's own JSON shows it did
+    by_template: dict[int, set] = {}
+    for template, shape in zip(log.templates, log.engine_shapes):
+        by_template.setdefault(template, set()).add(shape)
+    changed = {t for t, shapes in by_template.items() if len(shapes) > 1}
+    assert changed, "enable_hashjoin = off planned the join the same way: nothing to find"
+    assert len(report["shape_changes"]) == len(changed)
+    # the percentiles, against numpy's over the same judged q-errors
+    import numpy as np
+
+    judged = frame[(frame["row"] == "node") & frame["judged"].fillna(False)]["q_error"].astype(float).to_numpy()
+    for share, key in ((50, "median"), (90, "p90"), (99, "p99")):
+        assert report["q_error"][key] == pytest.approx(np.percentile(judged, share))
+    md = summary(frame).to_markdown(tmp_path / "s.md")
+    assert "1.81" in md and "51.8" in md and "CREATE STATISTICS" in md
+    page = summary(frame).to_html(tmp_path / "s.html")
+    assert "plotly" in page.lower() and "JOB-LIGHT" in page
+    run = _cli("batch", str(log.path), "--summary", str(tmp_path / "cli.md"), "--no-progress")
+    assert run.returncode == 1 and (tmp_path / "cli.md").read_text().count("CREATE STATISTICS IF NOT EXISTS") == 1
