@@ -66,7 +66,7 @@ def workload(round_no: int) -> list[str]:
     return statements
 
 
-SHAPE_SETTING = "SET enable_hashjoin = off"
+SHAPE_SETTING = "SET enable_nestloop = off"
 """Set in the second round before the join: the same query planned another way by the engine."""
 
 
@@ -163,7 +163,7 @@ def capture(server: PgServer, out: Path) -> CapturedLog:
                     conn.execute(setting)
                 conn.execute(sql).fetchall()
                 if _settings_for(round_no, i):
-                    conn.execute("RESET enable_hashjoin")
+                    conn.execute("RESET enable_nestloop")
                 captured.statements += 1
                 captured.sql.append(sql)
                 captured.templates.append(i % 4)

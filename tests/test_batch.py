@@ -292,7 +292,7 @@ def test_summary_merges_the_fix_and_finds_the_shape_change(captured, tmp_path):
     for template, shape in zip(log.templates, log.engine_shapes):
         by_template.setdefault(template, set()).add(shape)
     changed = {t for t, shapes in by_template.items() if len(shapes) > 1}
-    assert changed, "enable_hashjoin = off planned the join the same way: nothing to find"
+    assert changed, "enable_nestloop = off planned the join the same way: nothing to find"
     assert len(report["shape_changes"]) == len(changed)
     # the percentiles, against numpy's over the same judged q-errors
     import numpy as np
