@@ -17,7 +17,7 @@ import sys
 from pathlib import Path
 
 import pytest
-from autoexplain_harness import PREFIXES, AutoExplainServer, capture
+from autoexplain_harness import PREFIXES, AutoExplainServer, capture, count_operators
 from pgharness import SourceUnavailable, in_ci
 
 import planview
@@ -306,3 +306,53 @@ def test_summary_merges_the_fix_and_finds_the_shape_change(captured, tmp_path):
     assert "plotly" in page.lower() and "JOB-LIGHT" in page
     run = _cli("batch", str(log.path), "--summary", str(tmp_path / "cli.md"), "--no-progress")
     assert run.returncode == 1 and (tmp_path / "cli.md").read_text().count("CREATE STATISTICS IF NOT EXISTS") == 1
+
+
+# -- Dask ---------------------------------------------------------------------------------
+
+@pytest.fixture(scope="module")
+def dask_client():
+    distributed = pytest.importorskip("distributed")  # the "dask" extra
+    cluster = distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True,
+                                       dashboard_address=None)
+    client = distributed.Client(cluster)
+    yield client
+    client.close()
+    cluster.close()
+
+
+def test_dask_on_a_local_cluster_gives_the_one_machine_table(captured, tmp_path, dask_client):
+    from planview.fleet.dask_run import dask_batch
+
+    log, pair = captured
+    # small partitions, so ranges start and end inside entries
+    folder = tmp_path / "in"
+    folder.mkdir()
+    shutil.copy(log.path, folder / "server.log")
+    shutil.copy(pair["folder"] / "before" / "pets_by_town.json", folder / "pg.json")
+    (folder / "junk.txt").write_text("not a plan\n")
+    totals = dask_batch(folder, tmp_path / "out", client=dask_client, partition_bytes=4096)
+    import pandas as pd
+
+    parts = sorted((tmp_path / "out").glob("part.*.parquet"))
+    assert len(parts) > 3
+    got = pd.read_parquet(tmp_path / "out")
+    one = planview.batch(folder, workers=1)
+    assert totals.queries == log.statements + 1 and totals.nodes == log.operators + count_operators(pair["before"])
+    assert len(totals.unreadable) == 1 and str(totals.unreadable[0]).startswith("junk.txt")
+    key = ["query_id", "row", "node"]
+    left = got.sort_values(key, na_position="first").reset_index(drop=True)
+    right = one.sort_values(key, na_position="first").reset_index(drop=True)
+    assert list(left["query_id"]) == list(right["query_id"])
+    assert list(left["line"].astype(float)) == list(right["line"].astype(float))
+    assert list(left["q_error"].astype(float).fillna(-1)) == list(right["q_error"].astype(float).fillna(-1))
+
+
+def test_the_command_line_runs_on_a_local_cluster(captured, tmp_path):
+    pytest.importorskip("distributed")
+    log, _ = captured
+    run = _cli("batch", str(log.path), "--dask", "local", "--out", str(tmp_path / "parts"))
+    assert run.returncode == 1, run.stderr  # the planted x50 origins
+    import pandas as pd
+
+    assert (pd.read_parquet(tmp_path / "parts")["row"] == "query").sum() == log.statements

@@ -141,11 +141,10 @@ class _Pending:
         self.too_big = False
 
 
-def read_log_lines(lines, source: str) -> Iterator[Entry | Unreadable]:
-    """The entries in an iterable of log lines (without line ends)."""
+def read_log_lines(lines, source: str, first_line: int = 1) -> Iterator[Entry | Unreadable]:
+    """The entries in an iterable of log lines (without line ends), the first numbered `first_line`."""
     pending: _Pending | None = None
-    number = 0
-    for number, line in enumerate(lines, 1):
+    for number, line in enumerate(lines, first_line):
         if pending is not None and line.startswith("\t"):
             if not pending.too_big:
                 pending.size += len(line)
