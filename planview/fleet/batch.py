@@ -19,10 +19,10 @@ import sys
 from collections import deque
 from concurrent.futures import ProcessPoolExecutor
 from dataclasses import dataclass, field
-from typing import Any, Iterable, Iterator
+from typing import Any, Iterator
 
 from ..errors import PlanviewError
-from .logread import Entry, Unreadable, fingerprint, iter_entries
+from .logread import Entry, Unreadable, fingerprint, read_task, read_tasks
 
 # the table's columns, in order, with their Arrow types (one schema for every chunk)
 COLUMNS: tuple[tuple[str, str], ...] = (
@@ -74,18 +74,6 @@ COLUMNS: tuple[tuple[str, str], ...] = (
     ("execution_ms", "float64"),
 )
 COLUMN_NAMES = tuple(name for name, _ in COLUMNS)
-
-
-@dataclass
-class BatchResult:
-    """The rows of a batch and what could not be read."""
-
-    rows: list[dict[str, Any]] = field(default_factory=list)
-    unreadable: list[Unreadable] = field(default_factory=list)
-    entries: int = 0
-
-    def frame(self):
-        return rows_frame(self.rows, self.unreadable)
 
 
 def _position_paths(nodes: list[dict]) -> list[str]:
@@ -165,31 +153,50 @@ def review_entry(entry: Entry, threshold: float = 10.0) -> list[dict[str, Any]] 
     return rows
 
 
-def review_chunk(entries: list[Entry], threshold: float = 10.0) -> tuple[list[dict], list[Unreadable]]:
+def review_items(items, threshold: float = 10.0) -> tuple[list[dict], list[Unreadable], int]:
+    """The rows of a list of entries (unreadables passed through), and how many entries there were."""
     rows: list[dict] = []
     bad: list[Unreadable] = []
-    for entry in entries:
-        result = review_entry(entry, threshold)
+    entries = 0
+    for item in items:
+        if isinstance(item, Unreadable):
+            bad.append(item)
+            continue
+        entries += 1
+        result = review_entry(item, threshold)
         if isinstance(result, Unreadable):
             bad.append(result)
         else:
             rows.extend(result)
-    return rows, bad
+    return rows, bad, entries
 
 
-def _chunks(items: Iterable[Entry | Unreadable], size: int) -> Iterator[tuple[list[Entry], list[Unreadable]]]:
-    entries: list[Entry] = []
-    bad: list[Unreadable] = []
-    for item in items:
-        if isinstance(item, Unreadable):
-            bad.append(item)
-        else:
-            entries.append(item)
-        if len(entries) >= size or len(bad) >= size:
-            yield entries, bad
-            entries, bad = [], []
-    if entries or bad:
-        yield entries, bad
+@dataclass
+class Chunk:
+    """One task's result: its rows as an Arrow table, what could not be read, and counts."""
+
+    table: Any
+    unreadable: list[Unreadable]
+    entries: int
+    queries: int
+    nodes: int
+    origins: int
+    worst_q_error: float
+    size: int = 0
+
+    def rows(self) -> list[dict]:
+        return self.table.to_pylist()
+
+
+def review_task(task, threshold: float = 10.0) -> Chunk:
+    """Read one task (a log range, a group of plan files) and review it, all in this process:
+    only the Arrow table and the counts go back to the process that asked."""
+    rows, bad, entries = review_items(read_task(task), threshold)
+    queries = [r for r in rows if r["row"] == "query"]
+    return Chunk(table=arrow_table(rows), unreadable=bad, entries=entries, queries=len(queries),
+                 nodes=len(rows) - len(queries), origins=sum(r["origins"] or 0 for r in queries),
+                 worst_q_error=max((r["worst_q_error"] for r in queries if r["worst_q_error"] is not None),
+                                   default=1.0), size=task[-1])
 
 
 def default_workers() -> int:
@@ -199,41 +206,42 @@ def default_workers() -> int:
         return max(1, os.cpu_count() or 1)
 
 
-def run_batch(path, *, workers: int | None = None, threshold: float = 10.0, chunk: int = 32,
-              progress: bool | None = None) -> Iterator[tuple[list[dict], list[Unreadable], int]]:
-    """Review every entry under `path`; yields (rows, unreadable, entries reviewed) per chunk, in
-    the log's order. At most ``2 × workers`` chunks are in flight, so memory stays flat."""
+TASK_BYTES = 1 << 20
+"""A log is cut into ranges of about this size, each read and reviewed by one process."""
+
+
+def run_batch(path, *, workers: int | None = None, threshold: float = 10.0, progress: bool | None = None,
+              task_bytes: int = TASK_BYTES) -> Iterator[Chunk]:
+    """Review every entry under `path`; yields a `Chunk` per task, in the log's order. Each
+    process reads its own byte range, and at most ``2 × workers`` tasks are in flight, so memory
+    stays flat however long the log."""
     if not (isinstance(threshold, (int, float)) and threshold > 1):
         raise PlanviewError(f"threshold must be a q-error above 1, got {threshold!r}")
-    if not os.path.exists(path):
-        raise PlanviewError(f"{os.fspath(path)}: no such file or folder")
+    tasks = read_tasks(path, task_bytes)
     workers = default_workers() if workers is None else max(1, int(workers))
-    bar = _progress(path, progress)
-    chunks = _chunks(iter_entries(path), chunk)
+    workers = min(workers, max(1, len(tasks)))
+    bar = _progress(sum(t[-1] for t in tasks), progress)
     try:
         if workers == 1:
-            for entries, bad in chunks:
-                rows, more = review_chunk(entries, threshold)
-                bar.update(len(entries) + len(bad))
-                yield rows, bad + more, len(entries)
+            for task in tasks:
+                chunk = review_task(task, threshold)
+                bar.update(chunk.size)
+                yield chunk
             return
         with ProcessPoolExecutor(max_workers=workers) as pool:
             flight: deque = deque()
-            for entries, bad in chunks:
-                flight.append((pool.submit(review_chunk, entries, threshold), bad, len(entries)))
+            for task in tasks:
+                flight.append(pool.submit(review_task, task, threshold))
                 while len(flight) >= 2 * workers:
-                    yield _collect(flight.popleft(), bar)
+                    chunk = flight.popleft().result()
+                    bar.update(chunk.size)
+                    yield chunk
             while flight:
-                yield _collect(flight.popleft(), bar)
+                chunk = flight.popleft().result()
+                bar.update(chunk.size)
+                yield chunk
     finally:
         bar.close()
-
-
-def _collect(item, bar):
-    future, bad, count = item
-    rows, more = future.result()
-    bar.update(count + len(bad))
-    return rows, bad + more, count
 
 
 class _NoBar:
@@ -244,31 +252,16 @@ class _NoBar:
         pass
 
 
-def _progress(path, progress: bool | None):
-    """tqdm on standard error for a long run (a log over 1 MB or a folder), unless told otherwise."""
+def _progress(total_bytes: int, progress: bool | None):
+    """tqdm on standard error for a long run (over 1 MB of input), unless told otherwise."""
     if progress is None:
-        progress = sys.stderr.isatty() and _large(path)
+        progress = sys.stderr.isatty() and total_bytes > 1_000_000
     if not progress:
         return _NoBar()
     from tqdm import tqdm
 
-    return tqdm(unit=" entries", desc="planview batch", file=sys.stderr, mininterval=0.5)
-
-
-def _large(path) -> bool:
-    try:
-        return os.path.isdir(path) or os.path.getsize(path) > 1_000_000
-    except OSError:
-        return False
-
-
-def collect(path, **options) -> BatchResult:
-    result = BatchResult()
-    for rows, bad, count in run_batch(path, **options):
-        result.rows.extend(rows)
-        result.unreadable.extend(bad)
-        result.entries += count
-    return result
+    return tqdm(total=total_bytes, unit="B", unit_scale=True, desc="planview batch", file=sys.stderr,
+                mininterval=0.5)
 
 
 def rows_frame(rows: list[dict], unreadable: list[Unreadable] | None = None):
@@ -289,12 +282,32 @@ def rows_frame(rows: list[dict], unreadable: list[Unreadable] | None = None):
     return frame
 
 
-def batch(path, *, workers: int | None = None, threshold: float = 10.0, progress: bool | None = False):
+def batch(path, *, workers: int | None = None, threshold: float = 10.0, progress: bool | None = False,
+          task_bytes: int = TASK_BYTES):
     """Review every plan under `path` (a server log with auto_explain output, a plan file, or a
     folder of either) into one pandas DataFrame: one row a query (``row == "query"``) and one
     row a node (``row == "node"``). Entries that could not be read are listed, with file and
     line, in ``frame.attrs["unreadable"]``."""
-    return collect(path, workers=workers, threshold=threshold, progress=progress).frame()
+    import pyarrow as pa
+
+    tables, bad = [], []
+    for chunk in run_batch(path, workers=workers, threshold=threshold, progress=progress,
+                           task_bytes=task_bytes):
+        tables.append(chunk.table)
+        bad.extend(chunk.unreadable)
+    return table_frame(pa.concat_tables(tables) if tables else arrow_table([]), bad)
+
+
+def table_frame(table, unreadable=None):
+    """An Arrow table of batch rows as a pandas DataFrame with nullable types."""
+    import pandas as pd
+    import pyarrow as pa
+
+    mapping = {pa.string(): pd.StringDtype(), pa.int64(): pd.Int64Dtype(), pa.float64(): pd.Float64Dtype(),
+               pa.bool_(): pd.BooleanDtype()}
+    frame = table.to_pandas(types_mapper=mapping.get)
+    frame.attrs["unreadable"] = [str(u) for u in (unreadable or [])]
+    return frame
 
 
 def arrow_schema():
@@ -339,28 +352,24 @@ def write_batch(path, out, *, workers: int | None = None, threshold: float = 10.
             import pyarrow.parquet as pq
 
             writer = pq.ParquetWriter(out, arrow_schema())
-        for rows, bad, count in run_batch(path, workers=workers, threshold=threshold, progress=progress):
-            totals.entries += count
-            for item in bad:
+        for chunk in run_batch(path, workers=workers, threshold=threshold, progress=progress):
+            totals.entries += chunk.entries
+            totals.queries += chunk.queries
+            totals.nodes += chunk.nodes
+            totals.origins += chunk.origins
+            totals.worst_q_error = max(totals.worst_q_error, chunk.worst_q_error)
+            for item in chunk.unreadable:
                 totals.unreadable.append(item)
                 if on_unreadable:
                     on_unreadable(item)
-            for row in rows:
-                if row["row"] == "query":
-                    totals.queries += 1
-                    totals.origins += row["origins"] or 0
-                    if row["worst_q_error"] is not None:
-                        totals.worst_q_error = max(totals.worst_q_error, row["worst_q_error"])
-                else:
-                    totals.nodes += 1
             if keep is not None:
-                keep(rows)
-            if not rows:
+                keep(chunk.rows())
+            if not chunk.table.num_rows:
                 continue
             if writer is not None:
-                writer.write_table(arrow_table(rows))
+                writer.write_table(chunk.table)
             else:
-                rows_frame(rows).to_csv(out, mode="w" if first else "a", header=first, index=False)
+                table_frame(chunk.table).to_csv(out, mode="w" if first else "a", header=first, index=False)
             first = False
         if kind == "csv" and first:
             rows_frame([]).to_csv(out, index=False)

@@ -59,8 +59,8 @@ def _say_unreadable(item) -> None:
 
 
 def _batch(args) -> int:
-    from .batch import write_batch
     from ..errors import PlanviewError
+    from .batch import write_batch
 
     if args.dask:
         from .dask_run import dask_batch

@@ -18,115 +18,15 @@ import os
 from pathlib import Path
 
 from ..errors import PlanviewError
-from .batch import BatchTotals, review_entry, rows_frame
-from .logread import Unreadable, iter_entries, iter_files, looks_like_log, read_log_lines
+from .batch import BatchTotals, review_items, rows_frame
+from .logread import read_task, read_tasks
 
 PARTITION_BYTES = 32 << 20
-
-
-def log_ranges(path: str | os.PathLike, partition_bytes: int = PARTITION_BYTES) -> list[tuple[int, int, int]]:
-    """(start, end, first line number) of each range, every start on a line start. One pass
-    over the file counting line ends, 1 MB at a time."""
-    size = os.path.getsize(path)
-    ranges: list[tuple[int, int, int]] = []
-    start, first_line, line_ends, pos = 0, 1, 0, 0
-    target = partition_bytes
-    with open(path, "rb") as handle:
-        while True:
-            block = handle.read(1 << 20)
-            if not block:
-                break
-            offset = 0
-            while pos + len(block) > target:  # the cut falls in this block, at the next line end
-                cut = block.find(b"\n", max(offset, target - pos))
-                if cut < 0:
-                    break  # no line end before the block's end: the next block has it
-                line_ends += block.count(b"\n", offset, cut + 1)
-                offset = cut + 1
-                ranges.append((start, pos + offset, first_line))
-                start, first_line = pos + offset, line_ends + 1
-                target = start + partition_bytes
-            line_ends += block.count(b"\n", offset)
-            pos += len(block)
-    if start < size or not ranges:
-        ranges.append((start, size, first_line))
-    return ranges
-
-
-def read_range(path: str, name: str, start: int, end: int, first_line: int) -> list:
-    """The entries whose first line starts in [start, end) of a log."""
-    handle = open(path, "rb")
-    handle.seek(start)
-    state = {"first": first_line}
-
-    def lines():
-        pos = start
-        leading = start > 0
-        for raw in handle:
-            at = pos
-            pos += len(raw)
-            text = raw.decode("utf-8", "replace").rstrip("\r\n")
-            if leading and text.startswith("\t"):
-                state["first"] += 1  # the tail of the range before's entry
-                continue
-            if leading:
-                leading = False
-                yield None  # a marker: the leading continuation lines are behind
-            if at >= end and not text.startswith("\t"):
-                return
-            yield text
-
-    with handle:
-        stream = lines()
-        if start > 0:
-            next(stream, None)  # past the leading continuation lines: now the first line is known
-        return list(read_log_lines(stream, name, state["first"]))
-
-
-def _sources(path: str | os.PathLike, partition_bytes: int) -> list[tuple]:
-    root = Path(path)
-    if not root.exists():
-        raise PlanviewError(f"{os.fspath(path)}: no such file or folder")
-    tasks = []
-    plain = []
-    for file in iter_files(root):
-        name = str(file.relative_to(root)) if root.is_dir() else str(file)
-        if looks_like_log(file):
-            for start, end, first in log_ranges(file, partition_bytes):
-                tasks.append(("log", str(file.resolve()), name, start, end, first))
-        else:
-            plain.append(file)
-    if plain:
-        tasks.append(("files", [str(p.resolve()) for p in plain], str(root.resolve())))
-    return tasks
-
-
-def _read_task(task) -> list:
-    if task[0] == "log":
-        _, path, name, start, end, first = task
-        return read_range(path, name, start, end, first)
-    _, paths, root = task
-    out = []
-    for p in paths:
-        for item in iter_entries(p):
-            rel = os.path.relpath(p, root) if os.path.isdir(root) else p
-            item.source = rel
-            out.append(item)
-    return out
+"""A log range a partition (each a task on a worker)."""
 
 
 def _review_partition(items, threshold: float):
-    rows, bad, entries = [], [], 0
-    for item in items:
-        if isinstance(item, Unreadable):
-            bad.append(item)
-            continue
-        entries += 1
-        result = review_entry(item, threshold)
-        if isinstance(result, Unreadable):
-            bad.append(result)
-        else:
-            rows.extend(result)
+    rows, bad, entries = review_items(items, threshold)
     queries = [r for r in rows if r["row"] == "query"]
     stats = {"entries": entries, "queries": len(queries), "nodes": len(rows) - len(queries),
              "origins": sum(r["origins"] or 0 for r in queries),
@@ -139,7 +39,7 @@ def entry_bag(path, partition_bytes: int = PARTITION_BYTES):
     import dask
     import dask.bag as db
 
-    return db.from_delayed([dask.delayed(_read_task)(t) for t in _sources(path, partition_bytes)])
+    return db.from_delayed([dask.delayed(read_task)(t) for t in read_tasks(path, partition_bytes)])
 
 
 def batch_frame(path, *, threshold: float = 10.0, partition_bytes: int = PARTITION_BYTES):

@@ -25,13 +25,13 @@ def _origins(path, threshold: float, on_unreadable=None) -> tuple[dict[str, dict
 
     found: dict[str, dict[str, Any]] = {}
     plans = 0
-    for rows, bad, count in run_batch(path, threshold=threshold, progress=False):
-        plans += count
-        for item in bad:
+    for chunk in run_batch(path, threshold=threshold, progress=False):
+        plans += chunk.entries
+        for item in chunk.unreadable:
             if on_unreadable:
                 on_unreadable(item)
         seen: dict[tuple, int] = {}
-        for row in rows:
+        for row in chunk.rows():
             if row["row"] == "query":
                 seen = {}
                 continue

@@ -23,6 +23,7 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Iterator
 
+from ..errors import PlanviewError
 from ..source import max_input_bytes
 
 _HEADER = re.compile(r"(?P<level>LOG|INFO|NOTICE|DEBUG\d?|WARNING):\s+duration: (?P<ms>\d+(?:\.\d+)?) ms\s+plan:\s*$")
@@ -268,3 +269,112 @@ def iter_entries(path: str | os.PathLike) -> Iterator[Entry | Unreadable]:
             yield Entry(source=name, line=1, text=decoded)
         else:
             yield Unreadable(name, None, "neither a plan file nor a server log with auto_explain entries")
+
+
+# ---------------------------------------------------------------------------------------
+# the reading cut into tasks: byte ranges of a log, groups of plan files
+# ---------------------------------------------------------------------------------------
+
+def log_ranges(path: str | os.PathLike, partition_bytes: int = 1 << 20) -> list[tuple[int, int, int]]:
+    """(start, end, first line number) of each range, every start on a line start. One pass
+    over the file counting line ends, 1 MB at a time."""
+    size = os.path.getsize(path)
+    ranges: list[tuple[int, int, int]] = []
+    start, first_line, line_ends, pos = 0, 1, 0, 0
+    target = partition_bytes
+    with open(path, "rb") as handle:
+        while True:
+            block = handle.read(1 << 20)
+            if not block:
+                break
+            offset = 0
+            while pos + len(block) > target:  # the cut falls in this block, at the next line end
+                cut = block.find(b"\n", max(offset, target - pos))
+                if cut < 0:
+                    break  # no line end before the block's end: the next block has it
+                line_ends += block.count(b"\n", offset, cut + 1)
+                offset = cut + 1
+                ranges.append((start, pos + offset, first_line))
+                start, first_line = pos + offset, line_ends + 1
+                target = start + partition_bytes
+            line_ends += block.count(b"\n", offset)
+            pos += len(block)
+    if start < size or not ranges:
+        ranges.append((start, size, first_line))
+    return ranges
+
+
+def read_range(path: str, name: str, start: int, end: int, first_line: int) -> list:
+    """The entries whose first line starts in [start, end) of a log."""
+    handle = open(path, "rb")
+    handle.seek(start)
+    state = {"first": first_line}
+
+    def lines():
+        pos = start
+        leading = start > 0
+        for raw in handle:
+            at = pos
+            pos += len(raw)
+            text = raw.decode("utf-8", "replace").rstrip("\r\n")
+            if leading and text.startswith("\t"):
+                state["first"] += 1  # the tail of the range before's entry
+                continue
+            if leading:
+                leading = False
+                yield None  # a marker: the leading continuation lines are behind
+            if at >= end and not text.startswith("\t"):
+                return
+            yield text
+
+    with handle:
+        stream = lines()
+        if start > 0:
+            next(stream, None)  # past the leading continuation lines: now the first line is known
+        return list(read_log_lines(stream, name, state["first"]))
+
+
+FILES_PER_TASK = 16
+
+
+def read_tasks(path: str | os.PathLike, partition_bytes: int = 1 << 20) -> list[tuple]:
+    """The reading of `path` cut into tasks a process can do alone: a byte range of a log, or a
+    group of plan files. Each task's last item is its size in bytes (for a progress bar)."""
+    root = Path(path)
+    if not root.exists():
+        raise PlanviewError(f"{os.fspath(path)}: no such file or folder")
+    tasks = []
+    plain = []
+    for file in iter_files(root):
+        name = str(file.relative_to(root)) if root.is_dir() else str(file)
+        if looks_like_log(file):
+            for start, end, first in log_ranges(file, partition_bytes):
+                tasks.append(("log", str(file.resolve()), name, start, end, first, end - start))
+        else:
+            plain.append(file)
+    base = str(root.resolve()) if root.is_dir() else None
+    for i in range(0, len(plain), FILES_PER_TASK):
+        group = plain[i:i + FILES_PER_TASK]
+        tasks.append(("files", [str(p.resolve()) for p in group], base, sum(_size(p) for p in group)))
+    return tasks
+
+
+def _size(path: Path) -> int:
+    try:
+        return path.stat().st_size
+    except OSError:
+        return 0
+
+
+def read_task(task) -> list:
+    """The entries (and unreadables) of one task from `read_tasks`."""
+    if task[0] == "log":
+        _, path, name, start, end, first, _size = task
+        return read_range(path, name, start, end, first)
+    _, paths, base, _size = task
+    out = []
+    for p in paths:
+        for item in iter_entries(p):
+            item.source = os.path.relpath(p, base) if base else p
+            out.append(item)
+    return out

@@ -276,8 +276,8 @@ def summary(source) -> SummaryBuilder:
     else:
         from .batch import run_batch
 
-        for rows, _bad, _count in run_batch(source, progress=False):
-            builder.add(rows)
+        for chunk in run_batch(source, progress=False):
+            builder.add(chunk.rows())
     return builder
 
 
