@@ -325,6 +325,10 @@ def arrow_table(rows: list[dict]):
                      for name in COLUMN_NAMES}, schema=schema)
 
 
+ROW_GROUP_ROWS = 65_536
+"""Rows gathered before a Parquet row group is written (a task's table is far smaller)."""
+
+
 @dataclass
 class BatchTotals:
     entries: int = 0
@@ -344,9 +348,13 @@ def write_batch(path, out, *, workers: int | None = None, threshold: float = 10.
     kind = "csv" if out.lower().endswith(".csv") else "parquet" if out.lower().endswith((".parquet", ".pq")) else None
     if kind is None:
         raise PlanviewError(f"--out {out}: the file name must end in .parquet or .csv")
+    import pyarrow as pa
+
     totals = BatchTotals()
     writer = None
     first = True
+    waiting: list = []  # tables held back until a row group's worth
+    waiting_rows = 0
     try:
         if kind == "parquet":
             import pyarrow.parquet as pq
@@ -367,10 +375,16 @@ def write_batch(path, out, *, workers: int | None = None, threshold: float = 10.
             if not chunk.table.num_rows:
                 continue
             if writer is not None:
-                writer.write_table(chunk.table)
+                waiting.append(chunk.table)
+                waiting_rows += chunk.table.num_rows
+                if waiting_rows >= ROW_GROUP_ROWS:
+                    writer.write_table(pa.concat_tables(waiting))
+                    waiting, waiting_rows = [], 0
             else:
                 table_frame(chunk.table).to_csv(out, mode="w" if first else "a", header=first, index=False)
             first = False
+        if writer is not None and waiting:
+            writer.write_table(pa.concat_tables(waiting))
         if kind == "csv" and first:
             rows_frame([]).to_csv(out, index=False)
     finally:

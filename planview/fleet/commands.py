@@ -55,7 +55,9 @@ def run(args) -> int:
 
 
 def _say_unreadable(item) -> None:
-    print(f"planview: {item}", file=sys.stderr)
+    from ..inert import visible
+
+    print(f"planview: {visible(str(item))}", file=sys.stderr)
 
 
 def _batch(args) -> int:

@@ -106,7 +106,9 @@ class GateVerdict:
         lines.append(f"gate {'FAILED' if self.failed else 'passed'}: {len(self.new)} new, {len(self.worse)} worse, "
                      f"{len(self.better)} better, {self.held} as before, {len(self.gone)} gone, "
                      f"in {self.plans} plan(s)")
-        return "\n".join(lines) + "\n"
+        from ..inert import visible
+
+        return "\n".join(visible(line) for line in lines) + "\n"
 
 
 def gate(plans, baseline_path, *, threshold: float = 10.0, worse_by: float = 2.0, on_unreadable=None) -> GateVerdict:
