@@ -356,3 +356,30 @@ def test_the_command_line_runs_on_a_local_cluster(captured, tmp_path):
     import pandas as pd
 
     assert (pd.read_parquet(tmp_path / "parts")["row"] == "query").sum() == log.statements
+
+
+def test_compare_tells_a_shape_change_where_the_engine_planned_it_another_way(captured):
+    from planview.fleet.logread import read_log
+
+    log, _ = captured
+    entries = [e for e in read_log(log.path)]
+    assert len(entries) == log.statements
+    pairs = {}
+    for i, (template, shape) in enumerate(zip(log.templates, log.engine_shapes)):
+        pairs.setdefault(template, []).append((i, shape))
+    checked = 0
+    for items in pairs.values():
+        (i, shape_a), (j, shape_b) = items[0], items[-1]
+        a, b = entries[i], entries[j]
+        result = planview.compare(planview.load(a.text, engine=a.engine, fmt=a.fmt),
+                                  planview.load(b.text, engine=b.engine, fmt=b.fmt))
+        assert result.shape_changed == (shape_a != shape_b), (log.sql[i], log.sql[j])
+        checked += shape_a != shape_b
+    assert checked  # at least one template the engine planned two ways
+
+
+def test_compare_names_the_file_it_cannot_read(tmp_path):
+    bad = tmp_path / "not-a-plan.txt"
+    bad.write_text("hello\n")
+    run = _cli("compare", str(bad), str(bad))
+    assert run.returncode == 2 and str(bad) in run.stderr and "Traceback" not in run.stderr

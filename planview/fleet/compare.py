@@ -164,10 +164,16 @@ def _time_words(before: float | None, after: float | None) -> str:
 def _as_plan(value, threshold: float):
     from ..plan import Plan, load
 
+    from ..errors import PlanParseError, PlanviewError
+
     if isinstance(value, Plan):
         return value, "a plan"
-    return load(value, threshold=threshold), os.fspath(value) if isinstance(value, os.PathLike) or (
+    name = os.fspath(value) if isinstance(value, os.PathLike) or (
         isinstance(value, str) and "\n" not in value and len(value) < 4096) else "a plan"
+    try:
+        return load(value, threshold=threshold), name
+    except PlanParseError as exc:
+        raise PlanviewError(f"{name}: {exc}") from None
 
 
 def _verdict(before_q: float | None, after_q: float | None) -> str:
