@@ -162,9 +162,8 @@ def _time_words(before: float | None, after: float | None) -> str:
 
 
 def _as_plan(value, threshold: float):
-    from ..plan import Plan, load
-
     from ..errors import PlanParseError, PlanviewError
+    from ..plan import Plan, load
 
     if isinstance(value, Plan):
         return value, "a plan"
