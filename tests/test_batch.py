@@ -383,3 +383,17 @@ def test_compare_names_the_file_it_cannot_read(tmp_path):
     bad.write_text("hello\n")
     run = _cli("compare", str(bad), str(bad))
     assert run.returncode == 2 and str(bad) in run.stderr and "Traceback" not in run.stderr
+
+
+def test_the_comparison_view_holds_the_comparisons_report(captured):
+    from planview.widget.compare_view import ComparisonView
+
+    _, pair = captured
+    folder = pair["folder"]
+    result = planview.compare(folder / "before" / "pets_by_town.json", folder / "after" / "pets_by_town.json")
+    view = ComparisonView(result)
+    assert view.report == result.report()
+    assert [n["verdict"] for n in view.report["nodes"] if n["relation"] == "pets"] == ["better"]
+    # the front end only lays out these fields: each one it reads is in the report
+    for key in ("position", "label", "before_rows", "before_q", "after_rows", "after_q", "verdict"):
+        assert key in view.report["nodes"][0] and f"n.{key}" in view._esm
