@@ -18,6 +18,7 @@ from importlib import resources
 from typing import Any
 
 from ..inert import visible
+from .. import words as _words
 from .common import (
     GENERIC_CAUTION,
     LARGE_PLAN,
@@ -133,8 +134,8 @@ def _page_title(report: dict[str, Any]) -> str:
     findings = report["findings"]
     if findings:
         top = by_id.get(findings[0]["node"], {})
-        return f"planview: {len(findings)} origin(s), worst at {top.get('label', '?')}"
-    return f"planview: {len(report['nodes'])} operators, no origin"
+        return f"planview: {_words.plural(len(findings), 'origin')}, the first at {top.get('label', '?')}"
+    return f"planview: {_words.plural(len(report['nodes']), 'operator')}, no origin"
 
 
 # -- the static tree -----------------------------------------------------------------------------
@@ -178,8 +179,8 @@ def render_static_tree(plan) -> str:
     findings = report["findings"]
     statement = (report["statements"] or [{}])[0]
     facts = [f"{report['engine']}" + (f" {report['engine_version']}" if report["engine_version"] else ""),
-             f"{report['format']} format", f"{len(nodes):,} operators",
-             f"{len(findings)} origin(s) at {factor(report['threshold'])} or worse"]
+             f"{report['format']} format", _words.plural(len(nodes), "operator"),
+             f"{_words.plural(len(findings), 'origin')} at {factor(report['threshold'])} or worse"]
     if statement.get("execution_ms") is not None:
         facts.append(f"ran {ms(statement['execution_ms'])}")
     out.append(f"<p><strong>Plan review</strong> · {esc(' · '.join(facts))}</p>")

@@ -14,6 +14,7 @@ import re
 from typing import Any
 
 from ..inert import visible
+from .. import words as _words
 from .common import GENERIC_CAUTION, cause_words, evidence_items, factor, ms
 
 _SIGNS = re.compile(r"([\\`*_{}\[\]<>#|~$&])")
@@ -63,7 +64,7 @@ def render_markdown(plan) -> str:
     lang = getattr(plan, "sql_dialect", None) and "sql" or "sql"
     out = [f"## Query plan review: {len(findings)} estimate origin{'s' if len(findings) != 1 else ''}", ""]
     facts = [f"engine: {md_text(engine)} ({md_text(report['format'])})",
-             f"operators: {len(nodes):,}",
+             _words.plural(len(nodes), "operator"),
              f"origins at {md_text(factor(report['threshold']))} or worse: {len(findings)}"]
     if statement.get("execution_ms") is not None:
         facts.append(f"execution time: {md_text(ms(statement['execution_ms']))}")

@@ -116,22 +116,23 @@ export function formatRows(value) {
   return value.toLocaleString("en-US", { maximumFractionDigits: 2 });
 }
 
+// The same words and formats as planview/words.py (the report's "words"; a test keeps them in step).
+const ON_TARGET_LOG10 = Math.log10(1.05);
+const SUPERSCRIPT = { "0": "⁰", "1": "¹", "2": "²", "3": "³", "4": "⁴", "5": "⁵", "6": "⁶", "7": "⁷", "8": "⁸", "9": "⁹", "-": "⁻" };
+
 function formatFactor(q) {
-  if (q === null || q === undefined) return "–";
-  if (q >= 1e6) return `×${q.toExponential(1)}`;
-  if (q >= 100) return `×${Math.round(q).toLocaleString("en-US")}`;
-  return `×${q.toFixed(q >= 10 ? 0 : 1)}`;
+  if (q === null || q === undefined || !Number.isFinite(q)) return "–";
+  q = Math.max(1, q);
+  if (q >= 1e12) return `×10${String(Math.round(Math.log10(q))).replace(/./g, (c) => SUPERSCRIPT[c])}`;
+  if (q >= 1e9) return `×${Number((q / 1e9).toPrecision(2))} billion`;
+  if (q >= 1e6) return `×${Number((q / 1e6).toPrecision(2))} million`;
+  if (q >= 9.95) return `×${Math.round(q).toLocaleString("en-US")}`;
+  return `×${q.toFixed(1)}`;
 }
 
 function shortError(log10Ratio, q) {
-  if (Math.abs(log10Ratio) < 0.02) return "on target";
-  return `${formatFactor(q ?? Math.pow(10, Math.abs(log10Ratio)))} ${log10Ratio > 0 ? "under" : "over"}`;
-}
-
-function ownMs(ms) {
-  if (ms === null || ms === undefined) return "–";
-  if (ms >= 1000) return `${(ms / 1000).toFixed(1)}s`;
-  return ms >= 10 ? ms.toFixed(0) : ms.toFixed(ms >= 1 ? 1 : 2);
+  if (Math.abs(log10Ratio) < ON_TARGET_LOG10) return "on target";
+  return `${formatFactor(q ?? Math.pow(10, Math.abs(log10Ratio)))} ${log10Ratio > 0 ? "too low" : "too high"}`;
 }
 
 function formatMs(ms) {
@@ -142,8 +143,7 @@ function formatMs(ms) {
 
 function errorWords(log10Ratio, q) {
   if (log10Ratio === null || log10Ratio === undefined) return "–";
-  if (Math.abs(log10Ratio) < 0.02) return "on target";
-  return `${formatFactor(q ?? Math.pow(10, Math.abs(log10Ratio)))} ${log10Ratio > 0 ? "underestimated" : "overestimated"}`;
+  return shortError(log10Ratio, q);
 }
 
 const CAUSE_WORDS = {

@@ -1,0 +1,72 @@
+"""One vocabulary: the words and number formats of planview/words.py, used by every view.
+
+These are consistency checks of planview's own wording (no engine figure is involved): the
+notebook's ES module formats an error factor exactly as the Python views do, no view says a
+direction in words outside the one set, and counts agree with their noun.
+"""
+
+from __future__ import annotations
+
+import json
+import re
+import shutil
+import subprocess
+from pathlib import Path
+
+import pytest
+
+import planview
+from planview import words
+from planview.export import html, markdown
+from planview.textreport import render
+
+ROOT = Path(__file__).resolve().parents[1]
+JS = ROOT / "planview" / "widget" / "review.js"
+# a real plan: TPC-H Q8 on PostgreSQL 16 (plans/capture_tpch.py)
+PLAN = ROOT / "plans" / "tpch" / "pg16" / "q08.serial.json"
+FACTORS = [1.0, 1.04, 2.0, 5.88, 9.96, 58823.5, 999_999.0, 1.2e6, 3.4e9, 1e15, 2.5e300]
+OLD_WORDS = re.compile(r"too few est\.|too many est\.|\bunderestimated x|\d(?:\.\d+)?e\+\d\d|\b1 operators\b"
+                       r"|\b1 origins\b|origin\(s\)")
+
+
+@pytest.mark.skipif(shutil.which("node") is None, reason="Node.js is needed to run the ES module's formatter")
+def test_the_widget_formats_factors_as_the_python_views_do(tmp_path):
+    source = JS.read_text(encoding="utf-8")
+    start = source.index("const ON_TARGET_LOG10")
+    end = source.index("function formatMs(")
+    script = tmp_path / "factor.mjs"
+    script.write_text(source[start:end] + f"\nconsole.log(JSON.stringify({json.dumps(FACTORS)}.map(formatFactor)));"
+                      + f"\nconsole.log(JSON.stringify([[2, null], [-1.5, null], [0.01, 1.02]].map(([r, q]) => shortError(r, q))));",
+                      encoding="utf-8")
+    out = subprocess.run(["node", str(script)], capture_output=True, text=True, timeout=60, check=True).stdout.splitlines()
+    assert json.loads(out[0]) == [words.factor(q) for q in FACTORS]
+    assert json.loads(out[1]) == [words.error(2), words.error(-1.5), words.error(0.01, 1.02)]
+
+
+def test_one_word_set_and_one_format():
+    assert words.error(math_log10(58823.5), 58823.5) == "×58,824 too low"
+    assert words.error(-math_log10(3), 3) == "×3.0 too high"
+    assert words.error(0.01) == "on target"
+    assert words.plural(1, "operator") == "1 operator" and words.plural(2, "origin") == "2 origins"
+    assert words.added_words(1.0, is_join=True) == "join selectivity ×10 too low"
+
+
+def math_log10(x):
+    import math
+    return math.log10(x)
+
+
+def test_every_view_of_a_real_plan_speaks_the_same_words():
+    plan = planview.load(PLAN)
+    report = plan.report()
+    assert report["words"]["direction"] == {"under": "too low", "over": "too high", "on_target": "on target"}
+    finding = report["findings"][0]
+    said = finding["text"]["added"]
+    views = {"terminal": render(plan, width=160), "markdown": markdown.render_markdown(plan),
+             "html": html.render_static_tree(plan)}
+    assert said in views["terminal"]
+    for name, text in views.items():
+        assert not OLD_WORDS.search(text), (name, OLD_WORDS.search(text).group(0))
+    for node in report["nodes"]:
+        assert node["text"]["id"] == f"#{node['id']}"
+        assert node["text"]["error"].endswith(("too low", "too high", "on target", "–"))
