@@ -766,12 +766,20 @@ def _cuts_nothing(join: PlanNode, holder: PlanNode, nodes: list[PlanNode]) -> bo
     2.0.1: `s.id <= 100` on the build side shows as `sid <= 100` on the probe side), so such a
     range came from the probe side's own minimum and maximum and leaves out no key it holds.
     The rows it can still remove reference no row of that table (none where the key is a
-    reference to it)."""
+    reference to it: an inner join's numbers must show that each probe row kept found one
+    match; a semi join's cannot, and there it is assumed, as its build side is that table)."""
     build = nodes[join.children[1]]
     while build.operator == "PROJECTION" and len(build.children) == 1:
         build = nodes[build.children[0]]
     if build.children or build.operator not in ("SEQ_SCAN", "TABLE_SCAN") \
             or build.extra.get("dynamic_filters") or build.est_rows is None or build.actual_rows is None:
+        return False
+    probe = nodes[join.children[0]]
+    if join.join_type in (None, "INNER") and (probe.actual_rows is None
+                                              or probe.actual_rows != join.actual_rows):
+        # an inner join shows it: each row its probe side kept found exactly one match, so the
+        # build key is a key of the whole table and the probe's key references it; where the
+        # numbers say otherwise (the probe is the referenced side) the filter may have cut
         return False
     filters = [c for c in build.conditions if c.kind == "filter"]
     if not filters:
@@ -832,7 +840,7 @@ def _runtime_cuts(parsed: ParsedPlan) -> dict[int, dict[str, dict[int, str]]]:
                     facts["exact"][current.id] = how
                 else:
                     facts["cut"][current.id] = (
-                        f"its input #{current.id} was cut while running by a run-time filter "
+                        f"its input #{current.id} was cut while running by a dynamic filter "
                         f"({how}), so that input's true count is at least what it shows")
                 first_join, direct = False, False
                 pushers.discard(parent.id)
@@ -919,8 +927,16 @@ def suggest_fix(cause: str, table: str | None, columns: list[str] | tuple[str, .
         "filter_combination": "DuckDB estimates ANDed filters on one table by the smallest of "
                               "their estimates (or 20% once when none is an equality), not their "
                               "product, and no setting changes that.",
-        "join_selectivity": "DuckDB estimates a semi or anti join from its inputs' distinct "
-                            "counts; nothing describes which keys match.",
+        "join_selectivity": ("DuckDB estimates a join on several keys between the same inputs "
+                             "from the key with the most distinct values alone (GetDenominator in "
+                             "src/optimizer/join_order/cardinality_estimator.cpp); no statistic "
+                             "describes how the keys match together."
+                             if details.get("multi_key") else
+                             "DuckDB estimates a semi or anti join as a fixed share (0.2, its "
+                             "DEFAULT_SELECTIVITY) of the side it keeps, whatever the other side "
+                             "holds (GetDenominator in "
+                             "src/optimizer/join_order/cardinality_estimator.cpp); nothing "
+                             "describes which keys match."),
     }
     if cause not in lacks:
         return None
@@ -934,8 +950,11 @@ def suggest_fix(cause: str, table: str | None, columns: list[str] | tuple[str, .
                                "around it), so min/max and distinct counts apply",
         "filter_combination": "keep the combination the filters select as a column of its own "
                               "and filter on it with one equality",
-        "join_selectivity": "apply the other side's filter first into a table of its own and "
-                            "join against that",
+        "join_selectivity": ("keep the keys' combination as one column of its own on each side "
+                             "and join on that single equality"
+                             if details.get("multi_key") else
+                             "apply the other side's filter first into a table of its own and "
+                             "join against that"),
     }[cause]
     sql = (f"-- DuckDB offers no statistics lever for this: {lacks[cause]}\n"
            f"-- What DuckDB does offer: {analyze} refreshes the distinct counts (it cannot help "
@@ -957,6 +976,7 @@ class DuckDB(Engine):
     JOINS = frozenset(JOINS)
     SEMI_JOINS = frozenset(SEMI_OUTER)
     RIGHT_SEMI_JOINS = frozenset(SEMI_INNER)
+    MARK_JOINS = frozenset({"MARK"})
     PRESERVED = PRESERVED
     COMPLETE_INNER = frozenset(JOINS)
     BLOCKING = frozenset(BLOCKING)
@@ -970,6 +990,25 @@ class DuckDB(Engine):
     # filter: no change), the scan takes the smallest of them, and when no filter is an equality
     # the rows x DEFAULT_SELECTIVITY (0.2) once, however many filters there are.
     AND_FILTERS = ("minimum", "ExtractGetStats in src/optimizer/join_order/relation_statistics_helper.cpp")
+    # DuckDB prints a scalar sub-query's result inside a condition as the word SUBQUERY
+    # (TPC-H Q15: `total_revenue = SUBQUERY`; Q17, Q20)
+    SUBQUERY_MARK = r"\bSUBQUERY\b"
+    # src/optimizer/join_order/cardinality_estimator.cpp, GetDenominator: the product of the
+    # inputs' rows is divided by the distinct counts ("total domains") of the join keys; with no
+    # usable key the denominator is 1 ("denominator is 1 and numerators are a cross product of
+    # cardinalities")
+    NON_CONSTANT_GUESSES = {
+        "equality_subplan": "DuckDB has no distinct count for a sub-query's result, so nothing "
+                            "divides the product of the join's inputs: it estimates that every row "
+                            "matches the sub-query's value (GetDenominator in "
+                            "src/optimizer/join_order/cardinality_estimator.cpp takes a denominator "
+                            "of 1 where no key's distinct count applies)",
+    }
+    # the same function walks the join conditions from the largest distinct count down and skips
+    # a condition between relations an earlier one already connected ("another filter is
+    # connecting relations already in the subgraph, but it has a tdom that is less, and we
+    # don't care"): a second key between the same inputs does not lower the estimate
+    JOIN_KEYS_COMBINED = ("largest_domain", "GetDenominator in src/optimizer/join_order/cardinality_estimator.cpp")
 
     def input_rule(self, node: PlanNode, nodes: list[PlanNode], inputs: list[int]) -> str:
         op = node.operator
