@@ -487,7 +487,7 @@ def _shared_reads(node: PlanNode, role: Role, nodes: list[PlanNode],
     if not common:
         return
     carried = [_carried(nodes[c], role) for c in inputs]
-    best = 0.0
+    best, best_id = 0.0, None
     for shared_id in common:
         error = _judged_lr(nodes[shared_id])
         if error * carried[0] > 0 and error * carried[1] > 0:

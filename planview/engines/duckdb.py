@@ -728,7 +728,6 @@ def runtime_filters(parsed: ParsedPlan) -> dict[int, list[tuple[int | None, str]
     cached = parsed.engine_facts.get("runtime_filters")
     if cached is not None:
         return cached
-    nodes = parsed.nodes
     index = index_of(parsed)
     found: dict[int, list[tuple[int | None, str]]] = {}
     open_sides: list[tuple[int, int, set[str]]] = []  # (end of the probe side, join, probe keys)
