@@ -101,6 +101,9 @@ def _parser(secrets: tuple[str, ...] = ()) -> argparse.ArgumentParser:
     demo = sub.add_parser("demo", help="review every bundled plan (no server needed)")
     demo.add_argument("--out", default="planview-demo", help="folder for the HTML and Markdown")
     demo.add_argument("--plans", help="folder of plans (default: the bundled plans/)")
+    from .fleet.commands import add_commands
+
+    add_commands(sub)  # batch, compare, gate
     return parser
 
 
@@ -114,6 +117,10 @@ def main(argv: list[str] | None = None) -> int:
     try:
         if args.command == "check":
             return _check(args)
+        from .fleet.commands import COMMANDS, run
+
+        if args.command in COMMANDS:
+            return run(args)
         return _demo(args)
     except PlanviewError as exc:
         print(f"planview: {redact(str(exc), *secrets)}", file=sys.stderr)

@@ -14,6 +14,7 @@ from .errors import PlanParseError
 from .index import PlanIndex, index_of
 from .model import Finding, ParsedPlan, PlanNode, Statement
 from .source import check_format_size, read_text, without_lone_surrogates
+from .timing import PlanTimes, time_plan
 
 READER_ERROR = "could not read this plan: the reader failed on it"
 
@@ -39,6 +40,8 @@ class Plan:
         """The engine's tables, defaults, dialect and fixes, which the diagnosis is handed."""
         self.findings: list[Finding] = check(parsed, engine_module, options)
         self.index: PlanIndex = index_of(parsed)
+        self.times: PlanTimes = time_plan(parsed, self.engine_spec)
+        """Time per operator, with its inputs and its own (`planview.timing`)."""
         from .diagnose import diagnose
 
         diagnose(self)

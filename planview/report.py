@@ -5,6 +5,8 @@ from __future__ import annotations
 import math
 from typing import Any
 
+from . import words
+
 REPORT_VERSION = 1
 
 
@@ -17,8 +19,8 @@ def _clean(value: Any) -> Any:
     return value
 
 
-def node_record(node) -> dict[str, Any]:
-    return {
+def node_record(node, times=None) -> dict[str, Any]:
+    record = {
         "id": node.id,
         "parent": node.parent,
         "children": list(node.children),
@@ -63,7 +65,68 @@ def node_record(node) -> dict[str, Any]:
         "workers_planned": node.workers_planned,
         "workers_launched": node.workers_launched,
         "buffers": {k: _clean(v) for k, v in node.buffers.items()},
+        "text": node_text(node),
     }
+    if times is not None:
+        i = node.id
+        record["total_ms"] = _ms(times.total_ms[i])
+        record["self_ms"] = _ms(times.self_ms[i])
+        record["total_ms_per_start"] = _ms(times.total_ms_per_start[i])
+        record["self_ms_per_start"] = _ms(times.self_ms_per_start[i])
+        record["time_note"] = times.notes.get(i)
+    return record
+
+
+def _ms(value: float | None) -> float | None:
+    """A time for reading: microseconds are the finest any engine prints."""
+    return None if value is None else _clean(round(value, 4))
+
+
+def slowest_records(plan) -> list[dict[str, Any]]:
+    """The operators with the largest own time, with their share of the plan's operator time
+    (the sum of every operator's own time)."""
+    times = plan.times
+    whole = times.operator_ms()
+    out = []
+    for rank, node_id in enumerate(times.slowest(), 1):
+        node = plan.nodes[node_id]
+        own = times.self_ms[node_id]
+        out.append({"rank": rank, "node": node_id, "label": node.label,
+                    "self_ms": _ms(own), "total_ms": _ms(times.total_ms[node_id]),
+                    "self_ms_per_start": _ms(times.self_ms_per_start[node_id]),
+                    "starts": _clean(node.starts),
+                    "share": round(own / whole, 4) if whole else None,
+                    "origin": node.origin})
+    return out
+
+
+def _statement_times(plan, statement) -> dict[str, Any]:
+    times = plan.times
+    root = statement.root
+    return {"total_ms": _ms(times.total_ms[root]) if root < len(times.total_ms) else None}
+
+
+def node_text(node) -> dict[str, str]:
+    """The node's numbers as every view prints them (planview/words.py decides the words)."""
+    own = node.own_log10_ratio if node.judged else None
+    return {
+        "id": f"#{node.id}",
+        "est": words.rows(node.est_total),
+        "actual": words.rows(node.actual_total),
+        "starts": words.rows(node.starts),
+        "error": words.error(node.log10_ratio, node.q_error),
+        "direction": words.direction(node.log10_ratio),
+        "added": words.added_words(own, node.own_rule == "join") if own is not None else "–",
+        "state": words.STATE_WORDS[_state(node)],
+    }
+
+
+def _state(node) -> str:
+    if node.origin:
+        return "origin"
+    if node.inherits_from:
+        return "inherited"
+    return "judged" if node.judged else "neutral"
 
 
 def finding_record(finding) -> dict[str, Any]:
@@ -82,6 +145,15 @@ def finding_record(finding) -> dict[str, Any]:
         "fix": finding.fix,
         "caution": finding.caution,
         "impact": finding.impact,
+        "text": {
+            "rank": f"origin {finding.rank}",
+            "cause": words.cause(finding.cause),
+            "added": words.error((1 if finding.direction == "under" else -1) * math.log10(max(1.0, finding.own_q_error)),
+                                 finding.own_q_error),
+            "in_all": words.error((1 if finding.direction == "under" else -1) * math.log10(max(1.0, finding.q_error)),
+                                  finding.q_error),
+            "also": [words.cause(c) for c in finding.also],
+        },
     }
 
 
@@ -93,12 +165,17 @@ def build_report(plan) -> dict[str, Any]:
         "engine_version": plan.engine_version,
         "has_actuals": plan.has_actuals,
         "threshold": plan.options.threshold,
+        "words": words.vocabulary(),
         "notes": list(plan.notes),
         "statements": [
             {"root": s.root, "planning_ms": _clean(s.planning_ms),
-             "execution_ms": _clean(s.execution_ms), "query_text": s.query_text}
+             "execution_ms": _clean(s.execution_ms), "query_text": s.query_text,
+             **_statement_times(plan, s)}
             for s in plan.statements
         ],
-        "nodes": [node_record(n) for n in plan.nodes],
+        "nodes": [node_record(n, plan.times) for n in plan.nodes],
         "findings": [finding_record(f) for f in plan.findings],
+        "slowest": slowest_records(plan),
+        "operator_ms": _ms(plan.times.operator_ms()),
+        "time_rules": [list(rule) for rule in plan.engine_spec.TIME_RULES],
     }

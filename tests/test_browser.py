@@ -196,6 +196,27 @@ def test_exported_page_shows_control_and_direction_characters_as_escapes(browser
         assert dialogs == [] and errors == [] and blocked == []
 
 
+def test_export_page_shows_own_time_per_row_and_the_slowest_operators(browser, tmp_path):
+    """Source: plans/tpch/pg16/q22.serial.txt (TPC-H Q22, PostgreSQL 16): the tree's own-time
+    cells and the slowest list show the report's figures; selecting a row shows its times."""
+    plan = planview.load(Path(__file__).resolve().parent.parent / "plans" / "tpch" / "pg16" / "q22.serial.txt")
+    report = plan.report()
+    with exported_page(browser, plan, tmp_path / "timed.html") as (page, blocked, dialogs, errors):
+        cells = page.locator(".pv-tree .pv-row[data-id] .pv-own-ms")
+        assert cells.count() == len(report["nodes"])
+        items = page.locator(".pv-slowest li")
+        assert items.count() == len(report["slowest"])
+        first = report["slowest"][0]
+        assert items.first.get_attribute("data-node") == str(first["node"])
+        page.locator(f'.pv-row[data-id="{first["node"]}"]').click()
+        numbers = page.locator(".pv-detail .pv-numbers").inner_text()
+        assert "own time, in all / per start" in numbers and "time with inputs" in numbers
+        origin = report["findings"][0]
+        page.locator(f'.pv-row[data-id="{origin["node"]}"]').click()
+        assert "Time under it" in page.locator(".pv-detail .pv-impact-time").inner_text()
+        assert not errors
+
+
 def test_export_page_walks_origins_by_rank_with_buttons_and_keys(browser, tmp_path):
     plan = planview.load(PLANS / "multi.json")
     ranked = [f["node"] for f in sorted(plan.report()["findings"], key=lambda f: f["rank"])]

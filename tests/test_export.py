@@ -216,7 +216,8 @@ def test_markdown_ticket_has_each_origin_with_cause_fix_and_caution():
     report = plan.report()
     text = plan.to_markdown()
     assert report["findings"]
-    table = [line for line in text.splitlines() if line.startswith("| ")]
+    origins = text.split("### Origins, most impact first", 1)[1].split("\n### ", 1)[0]
+    table = [line for line in origins.splitlines() if line.startswith("| ")]
     assert len(table) == 1 + len(report["findings"])
     for finding in report["findings"]:
         row = next(line for line in table if line.startswith(f"| {finding['rank']} |"))
@@ -248,7 +249,7 @@ def test_markdown_of_a_plan_without_origins():
     plan = planview.load(PG16 / "well_estimated.json")
     assert not plan.report()["findings"]
     text = plan.to_markdown()
-    assert "No operator's estimate is off" in text and "| # |" not in text
+    assert "No operator's estimate is off" in text and "### Origins" not in text
 
 
 # -- the command line --------------------------------------------------------------------------

@@ -9,6 +9,9 @@ The fix SQL comes from the engine module (`suggest_fix`), so it speaks the engin
 
 from __future__ import annotations
 
+import math
+
+from .. import words
 from ..inert import UnquotableName, refused_fix
 from . import (
     correlation,
@@ -87,13 +90,15 @@ def diagnose(plan, rules=RULES, max_diagnosed: int = MAX_DIAGNOSED) -> None:
 
 
 def _head_line(node, finding) -> str:
-    direction = "underestimated" if finding.direction == "under" else "overestimated"
-    head = (f"Estimated {fmt_rows(node.est_total)} rows, found {fmt_rows(node.actual_total)} "
-            f"({direction} x{finding.own_q_error:,.1f} here"
-            + (f", x{finding.q_error:,.1f} in all" if abs(finding.q_error - finding.own_q_error) > 0.05 else "")
-            + ").")
+    sign = 1 if finding.direction == "under" else -1
+    added = words.error(sign * math.log10(max(1.0, finding.own_q_error)), finding.own_q_error)
+    head = (f"Estimated {fmt_rows(node.est_total)} rows, found {fmt_rows(node.actual_total)}: "
+            f"the estimate is {added} here"
+            + (f", {words.error(sign * math.log10(max(1.0, finding.q_error)), finding.q_error)} in all"
+               if abs(finding.q_error - finding.own_q_error) > 0.05 else "")
+            + ".")
     if node.starts and node.starts > 1:
-        head += f" Over {node.starts:,.0f} starts: {fmt_rows(node.est_rows)} estimated per start."
+        head += f" Over {words.rows(node.starts)} starts: {fmt_rows(node.est_rows)} estimated per start."
     return head
 
 

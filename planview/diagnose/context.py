@@ -9,6 +9,7 @@ from dataclasses import dataclass, field
 from itertools import combinations
 from typing import Any
 
+from .. import words
 from ..index import relation_name
 from .clauses import Clause, merge_ranges, parse_condition
 
@@ -230,7 +231,7 @@ def _parameterised_join_clauses(plan, join, dialect: str | None) -> list[Clause]
 def fmt_rows(value: float | None) -> str:
     if value is None:
         return "?"
-    return f"{value:,.0f}" if value >= 10 or float(value).is_integer() else f"{value:,.2f}"
+    return words.rows(value)
 
 
 def fmt_sel(value: float | None) -> str:

@@ -10,14 +10,10 @@ from __future__ import annotations
 from .context import fmt_rows
 
 
-def node_ms(node) -> float | None:
-    """Inclusive time. Per-start times add up over loops, except across parallel processes,
-    which run at the same time (there the per-process average is the wall-clock figure)."""
-    if node.actual_total_ms is None:
-        return None
-    if node.parallel_divisor is not None or node.parallel_aware:
-        return node.actual_total_ms
-    return node.actual_total_ms * (node.starts or 1)
+def node_ms(plan, node) -> float | None:
+    """Its time with its inputs, in all, by its engine's rule (`planview.timing`)."""
+    times = getattr(plan, "times", None)
+    return times.total_ms[node.id] if times is not None else None
 
 
 JOIN_RULES = ("join", "semi_outer", "semi_inner")
@@ -70,7 +66,8 @@ class ImpactWalk:
 def _impact(plan, origin, decision, walker, query_ms) -> dict:
     nodes = plan.nodes
     target = decision or origin
-    ms = node_ms(target)
+    ms = node_ms(plan, target)
+    origin_ms = node_ms(plan, origin)
     text = ""
     if decision is not None:
         inner = [nodes[c] for c in decision.children if nodes[c].parent_relationship == "Inner"]
@@ -99,4 +96,7 @@ def _impact(plan, origin, decision, walker, query_ms) -> dict:
     rows = abs((origin.actual_total or 0) - (origin.est_total or 0))
     return {"ms": round(ms, 3) if ms is not None else None,
             "share": round(min(1.0, ms / query_ms), 4) if ms is not None and query_ms else None,
+            "origin_ms": round(origin_ms, 3) if origin_ms is not None else None,
+            "origin_share": round(min(1.0, origin_ms / query_ms), 4)
+            if origin_ms is not None and query_ms else None,
             "node": target.id, "text": text, "rows": rows}

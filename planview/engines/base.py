@@ -165,6 +165,43 @@ class Engine:
     def refine(self, node: PlanNode, nodes: list[PlanNode], parsed: ParsedPlan, role: Role) -> None:
         """What this engine adds to the role the tables give (nothing by default)."""
 
+    # -- time per operator (read by planview.timing) --------------------------------------
+    TIME_PRINTED: str | None = None
+    """How the engine prints an operator's time: ``inclusive`` (a time per start that holds
+    its inputs' time: `inclusive_ms`), ``exclusive`` (its own time over all its starts, its
+    inputs' left out: `exclusive_ms`), None (no time per operator)."""
+    TIME_RULES: tuple[tuple[str, str], ...] = ()
+    """(node class, how its time is read): the rule per node class, shown in the README."""
+
+    def time_of(self, node: PlanNode, nodes: list[PlanNode]) -> tuple[str, float] | None:
+        """What the engine printed for a node's time: (kind, ms) with kind one of
+        ``with_inputs_per_start``, ``with_inputs_in_all``, ``own_in_all``; None: nothing."""
+        if self.TIME_PRINTED == "inclusive":
+            value = self.inclusive_ms(node)
+            return None if value is None else ("with_inputs_per_start", value)
+        if self.TIME_PRINTED == "exclusive":
+            value = self.exclusive_ms(node)
+            return None if value is None else ("own_in_all", value)
+        return None
+
+    def inclusive_ms(self, node: PlanNode) -> float | None:
+        """Its time with its inputs', per start, as printed (``inclusive`` engines)."""
+        return node.actual_total_ms
+
+    def exclusive_ms(self, node: PlanNode) -> float | None:
+        """Its own time over all its starts, as printed (``exclusive`` engines); None: not printed."""
+        return None
+
+    def time_processes(self, node: PlanNode, nodes: list[PlanNode]) -> float | None:
+        """How many processes run this node's inputs at the same time (a Gather's workers
+        and its leader), so that their summed times overlap; None: one."""
+        return None
+
+    def time_reads(self, node: PlanNode, nodes: list[PlanNode], parsed: ParsedPlan) -> tuple[int, ...]:
+        """Subtrees, not below this node, whose time the engine counts in this node's (a CTE,
+        run by the scans that read it; an InitPlan, run where its value is first used)."""
+        return ()
+
     # -- the role ---------------------------------------------------------------------------
     def role(self, node: PlanNode, nodes: list[PlanNode], parsed: ParsedPlan) -> Role:
         """What the check must know of a node (see `planview.check.Role`), from the tables.

@@ -1023,6 +1023,23 @@ class DuckDB(Engine):
                 return "source"  # estimated afresh after a rewrite: its error is its own
         return rule
 
+    # The profiling output's operator_timing (timing in 1.4's JSON, "(0.09s)" in a text box) is
+    # the operator's own time, its children's left out, added up over the threads that ran it:
+    # the sum over the tree is the query's cpu_time, which exceeds its latency when threads
+    # ran at once.
+    TIME_PRINTED = "exclusive"
+    TIME_RULES = (
+        ("every operator", "operator timing is its own time, added up over its threads; "
+                           "with its inputs = that plus its inputs' in all"),
+        ("parallel threads", "summed, not overlapped: the tree's sum is the query's cpu_time, "
+                             "which can exceed the query's wall-clock latency"),
+        ("EXPLAIN without ANALYZE", "unknown"),
+    )
+
+    def exclusive_ms(self, node: PlanNode) -> float | None:
+        value = node.extra.get("own_time_ms")
+        return float(value) if isinstance(value, (int, float)) and not isinstance(value, bool) else None
+
     def limit_count(self, node: PlanNode) -> float | None:
         """Top-N prints its N as "Top"; a plain LIMIT prints no count."""
         return _count_or_none((node.extra.get("extra_info") or {}).get("Top"))

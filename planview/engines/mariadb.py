@@ -250,6 +250,9 @@ class _Builder:
                 entries.append(("table", item["table"], f"{where}.table"))
             elif "block-nl-join" in item:
                 entries.append(("bnl", item["block-nl-join"], f"{where}.block-nl-join"))
+            elif isinstance(item.get("read_sorted_file"), dict) \
+                    and isinstance(item["read_sorted_file"].get("filesort"), dict):
+                entries.append(("sorted", item["read_sorted_file"], f"{where}.read_sorted_file"))
             elif RANGE_CHECKED in item:
                 entries.append(("range_checked", item[RANGE_CHECKED], f"{where}.{RANGE_CHECKED}"))
             elif "duplicates_removal" in item:
@@ -322,6 +325,10 @@ class _Builder:
                 else:
                     act_total = None
                 join.extra["join_algorithm"] = raw.get("join_type")
+                for time_key in ("r_unpack_time_ms", "r_other_time_ms"):
+                    value = self.number(raw.get(time_key), time_key)
+                    if value is not None:
+                        join.extra[time_key] = value
                 join.extra["buffer_type"] = raw.get("buffer_type")
                 if isinstance(raw.get("attached_condition"), str):
                     join.conditions.append(Condition("join_filter", raw["attached_condition"],
@@ -354,6 +361,8 @@ class _Builder:
     def member(self, kind: str, raw: Any, parent, path, depth, relationship) -> int:
         if kind == "table":
             return self.table(raw, parent, path, depth, relationship)
+        if kind == "sorted":  # the first table, sorted before the join reads it
+            return self.sorted_block("filesort", raw, parent, path, depth, relationship, None)
         wrapper = RANGE_CHECKED if kind == "range_checked" else "block-nl-join"
         if not isinstance(raw, dict) or not isinstance(raw.get("table"), dict):
             raise self.error(f"\"{wrapper}\" without a \"table\"", path)
@@ -838,6 +847,50 @@ class MariaDB(Engine):
             role.stopped = (f"stopped early: the full scan read {r_rows:,.0f} of the about "
                             f"{rows:,.0f} rows of {node.relation}, so the query stopped it (a LIMIT "
                             "the plan does not show, or a first match)")
+
+    # The manual's ANALYZE FORMAT=JSON: r_total_time_ms is "how much time in total, in
+    # milliseconds, was spent executing this node", its subnodes included; a table prints
+    # r_table_time_ms (in the storage engine) and r_other_time_ms (the rest of the join's work
+    # at that table: conditions, buffers), over all its loops. Checked on 10.11: the tables'
+    # times add up to the query block's r_total_time_ms; a filesort that reads its table itself
+    # holds that table's time, one that sorts a temporary table holds only its own; a
+    # sub-query's tables are not in the outer table's time.
+    TIME_PRINTED = "exclusive"
+    TIME_RULES = (
+        ("table", "r_table_time_ms + r_other_time_ms, over all its loops, its own"),
+        ("block nested loop", "r_unpack_time_ms + r_other_time_ms of the join buffer, its own"),
+        ("nested loop", "0 ms of its own: MariaDB counts the join's work at its tables"),
+        ("filesort", "r_total_time_ms holds the table it reads itself (own = that less the "
+                     "table's); over a temporary table it is the sort's own"),
+        ("temporary table, union result", "0 ms of its own (no time printed; the writes are "
+                                          "counted at the tables)"),
+        ("sub-query", "its own block's tables, added to the query's time"),
+        ("masked (\"REPLACED\")", "unknown"),
+    )
+
+    def time_of(self, node: PlanNode, nodes: list[PlanNode]) -> tuple[str, float] | None:
+        extra = node.extra
+        if node.operator == "filesort":
+            total = extra.get("r_total_time_ms")
+            if not isinstance(total, (int, float)) or isinstance(total, bool):
+                return None
+            reads_itself = all(nodes[c].operator not in ("temporary_table", "filesort")
+                               for c in node.children if nodes[c].is_input_edge)
+            return ("with_inputs_in_all" if reads_itself else "own_in_all", float(total))
+        keys = ("r_unpack_time_ms", "r_other_time_ms") if node.operator == "block-nl-join" \
+            else ("r_table_time_ms", "r_other_time_ms")
+        found = [extra[k] for k in keys if isinstance(extra.get(k), (int, float))
+                 and not isinstance(extra.get(k), bool)]
+        if found:
+            return ("own_in_all", float(sum(found)))
+        if node.operator in ("nested_loop", "block-nl-join", "temporary_table", "union_result",
+                             "read_sorted_file", "message") and not self._masked(node):
+            return ("own_in_all", 0.0)
+        return None
+
+    @staticmethod
+    def _masked(node: PlanNode) -> bool:
+        return any(isinstance(v, str) and v.strip() in MASKED for v in node.extra.values())
 
     def suggest_fix(self, cause, table, columns=(), **details):
         return suggest_fix(cause, table, columns, **details)

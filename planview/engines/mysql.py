@@ -470,6 +470,18 @@ class MySQL(Engine):
 
     JOIN_BY_TYPE = True
 
+    # The manual's EXPLAIN ANALYZE: "actual time" is the time to the first row and to all rows,
+    # in milliseconds, an average over the loops, and an iterator's time holds its inputs' (it
+    # pulls their rows), sub-queries evaluated by its conditions included.
+    TIME_PRINTED = "inclusive"
+    TIME_RULES = (
+        ("every iterator", "actual time's second figure (per loop, with its inputs) x loops; "
+                           "own = that less its inputs' in all"),
+        ("sub-query (Select #n)", "counted in the iterator that evaluates it (its parent here)"),
+        ("never executed", "0 ms"),
+        ("EXPLAIN without ANALYZE", "unknown"),
+    )
+
     def input_rule(self, node: PlanNode, nodes: list[PlanNode], inputs: list[int]) -> str:
         if node.join_type:
             return "semi_outer" if node.join_type in self.SEMI_JOINS else "join"

@@ -18,6 +18,7 @@ from sqlglot import exp as sqlglot_exp
 
 from ..check import Role
 from ..errors import PlanParseError
+from ..index import index_of
 from ..inert import check_name, comment_text
 from ..model import NO_ENTRIES, Condition, ParsedPlan, PlanNode, Statement
 from ..source import MAX_DEPTH
@@ -1918,8 +1919,72 @@ class PostgreSQL(Engine):
         leader = str(settings.get("parallel_leader_participation", "on")).lower() != "off"
         return parallel_divisor(nodes[gather_id].workers_planned, leader)
 
+    # "Using EXPLAIN" in the manual: actual time is in milliseconds and an average per loop
+    # ("multiply the actual time values by loops to get the total time"); a node's time holds
+    # its children's. Below a Gather the figures are averaged over the processes that ran the
+    # node, each loop being one process's run, and those processes run at the same time.
+    TIME_PRINTED = "inclusive"
+    TIME_RULES = (
+        ("every node", "actual time (per loop, with its children) x loops; own = that less "
+                       "its children's, InitPlans' and SubPlans' in all"),
+        ("below a Gather or Gather Merge", "the processes (workers launched, plus the leader when it "
+                                           "takes part) run at once: in all = per loop x loops / processes, "
+                                           "one process's share of the wall clock, never their sum"),
+        ("InitPlan, SubPlan", "counted in the time of the node that evaluates it; an InitPlan is shown "
+                              "under the node it is attached to, and where an input used it first, the "
+                              "node's own time is clamped at 0"),
+        ("CTE", "run by the CTE Scans that read it: its time is taken out of theirs (first reader "
+                "first), not out of the node it is attached to"),
+        ("never executed", "0 ms"),
+        ("TIMING OFF", "unknown"),
+    )
+
+    def time_processes(self, node: PlanNode, nodes: list[PlanNode]) -> float | None:
+        """A Gather's workers and its leader; the leader takes part unless the Gather is a
+        single copy or its input's loops say otherwise (parallel_leader_participation off)."""
+        if node.operator not in GATHERS or not node.workers_launched:
+            return None
+        launched = float(node.workers_launched)
+        inputs = [nodes[c] for c in node.children if nodes[c].is_input_edge]
+        loops = inputs[0].starts if inputs else None
+        if node.extra.get("Single Copy") or loops == launched:
+            return launched
+        return launched + 1.0
+
+    def time_reads(self, node: PlanNode, nodes: list[PlanNode], parsed: ParsedPlan) -> tuple[int, ...]:
+        """The CTE a CTE Scan reads; the InitPlans whose value its conditions use ($0 up to 17,
+        (InitPlan 1).col1 from 18): an InitPlan runs, and is timed, where its value is used."""
+        found: list[int] = []
+        if node.operator == "CTE Scan":
+            cte = self.cte_read(node, nodes, parsed)
+            if cte is not None:
+                found.append(cte)
+        for condition in node.conditions:
+            text = condition.text
+            if "$" not in text and "InitPlan" not in text:
+                continue
+            names = index_of(parsed).first_by(_init_plan_key)
+            for token in _PARAM_TOKEN.findall(text):
+                init_plan = names.get((node.statement, token))
+                if init_plan is not None and init_plan not in found:
+                    found.append(init_plan)
+        return tuple(found)
+
     def suggest_fix(self, cause, table, columns=(), **details):
         return suggest_fix(cause, table, list(columns), **details)
+
+
+_PARAM_TOKEN = re.compile(r"\$\d+|\(InitPlan \d+\)")
+_RETURNS = re.compile(r"\$\d+")
+
+
+def _init_plan_key(node: PlanNode):
+    """An InitPlan's names as its users print them: ``$0`` (returns $0,$1) or ``(InitPlan 1)``."""
+    name = node.subplan_name
+    if node.parent_relationship != "InitPlan" or not name or not name.startswith("InitPlan"):
+        return None
+    returns = _RETURNS.findall(name)
+    return (node.statement, returns[0] if returns else f"({name.split(' (')[0]})")
 
 
 ENGINE = PostgreSQL()

@@ -5,6 +5,9 @@ from __future__ import annotations
 import math
 from typing import Any
 
+from .. import words as _words
+from ..words import CAUSE_WORDS, factor, ms, rows  # noqa: F401  (one vocabulary: planview/words.py)
+
 VIK = (
     "#001261", "#022b71", "#034481", "#0c5e92", "#307da6", "#619ebd", "#94bed2", "#c6dbe6",
     "#ece5e0", "#e9ccba", "#dcac90", "#cf8e68", "#c37243", "#b3531f", "#942f06", "#741506",
@@ -17,19 +20,6 @@ holds the same list (a test keeps the two equal)."""
 SCALE_LIMIT = 4.0
 LARGE_PLAN = 80
 """Plans with more operators than this open folded, with only the paths to the origins open."""
-
-CAUSE_WORDS = {
-    "correlation": "correlated columns",
-    "skew": "skewed values",
-    "range_gap": "values past the histogram's range",
-    "stale_statistics": "stale statistics",
-    "default_selectivity": "a default selectivity guess",
-    "unexplained": "no cause found",
-    "not_diagnosed": "not diagnosed (past the diagnosis cap)",
-    "join_selectivity": "a semi- or anti-join selectivity guess",
-    "filter_combination": "how the engine combines ANDed filters",
-    "planner_guess": "the planner's built-in guess",
-}
 
 GENERIC_CAUTION = (
     "Run fixes on a replica or in a quiet hour first: ANALYZE reads a sample of the table, "
@@ -57,51 +47,12 @@ def _rgb(hex_colour: str) -> tuple[int, int, int]:
     return tuple(int(hex_colour[i:i + 2], 16) for i in (1, 3, 5))  # type: ignore[return-value]
 
 
-def rows(value: float | None) -> str:
-    if value is None:
-        return "–"
-    if abs(value) >= 1e9:
-        return f"{value / 1e9:.3g}G"
-    if abs(value) >= 1e7:
-        return f"{value / 1e6:.3g}M"
-    if float(value).is_integer():
-        return f"{value:,.0f}"
-    if abs(value) >= 100:
-        return f"{value:,.0f}"
-    if abs(value) < 1:
-        return f"{value:.3g}"
-    return f"{value:,.2f}".rstrip("0").rstrip(".")
-
-
-def factor(q: float | None) -> str:
-    if q is None:
-        return "–"
-    if q >= 1e6:
-        return f"×{q:.1e}"
-    if q >= 100:
-        return f"×{q:,.0f}"
-    return f"×{q:.0f}" if q >= 10 else f"×{q:.1f}"
-
-
-def ms(value: float | None) -> str:
-    if value is None:
-        return "–"
-    return f"{value / 1000:.2f} s" if value >= 1000 else f"{value:.3f} ms" if value < 10 else f"{value:.1f} ms"
-
-
 def error_words(log10_ratio: float | None, q: float | None) -> str:
-    if log10_ratio is None:
-        return "–"
-    if abs(log10_ratio) < 0.02:
-        return "on target"
-    return f"{factor(q if q is not None else 10 ** abs(log10_ratio))} " + (
-        "too few est." if log10_ratio > 0 else "too many est.")
+    return _words.error(log10_ratio, q)
 
 
 def cause_words(cause: str | None) -> str | None:
-    if not cause:
-        return None
-    return CAUSE_WORDS.get(cause, str(cause).replace("_", " "))
+    return _words.cause(cause)
 
 
 def node_state(node: dict[str, Any]) -> str:

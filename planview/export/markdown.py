@@ -80,6 +80,7 @@ def render_markdown(plan) -> str:
         out.append("- estimates only: the plan has no actual rows, so nothing could be judged")
     if statement.get("query_text"):
         out += ["", "Query:", "", md_fence(statement["query_text"], lang)]
+    out += _slowest(report)
     if not findings:
         out += ["", "No operator's estimate is off by the threshold or more."]
         return "\n".join(out) + "\n"
@@ -120,6 +121,10 @@ def render_markdown(plan) -> str:
             out += [f"- {md_text(x)}" for x in lines]
             out += [f"- {md_text(k)}: {md_text(v)}" for k, v in pairs]
         impact = f.get("impact") or {}
+        if isinstance(impact, dict) and impact.get("origin_ms") is not None:
+            share = impact.get("origin_share")
+            out += ["", f"Time under it (with its inputs, in all starts): {md_text(ms(impact['origin_ms']))}"
+                    + (f", {share * 100:.0f}% of the query." if share is not None else ".")]
         if isinstance(impact, dict) and (impact.get("text") or impact.get("ms") is not None):
             out += ["", "Impact: " + " ".join(x for x in (
                 md_text(ms(impact["ms"])) + "." if impact.get("ms") is not None else "",
@@ -135,6 +140,24 @@ def render_markdown(plan) -> str:
         for text in dict.fromkeys(cautions):
             out.append(f"- {md_text(text)}")
     return "\n".join(out) + "\n"
+
+
+def _slowest(report) -> list[str]:
+    """The operators with the largest own time: in all starts and per start, with their share."""
+    items = report.get("slowest") or []
+    if not items:
+        return []
+    out = ["", "### Slowest operators, by own time", "",
+           "| # | operator | own time | share | with its inputs | own per start | starts |",
+           "|---|---|---|---|---|---|---|"]
+    for item in items:
+        share = f"{item['share'] * 100:.1f}%" if item.get("share") is not None else "–"
+        out.append(f"| {item['rank']} | \\#{item['node']} {md_code(item.get('label') or '', in_table=True)}"
+                   + (" (origin)" if item.get("origin") else "")
+                   + f" | {md_text(ms(item.get('self_ms')))} | {share} | {md_text(ms(item.get('total_ms')))} | "
+                   f"{md_text(ms(item.get('self_ms_per_start')))} | {md_text(_rows(item.get('starts')))} |")
+    out += ["", "Own time: the operator's time less its inputs'; shares are of all operators' own time."]
+    return out
 
 
 def _rows(value):

@@ -128,6 +128,12 @@ function shortError(log10Ratio, q) {
   return `${formatFactor(q ?? Math.pow(10, Math.abs(log10Ratio)))} ${log10Ratio > 0 ? "under" : "over"}`;
 }
 
+function ownMs(ms) {
+  if (ms === null || ms === undefined) return "–";
+  if (ms >= 1000) return `${(ms / 1000).toFixed(1)}s`;
+  return ms >= 10 ? ms.toFixed(0) : ms.toFixed(ms >= 1 ? 1 : 2);
+}
+
 function formatMs(ms) {
   if (ms === null || ms === undefined) return "–";
   if (ms >= 1000) return `${(ms / 1000).toFixed(2)} s`;
@@ -371,7 +377,24 @@ class Review {
       extra.push(el("details", { class: "pv-query" }, el("summary", {}, "Query text"),
         el("pre", {}, textBlock(statement.query_text))));
     }
+    const slowest = this.slowestList();
+    if (slowest) extra.push(slowest);
     return el("div", {}, header, extra);
+  }
+
+  slowestList() {
+    const items = this.plan.report.slowest || [];
+    if (!items.length) return null;
+    const box = el("details", { class: "pv-slowest" },
+      el("summary", {}, "Slowest operators, by own time"),
+      el("ol", {}, items.map((item) => el("li", { "data-node": String(item.node) },
+        this.nodeLink(item.node, "pv-slowest-link"), " ",
+        `${formatMs(item.self_ms)} own`,
+        item.share !== null && item.share !== undefined ? ` (${(item.share * 100).toFixed(1)}%)` : "",
+        `, ${formatMs(item.total_ms)} with its inputs`,
+        item.origin ? el("span", { class: "pv-slowest-origin" }, " · origin") : ""))));
+    box.open = true;
+    return box;
   }
 
   buildToolbar() {
@@ -487,6 +510,7 @@ class Review {
       el("span", { class: "pv-num" }, "estimated"),
       el("span", { class: "pv-num" }, "actual"),
       el("span", { class: "pv-num" }, "starts"),
+      el("span", { class: "pv-num pv-own-ms", title: "own time, in all starts (its inputs' taken out)" }, "own ms"),
       el("span", { class: "pv-err" }, "error")));
     for (const node of rows) {
       const row = this.buildRow(node);
@@ -564,6 +588,7 @@ class Review {
       el("span", { class: "pv-num" }, formatRows(node.est_total ?? node.est_rows)),
       el("span", { class: "pv-num" }, formatRows(node.actual_total)),
       el("span", { class: "pv-num" }, formatRows(node.starts)),
+      el("span", { class: "pv-num pv-own-ms", title: node.time_note || "" }, ownMs(node.self_ms)),
       err]);
     row.addEventListener("click", () => this.select(node.id));
     return row;
@@ -753,6 +778,11 @@ class Review {
     ];
     if (node.total_cost !== null && node.total_cost !== undefined) rows.push(["cost", `${formatRows(node.startup_cost)} … ${formatRows(node.total_cost)}`]);
     if (node.actual_total_ms !== null && node.actual_total_ms !== undefined) rows.push(["time per start", `${formatMs(node.actual_startup_ms)} … ${formatMs(node.actual_total_ms)}`]);
+    if (node.total_ms !== null && node.total_ms !== undefined) {
+      rows.push(["time with inputs, in all / per start", `${formatMs(node.total_ms)} / ${formatMs(node.total_ms_per_start)}`]);
+      rows.push(["own time, in all / per start", `${formatMs(node.self_ms)} / ${formatMs(node.self_ms_per_start)}`]);
+      if (node.time_note) rows.push(["own time note", node.time_note]);
+    }
     for (const [key, value] of Object.entries(node.rows_removed || {})) rows.push([`removed by ${key.toLowerCase()}, per start`, formatRows(value)]);
     for (const [key, value] of Object.entries(node.buffers || {})) rows.push([`buffers: ${key}`, formatRows(value)]);
     if (node.workers_planned !== null && node.workers_planned !== undefined) rows.push(["workers planned / launched", `${node.workers_planned} / ${node.workers_launched ?? "–"}`]);
@@ -784,6 +814,12 @@ class Review {
     if (impact.text || (impact.ms !== null && impact.ms !== undefined)) {
       parts.push(el("p", { class: "pv-impact" }, el("strong", {}, "Impact: "),
         impact.ms !== null && impact.ms !== undefined ? `${formatMs(impact.ms)}. ` : "", impact.text || ""));
+    }
+    if (impact.origin_ms !== null && impact.origin_ms !== undefined) {
+      parts.push(el("p", { class: "pv-impact-time" }, el("strong", {}, "Time under it: "),
+        `${formatMs(impact.origin_ms)} with its inputs`,
+        impact.origin_share !== null && impact.origin_share !== undefined
+          ? `, ${Math.round(impact.origin_share * 100)}% of the query` : ""));
     }
     if (finding.fix) {
       parts.push(el("h4", {}, "Suggested fix"));

@@ -1,0 +1,169 @@
+"""Throughput, scale-out and memory of the batch review of a server log.
+
+Generates a PostgreSQL server log of auto_explain entries (about 40 operators each, text and
+JSON formats mixed, a misestimated scan with two ANDed filters in most, noise lines between),
+then, each run in a fresh process (peak resident memory read with wait4):
+
+  1. entries per second on one process (planview batch --workers 1, Parquet out)
+  2. the speed-up on two processes (--workers 2)
+  3. the speed-up on a local Dask cluster of two worker processes (--dask local)
+  4. peak memory of the reading process at 1x and at 10x the log (goal: flat), read from
+     /proc/self/status (VmHWM); the workers' from RUSAGE_CHILDREN (a worker forked from the
+     reading process starts at that process's size)
+
+Goals: 1.8x on two cores; memory flat as the log grows. On a shared machine the ratios are
+noisy; the numbers printed are what this run measured.
+
+Run: python bench/bench_batch.py [--entries 20000] [--scale 10] [--skip-10x]
+"""
+
+from __future__ import annotations
+
+import argparse
+import io
+import json
+import random
+import subprocess
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+ROOT = Path(__file__).resolve().parents[1]
+sys.path.insert(0, str(ROOT))
+sys.path.insert(0, str(ROOT / "bench"))
+
+from bench_limits import _walk, plan_tree, write_text  # noqa: E402
+
+DROP_KEYS = {"Shared Hit Blocks", "Shared Read Blocks", "Shared Dirtied Blocks",
+             "Shared Written Blocks", "Local Hit Blocks", "Local Read Blocks", "Local Dirtied Blocks",
+             "Local Written Blocks", "Temp Read Blocks", "Temp Written Blocks"}
+VARIANTS = 24
+
+
+def _template(variant: int, operators: int = 40) -> tuple[str, str, str]:
+    """(query text, text plan, JSON plan body) of one variant: auto_explain with log_verbose and
+    no buffers, a scan in two of every three variants misestimated x30."""
+    root = plan_tree(operators)
+    rng = random.Random(variant)
+    scans = []
+    for node, _depth in _walk(root):
+        for key in DROP_KEYS & set(node):
+            del node[key]
+        if node["Node Type"] == "Seq Scan":
+            node["Relation Name"] = f"{node['Relation Name']}_v{variant % 6}"
+            scans.append(node)
+    if variant % 3:
+        scan = rng.choice(scans)
+        name = scan["Relation Name"]
+        scan["Filter"] = f"(({name}.town = 'town{variant}'::text) AND ({name}.postcode = 'pc{variant}'::text))"
+        scan["Actual Rows"] = scan["Plan Rows"] * 30
+    query = f"SELECT count(*) FROM t0_v{variant % 6} /* report {variant} */ WHERE x > {variant}"
+    text = io.StringIO()
+    write_text(root, text)
+    body = json.dumps({"Query Text": query, "Plan": root}, indent=2)
+    lines = [x for x in text.getvalue().splitlines() if not x.startswith(("Planning Time", "Execution Time"))]
+    return query, "\n".join(lines), body
+
+
+def write_log(path: Path, entries: int) -> int:
+    """A log of `entries` entries; returns its size in bytes."""
+    templates = [_template(v) for v in range(VARIANTS)]
+    rendered = []
+    for query, text, body in templates:
+        as_text = "\tQuery Text: " + query + "\n" + "".join("\t" + line + "\n" for line in text.splitlines())
+        as_json = "".join("\t" + line + "\n" for line in body.splitlines())
+        rendered.append((as_text, as_json))
+    start = 1_800_000_000.0
+    with open(path, "w", encoding="utf-8") as out:
+        for i in range(entries):
+            stamp = time.strftime("%Y-%m-%d %H:%M:%S", time.gmtime(start + i * 0.05))
+            if i % 10 == 0:
+                out.write(f"{stamp}.000 UTC [{4000 + i % 7}] app@clinic LOG:  connection authorized: "
+                          "user=app database=clinic\n")
+            as_text, as_json = rendered[i % VARIANTS]
+            out.write(f"{stamp}.{i % 1000:03d} UTC [{4000 + i % 7}] app@clinic LOG:  duration: "
+                      f"{3 + (i % 97) * 0.37:.3f} ms  plan:\n")
+            out.write(as_json if (i // VARIANTS) % 2 else as_text)
+    return path.stat().st_size
+
+
+CHILD = r"""
+import json, os, resource, sys, time
+sys.path.insert(0, {root!r})
+log, out, mode = sys.argv[1], sys.argv[2], sys.argv[3]
+t0 = time.perf_counter()
+if mode == "dask":
+    from planview.fleet.dask_run import dask_batch
+    totals = dask_batch(log, out, scheduler="local", partition_bytes=16 << 20)
+else:
+    from planview.fleet.batch import write_batch
+    totals = write_batch(log, out, workers=int(mode), progress=False)
+seconds = time.perf_counter() - t0
+def own_peak_mb():
+    # VmHWM belongs to this process's own memory map. ru_maxrss would not do: a process started
+    # by exec keeps the high-water mark of the one that spawned it (here the benchmark, which
+    # held a copy of the log at one point), so it reported that, not this process's peak.
+    with open("/proc/self/status") as status:
+        for line in status:
+            if line.startswith("VmHWM:"):
+                return int(line.split()[1]) / 1024
+    return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
+print(json.dumps({{"seconds": seconds, "entries": totals.entries, "nodes": totals.nodes,
+                   "unreadable": len(totals.unreadable),
+                   "peak_mb": own_peak_mb(),
+                   "workers_peak_mb": resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss / 1024}}))
+"""
+
+
+def run(log: Path, out: Path, mode: str) -> dict:
+    code = CHILD.format(root=str(ROOT))
+    proc = subprocess.run([sys.executable, "-c", code, str(log), str(out), mode], capture_output=True,
+                          text=True, timeout=7200)
+    if proc.returncode != 0:
+        raise SystemExit(f"run {mode} failed:\n{proc.stderr[-3000:]}")
+    return json.loads(proc.stdout.strip().splitlines()[-1])
+
+
+def main() -> None:
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--entries", type=int, default=20_000)
+    parser.add_argument("--scale", type=int, default=10, help="the larger log, as a multiple (default 10)")
+    parser.add_argument("--skip-10x", action="store_true", help="leave out the large-log memory run")
+    args = parser.parse_args()
+    with tempfile.TemporaryDirectory(prefix="pv-bench-batch-") as tmp:
+        tmp = Path(tmp)
+        log = tmp / "server.log"
+        t0 = time.perf_counter()
+        size = write_log(log, args.entries)
+        print(f"log: {args.entries:,} entries, {size / 1e6:.0f} MB, written in {time.perf_counter() - t0:.1f} s "
+              f"(text and JSON mixed, {VARIANTS} plan variants of ~40 operators)")
+        one = run(log, tmp / "one.parquet", "1")
+        print(f"1 process:  {one['seconds']:.1f} s, {one['entries'] / one['seconds']:,.0f} entries/s, "
+              f"{one['nodes']:,} operators, {one['unreadable']} unreadable, peak {one['peak_mb']:.0f} MB")
+        two = run(log, tmp / "two.parquet", "2")
+        print(f"2 processes: {two['seconds']:.1f} s, {two['entries'] / two['seconds']:,.0f} entries/s, "
+              f"speed-up {one['seconds'] / two['seconds']:.2f}x (goal 1.8x), reader peak {two['peak_mb']:.0f} MB, "
+              f"worker peak {two['workers_peak_mb']:.0f} MB")
+        dask = run(log, tmp / "dask-parts", "dask")
+        print(f"Dask local cluster (2 workers): {dask['seconds']:.1f} s (cluster start included), "
+              f"speed-up {one['seconds'] / dask['seconds']:.2f}x over 1 process")
+        if not args.skip_10x:
+            big = tmp / "server10.log"
+            import shutil
+
+            with open(big, "wb") as out:  # copied a block at a time: this process stays small
+                for _ in range(args.scale):
+                    with open(log, "rb") as part:
+                        shutil.copyfileobj(part, out, 1 << 20)
+            log.unlink()
+            large = run(big, tmp / "ten.parquet", "2")
+            print(f"{args.scale}x log ({args.scale * args.entries:,} entries, {big.stat().st_size / 1e6:.0f} MB, 2 processes): "
+                  f"{large['seconds']:.1f} s, reader peak {large['peak_mb']:.0f} MB against {two['peak_mb']:.0f} MB "
+                  f"at 1x (ratio {large['peak_mb'] / two['peak_mb']:.2f}), worker peak {large['workers_peak_mb']:.0f} MB "
+                  f"against {two['workers_peak_mb']:.0f} MB")
+        print(f"peak memory 1x: {two['peak_mb']:.0f} MB (reader) / {two['workers_peak_mb']:.0f} MB (worker)")
+
+
+if __name__ == "__main__":
+    main()
