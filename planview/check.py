@@ -64,7 +64,12 @@ class Role:
       the figures: a limit emits at most its count, so the count is at least its estimate and
       its actual rows);
     - `emits`: an input whose rows this node emits without counting them (DuckDB's CTE node
-      returns what the query after its CTE returns): its consumer is judged against that input.
+      returns what the query after its CTE returns): its consumer is judged against that input;
+    - `exact_inputs`: inputs whose count before a cut is known to be their estimate (a scan of
+      a whole table without a filter of its own, cut only by this node's run-time filter): they
+      carry no error into this node, whatever the cut left of them;
+    - `shared_error`: filled by the check, not the engine: the log ratio an error common to
+      both inputs of a join adds to each (both read one CTE), counted once rather than twice.
 
     The facts below are not the check's: it copies them onto the node for the diagnosis.
 
@@ -87,6 +92,8 @@ class Role:
     stopped: str | None = None
     limit_count: float | None = None
     emits: int | None = None
+    exact_inputs: tuple[int, ...] = ()
+    shared_error: float = 0.0
     reads_whole_relation: bool = False
     rows_discarded: float = 0.0
     conditions_from: tuple[int, ...] = ()
@@ -244,8 +251,12 @@ def _judged_lr(node: PlanNode) -> float:
     return node.log10_ratio if node.judged and node.log10_ratio is not None else 0.0
 
 
-def _carried(child: PlanNode, cut: dict[int, str] | None) -> float:
-    """What an input carries in; an input cut while running counts with its printed figures."""
+def _carried(child: PlanNode, role: Role) -> float:
+    """What an input carries in; an input cut while running counts with its printed figures,
+    one whose uncut count is its estimate carries nothing."""
+    if child.id in role.exact_inputs:
+        return 0.0
+    cut = role.cut_inputs
     if cut and child.id in cut and child.log10_ratio is not None:
         return child.log10_ratio
     return _judged_lr(child)
@@ -260,12 +271,12 @@ def _own_minus_first(node: PlanNode, inputs: list[PlanNode], role: Role) -> floa
     """Minus its input's log ratio: the one input of Hash, Sort, Materialize, Memoize, Gather...;
     the index bitmap under a heap scan; the outer input of a semi or anti join; the CTE a CTE
     scan reads."""
-    return node.log10_ratio - _carried(inputs[0], role.cut_inputs)
+    return node.log10_ratio - _carried(inputs[0], role)
 
 
 def _own_minus_last(node: PlanNode, inputs: list[PlanNode], role: Role) -> float:
     """Minus the inner input's log ratio (right semi and right anti joins)."""
-    return node.log10_ratio - _carried(inputs[-1], role.cut_inputs)
+    return node.log10_ratio - _carried(inputs[-1], role)
 
 
 def _own_of_limit(node: PlanNode, inputs: list[PlanNode], role: Role) -> float:
@@ -288,6 +299,11 @@ scaling with, that input. Below it the count came from the keys' distinct values
 input estimate would not have changed unless the input really held fewer rows than that count."""
 
 
+ROUNDING_ROWS = 1.0
+"""Engines print whole rows: half of an odd estimate (1,573) prints rounded down (786), which is
+still half of it, not a count from the keys' distinct values."""
+
+
 def _own_of_group(node: PlanNode, inputs: list[PlanNode], role: Role) -> float:
     """A group count far below its input estimate came from the keys' distinct values: its own
     error is against that count, or against the input's real rows where they are fewer. A
@@ -297,9 +313,9 @@ def _own_of_group(node: PlanNode, inputs: list[PlanNode], role: Role) -> float:
     lr = node.log10_ratio
     child = inputs[0]
     if node.est_total is not None and child.est_total is not None and child.actual_total is not None \
-            and node.est_total < GROUPS_CAPPED_AT * child.est_total and child.judged:
+            and node.est_total < GROUPS_CAPPED_AT * child.est_total - ROUNDING_ROWS and child.judged:
         return log_ratio(min(node.est_total, max(child.actual_total, 1.0)), node.actual_total)
-    carried = _carried(child, role.cut_inputs)
+    carried = _carried(child, role)
     scaled = lr - carried
     if lr * scaled <= 0:
         if abs(lr) >= 0.3 and abs(carried) >= 0.3:
@@ -315,9 +331,9 @@ def _own_of_join(node: PlanNode, inputs: list[PlanNode], role: Role) -> float:
     """Minus the log ratios of both inputs (outer joins: of the preserved input alone when
     that explains more, as they emit the preserved rows anyway)."""
     lr = node.log10_ratio
-    outer = _carried(inputs[0], role.cut_inputs)
-    inner = _carried(inputs[1], role.cut_inputs) if len(inputs) > 1 else 0.0
-    candidates = [lr - outer - inner]
+    outer = _carried(inputs[0], role)
+    inner = _carried(inputs[1], role) if len(inputs) > 1 else 0.0
+    candidates = [lr - outer - inner + role.shared_error]
     if role.preserved in ("outer", "both"):
         candidates.append(lr - outer)
     if role.preserved in ("inner", "both"):
@@ -422,8 +438,11 @@ def _own_errors_and_origins(nodes: list[PlanNode], roles: list[Role], threshold:
     a second pass picks those links up."""
     findings: list[Finding] = []
     below: dict[int, list[int]] = {}
+    reads_below: dict[int, frozenset[int]] | None = {} if any(r.reads is not None for r in roles) else None
     for node in reversed(nodes):
         role = roles[node.id]
+        if reads_below is not None:
+            _shared_reads(node, role, nodes, reads_below)
         if node.judged and node.log10_ratio is not None:
             node.own_log10_ratio = _own_error(node, role, nodes, roles)
             if node.own_log10_ratio is not None and not abs(node.own_log10_ratio) <= MAX_LOG10_ERROR:
@@ -439,6 +458,48 @@ def _own_errors_and_origins(nodes: list[PlanNode], roles: list[Role], threshold:
             _collect(node, nodes, roles, below, threshold)
     findings.reverse()
     return findings
+
+
+MAX_SHARED_READS = 16
+"""The re-read nodes (CTEs) a node's summary keeps; past it the summary is cut (a plan with
+more CTEs under one join than this is not one a reader needs this refinement for)."""
+
+
+def _shared_reads(node: PlanNode, role: Role, nodes: list[PlanNode],
+                  reads_below: dict[int, frozenset[int]]) -> None:
+    """Which re-read nodes (a CTE's output) lie below a node, bottom-up; for a join whose two
+    inputs both read one, that node's error reaches the join through both inputs although it
+    is one error: `shared_error` gives it back once (taken out twice, it would make the join
+    look like the opposite error of its own)."""
+    found: set[int] = set()
+    for child in node.children:
+        found |= reads_below.get(child, frozenset())
+    if role.reads is not None:
+        found.add(role.reads)
+    if found:
+        reads_below[node.id] = frozenset(sorted(found)[:MAX_SHARED_READS])
+    if role.rule != "join" or not node.judged:
+        return
+    inputs = [c for c in node.children if nodes[c].is_input_edge]
+    if len(inputs) != 2:
+        return
+    common = reads_below.get(inputs[0], frozenset()) & reads_below.get(inputs[1], frozenset())
+    if not common:
+        return
+    carried = [_carried(nodes[c], role) for c in inputs]
+    best, best_id = 0.0, None
+    for shared_id in common:
+        error = _judged_lr(nodes[shared_id])
+        if error * carried[0] > 0 and error * carried[1] > 0:
+            capped = math.copysign(min(abs(error), abs(carried[0]), abs(carried[1])), error)
+            if abs(capped) > abs(best):
+                best, best_id = capped, shared_id
+    if abs(best) < 1e-9:
+        return
+    role.shared_error = best
+    node.derived.append(
+        f"both inputs read #{best_id} (a CTE), so its error (x{10 ** abs(best):,.1f} "
+        f"{_direction(best)}) reaches this join through each of them; it is taken out once")
 
 
 MAX_LOG10_ERROR = 300.0

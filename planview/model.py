@@ -179,6 +179,9 @@ class ParsedPlan:
     notes: list[str] = field(default_factory=list)
     index: PlanIndex | None = field(default=None, repr=False, compare=False)
     """Built once by the check (`planview.index.index_of`); every later pass reads it."""
+    engine_facts: dict[str, Any] = field(default_factory=dict, repr=False, compare=False)
+    """What an engine's hooks work out once for the whole plan (DuckDB: which join pushed
+    each run-time filter), so that no hook walks the tree per node."""
 
 
 @dataclass(slots=True)

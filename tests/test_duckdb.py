@@ -286,3 +286,79 @@ def test_bad_input_names_the_key():
     with pytest.raises(PlanParseError) as err:
         planview.load("┌───────┐\n│ SEQ_SCAN │\n", engine="duckdb", fmt="text")
     assert err.value.line == 1
+
+
+# -- run-time filters: which join pushed each, and whether it could cut anything ---------------
+# A separate in-memory database per test: bookings reference sailings by sailing_id (every id
+# exists), so a filter built from every sailing can remove no booking; the real counts below
+# are the engine's own.
+
+@pytest.fixture()
+def ferry():
+    connection = duckdb.connect()
+    connection.execute("SET threads = 2")
+    connection.execute("CREATE TABLE sailings AS SELECT s AS sailing_id FROM range(20000) r(s)")
+    connection.execute("CREATE TABLE bookings AS SELECT i AS booking_id, (i * 7919) % 20000 AS sailing_id, "
+                       "i % 3 AS status FROM range(300000) r(i)")
+    yield connection
+    connection.close()
+
+
+def _analyze(connection, sql: str) -> str:
+    return connection.execute(f"EXPLAIN (ANALYZE, FORMAT json) {sql}").fetchall()[0][1]
+
+
+def test_a_filter_built_from_a_whole_table_cuts_nothing_and_leaves_the_scan_judged(ferry):
+    sql = ("SELECT count(*) FROM bookings b JOIN sailings s ON b.sailing_id = s.sailing_id "
+           "WHERE b.status = 1")
+    plan = planview.load(_analyze(ferry, sql))
+    scan = scan_of(plan, "bookings")
+    build = scan_of(plan, "sailings")
+    if not scan.extra.get("dynamic_filters") or scan.parent is None \
+            or plan.nodes[scan.parent].children[0] != scan.id:
+        pytest.skip(f"DuckDB {duckdb.__version__} did not probe bookings with a run-time filter")
+    # source: the real run; the build side is every sailing, unfiltered
+    assert build.actual_rows == build.est_rows == 20000 and not build.conditions
+    # source: the engine's count of the scan's own filter: the run-time filter removed nothing
+    assert scan.actual_rows == true_count(ferry, "FROM bookings WHERE status = 1")
+    assert scan.judged, scan.not_judged_reason
+    # the rows it read and did not emit are its own filter's (the profile's rows_scanned)
+    assert scan.rows_discarded == scan.extra["rows_scanned"] - scan.actual_rows
+
+
+def test_a_key_range_on_the_build_side_is_repeated_on_the_probe_side(ferry):
+    # The assumption `_cuts_nothing` rests on: a constant filter on one side of a join key is
+    # repeated on the other side, so a range on the build side's key that the probe side does not
+    # repeat came from the probe's own statistics. Source: the real run.
+    sql = ("SELECT count(*) FROM sailings s WHERE s.sailing_id <= 100 AND EXISTS "
+           "(SELECT 1 FROM bookings b WHERE b.sailing_id = s.sailing_id AND b.status = 1)")
+    plan = planview.load(_analyze(ferry, sql))
+    scan = scan_of(plan, "bookings")
+    path, current = [], scan
+    while current.parent is not None and plan.nodes[current.parent].operator != "HASH_JOIN":
+        current = plan.nodes[current.parent]
+        path.append(current)
+    repeated = [c.text for n in [scan, *path] for c in n.conditions
+                if c.kind == "filter" and "sailing_id" in c.text]
+    assert repeated, "the range on sailings.sailing_id is repeated on bookings.sailing_id"
+    if scan.extra.get("dynamic_filters") and scan.actual_rows < scan.est_rows:
+        # the run-time filter cut what the repeated range would: the scan is not judged
+        assert not scan.judged
+
+
+def test_a_filter_from_a_join_two_levels_up_belongs_to_that_join():
+    # TPC-H Q7 on DuckDB 2.0.1 (plans/tpch/duckdb/q07.json): the orders scan carries the
+    # customer join's filter `o_custkey IN PRF(c_custkey)`, two joins below it
+    path = PLANS.parent / "tpch" / "duckdb" / "q07.json"
+    plan = planview.load(path)
+    found = engine.runtime_filters(engine.parse(path.read_text(), "json"))
+    orders = scan_of(plan, "orders")
+    pushed = dict((text, join) for join, text in found[orders.id])
+    customer_join = next(n for n in plan.nodes if n.operator == "HASH_JOIN"
+                         and any(c.text == "o_custkey = c_custkey" for c in n.conditions))
+    lineitem_join = next(n for n in plan.nodes if n.operator == "HASH_JOIN"
+                         and any(c.text == "o_orderkey = l_orderkey" for c in n.conditions))
+    assert pushed["optional: o_custkey IN PRF(c_custkey)"] == customer_join.id
+    assert pushed["optional: o_orderkey IN PRF(l_orderkey)"] == lineitem_join.id
+    # its probe side's count carries its own filter's cut: an underestimate of its own is not told
+    assert not customer_join.origin

@@ -93,11 +93,14 @@ MAX_CLAUSES = 200
 """ANDed clauses classified per condition; the rest are counted, not classified."""
 
 
-def parse_condition(text: str, source: str, dialect: str | None) -> list[Clause]:
-    """The condition's top-level ANDed clauses, each classified (never raises)."""
+def parse_condition(text: str, source: str, dialect: str | None,
+                    subquery_mark: str | None = None) -> list[Clause]:
+    """The condition's top-level ANDed clauses, each classified (never raises).
+    `subquery_mark` is the engine's word for a sub-query's result inside a condition (a
+    regular expression; DuckDB prints `SUBQUERY`): it is read as a sub-plan's value."""
     if len(text) > MAX_CONDITION_CHARS:
         return [_too_long(text, source)]
-    return [Clause(**vars(c)) for c in _parse_cached(text, source, dialect)]
+    return [Clause(**vars(c)) for c in _parse_cached(text, source, dialect, subquery_mark)]
 
 
 def _too_long(text: str, source: str) -> Clause:
@@ -107,10 +110,13 @@ def _too_long(text: str, source: str) -> Clause:
 
 
 @lru_cache(maxsize=4096)
-def _parse_cached(text: str, source: str, dialect: str | None) -> tuple[Clause, ...]:
+def _parse_cached(text: str, source: str, dialect: str | None,
+                  subquery_mark: str | None = None) -> tuple[Clause, ...]:
     prepared = text
     for pattern, replacement in _PREP:
         prepared = pattern.sub(replacement, prepared)
+    if subquery_mark:
+        prepared = re.sub(subquery_mark, f"{_SUBPLAN}()", prepared)
     try:
         tree = sqlglot.parse_one(prepared, read=dialect)
     except Exception as exc:  # sqlglot raises several types; none may escape

@@ -187,7 +187,7 @@ def build_context(plan, node, relation_of: Mapping[str | None, str] | None = Non
         for cond in source.conditions:
             if cond.kind == "recheck_cond" and len(sources) > 1:
                 continue  # repeats the index conditions of the nodes below
-            for clause in parse_condition(cond.text, cond.kind, engine.dialect):
+            for clause in parse_condition(cond.text, cond.kind, engine.dialect, engine.SUBQUERY_MARK):
                 key = f"{clause.source}:{clause.text}"
                 if key in seen:
                     continue

@@ -26,6 +26,12 @@ def matched_share(outer_rows: float, emitted: float, anti: bool) -> float:
 def rule(ctx: Context) -> Candidate | None:
     node, nodes = ctx.node, ctx.plan.nodes
     engine = ctx.engine
+    flagged = _mark_join_below(ctx)
+    if flagged is not None:
+        return _flag_filter(ctx, flagged)
+    keys = _keys_left_out(ctx)
+    if keys is not None:
+        return keys
     semi_types = engine.SEMI_JOINS | engine.RIGHT_SEMI_JOINS
     if node.join_type not in semi_types or len(node.children) < 2:
         return None
@@ -76,3 +82,75 @@ def _filter_below(node, nodes):
             return None
         node = nodes[inputs[0]]
     return None
+
+
+def _mark_join_below(ctx: Context):
+    """The mark join whose flag this filter tests: its one input, a join of a mark type (it
+    emits every row of its probe side with a flag saying whether it found a match)."""
+    node, nodes = ctx.node, ctx.plan.nodes
+    if not ctx.engine.MARK_JOINS or node.join_type or not any(c.kind == "filter" for c in node.conditions):
+        return None
+    inputs = [nodes[c] for c in node.children if nodes[c].is_input_edge]
+    if len(inputs) != 1 or inputs[0].join_type not in ctx.engine.MARK_JOINS:
+        return None
+    return inputs[0]
+
+
+def _flag_filter(ctx: Context, mark) -> Candidate:
+    node, nodes = ctx.node, ctx.plan.nodes
+    condition = next(c.text for c in node.conditions if c.kind == "filter")
+    anti = condition.lstrip("( ").upper().startswith("NOT")
+    kind = "anti" if anti else "semi"
+    sides = [nodes[c] for c in mark.children if nodes[c].is_input_edge]
+    other = sides[1].label if len(sides) > 1 else "the other side"
+    lines = [f"{node.label} ({condition}) keeps the rows of {mark.label} whose flag says they "
+             + ("found no" if anti else "found a") + f" match in {other}: together a {kind} join "
+             "(IN, EXISTS or their negation, planned as a mark join and a filter on its flag)."]
+    fields: dict = {"join_type": f"{mark.join_type} + filter"}
+    if mark.est_total and mark.actual_total:
+        estimated = matched_share(mark.est_total, ctx.est_total, False)
+        found = matched_share(mark.actual_total, ctx.actual_total, False)
+        lines.append(f"Its input of {fmt_rows(mark.actual_total)} rows was estimated at "
+                     f"{fmt_rows(mark.est_total)}; the filter was estimated to keep {estimated:.2%} "
+                     f"and kept {found:.2%}. The flag has no statistics: its share is a fixed guess, "
+                     "not derived from what the other side holds.")
+        fields.update(estimated_share=estimated, actual_share=found)
+        default = next(((name, value) for name, value in ctx.defaults.items()
+                        if abs(estimated - value) <= max(value * 0.01, 0.5 / mark.est_total)), None)
+        if default:
+            lines.append(f"The estimated share is {default[0]} = {default[1]:g}.")
+            fields["default"] = {"name": default[0], "value": default[1]}
+    return Candidate(cause="join_selectivity", score=0.7,
+                     reason=f"a {kind} join's share of matches, tested as a flag with a fixed "
+                            "estimate rather than derived from the other side",
+                     lines=lines, fields=fields, table=ctx.relation_of.get(None), columns=[],
+                     details={"anti": anti})
+
+
+def _keys_left_out(ctx: Context) -> Candidate | None:
+    """An inner join on several equalities between its inputs, estimated too high, where the
+    engine estimates such a join from one of them (the one with the most distinct values): the
+    others, which keep far fewer pairs here, never enter the estimate."""
+    node = ctx.node
+    combined = ctx.engine.JOIN_KEYS_COMBINED
+    if combined is None or ctx.direction != "over" or node.own_rule != "join" \
+            or node.join_type not in (None, "INNER"):
+        return None
+    keys = [c for c in ctx.clauses if c.source in ("hash_cond", "join_cond", "merge_cond")
+            and c.op_class == "equality" and len(c.columns) == 2 and c.bare]
+    if len(keys) < 2:
+        return None
+    how, source = combined
+    texts = ", ".join(c.text for c in keys)
+    lines = [f"The join matches on {len(keys)} equalities ({texts}). The engine estimates a join on "
+             "several keys between the same inputs from the key with the most distinct values alone "
+             f"and skips the others once the inputs are connected ({source}): the other keys do "
+             "not lower the estimate, though here they keep far fewer pairs.",
+             "No statistic on one table can say how the keys match together (customer and supplier in "
+             "one nation, say); the join's output is what is left once all of them apply."]
+    return Candidate(cause="join_selectivity", score=0.6,
+                     reason="a join on several keys estimated from one of them; the others never "
+                            "lowered the estimate",
+                     lines=lines, fields={"join_keys": [c.text for c in keys], "keys_combined": how},
+                     table=ctx.relation_of.get(None), columns=[],
+                     details={"multi_key": True})

@@ -41,6 +41,9 @@ class Engine:
     """Join types that emit outer rows only (semi, anti): judged against the outer input."""
     RIGHT_SEMI_JOINS: frozenset[str] = frozenset()
     """Join types that emit inner rows only: judged against the inner input."""
+    MARK_JOINS: frozenset[str] = frozenset()
+    """Join types that emit every outer row with a flag saying whether it found a match (a
+    filter on the flag above makes the semi or anti join)."""
     PRESERVED: Mapping[str, str] = {}
     """Join type to the input an outer join emits whole (``outer``, ``inner``, ``both``)."""
     COMPLETE_INNER: frozenset[str] = frozenset()
@@ -84,6 +87,12 @@ class Engine:
     NON_CONSTANT_GUESSES: Mapping[str, str] = {}
     """Comparison kind (``equality_subplan``) with a value that has no statistics, to how the
     engine guesses its selectivity when the guess is not one fixed number (with its source)."""
+    SUBQUERY_MARK: str | None = None
+    """How the engine prints a sub-query's result inside a condition, when not as PostgreSQL
+    does (a regular expression; read as a sub-plan's value)."""
+    JOIN_KEYS_COMBINED: tuple[str, str] | None = None
+    """How the engine combines several equalities between a join's inputs, when not as a
+    product of their selectivities: (``largest_domain``, where the engine's source says so)."""
     RECURSIVE_GUESSES: Mapping[str, tuple[float, str]] = {}
     """Operators of a recursive CTE whose estimate is a fixed guess of the planner's: operator
     to (factor, what the factor multiplies and where the engine's source says so)."""

@@ -694,28 +694,161 @@ def _join_text(value: Any, key: str, fmt: str) -> str:
 # Roles and fixes
 # ---------------------------------------------------------------------------------------
 
-def _subtree_dynamic_filter(node: PlanNode, nodes: list[PlanNode]) -> str | None:
-    """The dynamic filter a join pushed into its probe side, if the profile shows one and it
-    may have cut rows (a scan that still emitted its whole table lost none to it)."""
-    info = node.extra.get("extra_info") or {}
-    if "Build Min" in info or "Build Max" in info:
-        return "the join's build-side minimum and maximum"
-    todo = [node.children[0]] if node.children else []
-    while todo:
-        current = nodes[todo.pop()]
-        found = current.extra.get("dynamic_filters")
-        if found:
-            return None if _cut_nothing(current) else "; ".join(found)
-        if current.operator not in JOINS:
-            todo.extend(current.children[:1] if current.operator in AGGREGATES else current.children)
-    return None
+_STRING_OR_CAST = re.compile(r"'(?:[^']|'')*'|::\s*[A-Za-z_][\w ]*(?:\([^)]*\))?")
+_IDENT = re.compile(r"[A-Za-z_][\w$]*")
+_FILTER_WORDS = frozenset({"optional", "IN", "PRF", "AND", "OR", "NOT", "IS", "NULL", "DISTINCT",
+                           "FROM", "TRUE", "FALSE", "BETWEEN", "LIKE"})
+_KEY_PAIR = re.compile(r"^\(?\s*([\w.\"]+)\s+(?:=|IS NOT DISTINCT FROM)\s+([\w.\"]+)\s*\)?$")
 
 
-def _cut_nothing(scan: PlanNode) -> bool:
-    """A scan without filters of its own estimates its whole table; when it emitted at least
-    that many rows, the run-time filter it carries removed none."""
-    return (not scan.children and scan.est_rows is not None and scan.actual_rows is not None
-            and scan.actual_rows >= scan.est_rows and not any(c.kind == "filter" for c in scan.conditions))
+def _names(text: str) -> set[str]:
+    """The column names a printed condition mentions (literals, casts and keywords left out)."""
+    return set(_IDENT.findall(_STRING_OR_CAST.sub(" ", text))) - _FILTER_WORDS
+
+
+def _join_keys(join: PlanNode) -> list[tuple[str, str]]:
+    """(probe column, build column) of each plain equality of a hash join: DuckDB prints the
+    probe side's expression first (the join's first child is its probe side)."""
+    keys = []
+    for condition in join.conditions:
+        if condition.kind in ("hash_cond", "join_cond"):
+            pair = _KEY_PAIR.match(condition.text)
+            if pair:
+                keys.append(tuple(x.split(".")[-1].strip('"') for x in pair.groups()))
+    return keys
+
+
+def runtime_filters(parsed: ParsedPlan) -> dict[int, list[tuple[int | None, str]]]:
+    """Each node carrying run-time filters, to (the hash join that pushed it, its text) per
+    filter. DuckDB pushes a join's filter into its probe side only, on the probe's key column,
+    which can lie several joins down (TPC-H Q7: the customer join's `o_custkey IN PRF(c_custkey)`
+    sits on the orders scan two joins below it): the filter belongs to the nearest join above it,
+    on whose probe side it lies, whose condition names that column; without one, to the nearest
+    join above on whose probe side it lies. One pre-order pass with a stack of open probe sides."""
+    cached = parsed.engine_facts.get("runtime_filters")
+    if cached is not None:
+        return cached
+    index = index_of(parsed)
+    found: dict[int, list[tuple[int | None, str]]] = {}
+    open_sides: list[tuple[int, int, set[str]]] = []  # (end of the probe side, join, probe keys)
+    by_key: dict[str, list[int]] = {}
+    for node in index.walk():
+        position = index.position[node.id]
+        while open_sides and position >= open_sides[-1][0]:
+            _, _, keys = open_sides.pop()
+            for key in keys:
+                by_key[key].pop()
+        texts = node.extra.get("dynamic_filters")
+        if texts:
+            for text in texts:
+                joins = [by_key[n][-1] for n in _names(text) if by_key.get(n)]
+                if joins:
+                    join: int | None = max(joins, key=index.position.__getitem__)
+                else:
+                    join = open_sides[-1][1] if open_sides else None
+                found.setdefault(node.id, []).append((join, text))
+        if node.operator == "HASH_JOIN" and len(node.children) > 1:
+            keys = {probe for probe, _ in _join_keys(node)}
+            open_sides.append((index.end[index.position[node.children[0]]], node.id, keys))
+            for key in keys:
+                by_key.setdefault(key, []).append(node.id)
+    parsed.engine_facts["runtime_filters"] = found
+    return found
+
+
+def _cuts_nothing(join: PlanNode, holder: PlanNode, nodes: list[PlanNode]) -> bool:
+    """True when the run-time filter a join pushed into `holder` can remove only rows whose key
+    is in no row of the build side's table: its build side is a scan of that whole table (DuckDB
+    estimates an unfiltered scan at its table's row count) that kept every row, or kept every row
+    but those a range on the join key left out that no filter on the probe's key repeats. DuckDB
+    repeats a constant filter on a join key on the other side of the equality (a real run of
+    2.0.1: `s.id <= 100` on the build side shows as `sid <= 100` on the probe side), so such a
+    range came from the probe side's own minimum and maximum and leaves out no key it holds.
+    The rows it can still remove reference no row of that table (none where the key is a
+    reference to it: an inner join's numbers must show that each probe row kept found one
+    match; a semi join's cannot, and there it is assumed, as its build side is that table)."""
+    build = nodes[join.children[1]]
+    while build.operator == "PROJECTION" and len(build.children) == 1:
+        build = nodes[build.children[0]]
+    if build.children or build.operator not in ("SEQ_SCAN", "TABLE_SCAN") \
+            or build.extra.get("dynamic_filters") or build.est_rows is None or build.actual_rows is None:
+        return False
+    probe = nodes[join.children[0]]
+    if join.join_type in (None, "INNER") and (probe.actual_rows is None
+                                              or probe.actual_rows != join.actual_rows):
+        # an inner join shows it: each row its probe side kept found exactly one match, so the
+        # build key is a key of the whole table and the probe's key references it; where the
+        # numbers say otherwise (the probe is the referenced side) the filter may have cut
+        return False
+    filters = [c for c in build.conditions if c.kind == "filter"]
+    if not filters:
+        return build.actual_rows >= build.est_rows
+    keys = _join_keys(join)
+    build_keys = {b for _, b in keys}
+    probe_keys = {p for p, _ in keys}
+    if not build_keys or any(_names(c.text) - build_keys for c in filters):
+        return False
+    current = holder
+    for _ in range(len(nodes)):  # up the path from the filtered node to the join
+        if any(c.kind == "filter" and _names(c.text) & probe_keys for c in current.conditions):
+            return False
+        if current.parent is None or current.parent == join.id:
+            return True
+        current = nodes[current.parent]
+    return False
+
+
+def _runtime_cuts(parsed: ParsedPlan) -> dict[int, dict[str, dict[int, str]]]:
+    """Per join, what the run-time filters that may have cut rows do to its inputs: `stopped`
+    (an input not to judge: the filter's holder and what lies above it up to this join),
+    `cut` (an input whose true count is at least what it shows, for every join from the holder
+    up to the join that pushed the filter), `exact` (an input known to be whole before the cut:
+    a scan of a whole table with no filter of its own, cut only by this join's own filter,
+    emits what the join matches; uncut it holds the table's rows, which DuckDB's estimate is).
+    Filters that cut nothing (`_cuts_nothing`) leave their holder judged. Made once a plan;
+    each filter walks up its own path only."""
+    cached = parsed.engine_facts.get("runtime_cuts")
+    if cached is not None:
+        return cached
+    nodes = parsed.nodes
+    out: dict[int, dict[str, dict[int, str]]] = {}
+    cut_holders: set[int] = set()
+    for holder_id, records in runtime_filters(parsed).items():
+        holder = nodes[holder_id]
+        cutting = [(join, text) for join, text in records
+                   if join is not None and not _cuts_nothing(nodes[join], holder, nodes)]
+        if not cutting:
+            continue
+        cut_holders.add(holder_id)
+        how = "; ".join(text for _, text in cutting)
+        pushers = {join for join, _ in cutting}
+        whole_scan = (not holder.children and holder.operator in ("SEQ_SCAN", "TABLE_SCAN")
+                      and not any(c.kind == "filter" for c in holder.conditions)
+                      and holder.est_rows is not None)
+        current, first_join, direct = holder, True, True
+        for _ in range(len(nodes)):
+            if current.parent is None or not pushers:
+                break
+            parent = nodes[current.parent]
+            if parent.operator in JOINS:
+                facts = out.setdefault(parent.id, {"stopped": {}, "cut": {}, "exact": {}})
+                if first_join and current.est_rows is not None and current.actual_rows is not None \
+                        and current.actual_rows < current.est_rows:
+                    facts["stopped"][current.id] = DYNAMIC_FILTER_REASON.format(how=how)
+                if whole_scan and direct and pushers == {parent.id}:
+                    facts["exact"][current.id] = how
+                else:
+                    facts["cut"][current.id] = (
+                        f"its input #{current.id} was cut while running by a dynamic filter "
+                        f"({how}), so that input's true count is at least what it shows")
+                first_join, direct = False, False
+                pushers.discard(parent.id)
+            elif parent.operator != "PROJECTION":
+                direct = False
+            current = parent
+    parsed.engine_facts["runtime_cuts"] = out
+    parsed.engine_facts["cut_holders"] = cut_holders
+    return out
 
 
 def _emitted(node: PlanNode, nodes: list[PlanNode]) -> PlanNode:
@@ -793,8 +926,16 @@ def suggest_fix(cause: str, table: str | None, columns: list[str] | tuple[str, .
         "filter_combination": "DuckDB estimates ANDed filters on one table by the smallest of "
                               "their estimates (or 20% once when none is an equality), not their "
                               "product, and no setting changes that.",
-        "join_selectivity": "DuckDB estimates a semi or anti join from its inputs' distinct "
-                            "counts; nothing describes which keys match.",
+        "join_selectivity": ("DuckDB estimates a join on several keys between the same inputs "
+                             "from the key with the most distinct values alone (GetDenominator in "
+                             "src/optimizer/join_order/cardinality_estimator.cpp); no statistic "
+                             "describes how the keys match together."
+                             if details.get("multi_key") else
+                             "DuckDB estimates a semi or anti join as a fixed share (0.2, its "
+                             "DEFAULT_SELECTIVITY) of the side it keeps, whatever the other side "
+                             "holds (GetDenominator in "
+                             "src/optimizer/join_order/cardinality_estimator.cpp); nothing "
+                             "describes which keys match."),
     }
     if cause not in lacks:
         return None
@@ -808,8 +949,11 @@ def suggest_fix(cause: str, table: str | None, columns: list[str] | tuple[str, .
                                "around it), so min/max and distinct counts apply",
         "filter_combination": "keep the combination the filters select as a column of its own "
                               "and filter on it with one equality",
-        "join_selectivity": "apply the other side's filter first into a table of its own and "
-                            "join against that",
+        "join_selectivity": ("keep the keys' combination as one column of its own on each side "
+                             "and join on that single equality"
+                             if details.get("multi_key") else
+                             "apply the other side's filter first into a table of its own and "
+                             "join against that"),
     }[cause]
     sql = (f"-- DuckDB offers no statistics lever for this: {lacks[cause]}\n"
            f"-- What DuckDB does offer: {analyze} refreshes the distinct counts (it cannot help "
@@ -831,6 +975,7 @@ class DuckDB(Engine):
     JOINS = frozenset(JOINS)
     SEMI_JOINS = frozenset(SEMI_OUTER)
     RIGHT_SEMI_JOINS = frozenset(SEMI_INNER)
+    MARK_JOINS = frozenset({"MARK"})
     PRESERVED = PRESERVED
     COMPLETE_INNER = frozenset(JOINS)
     BLOCKING = frozenset(BLOCKING)
@@ -844,6 +989,25 @@ class DuckDB(Engine):
     # filter: no change), the scan takes the smallest of them, and when no filter is an equality
     # the rows x DEFAULT_SELECTIVITY (0.2) once, however many filters there are.
     AND_FILTERS = ("minimum", "ExtractGetStats in src/optimizer/join_order/relation_statistics_helper.cpp")
+    # DuckDB prints a scalar sub-query's result inside a condition as the word SUBQUERY
+    # (TPC-H Q15: `total_revenue = SUBQUERY`; Q17, Q20)
+    SUBQUERY_MARK = r"\bSUBQUERY\b"
+    # src/optimizer/join_order/cardinality_estimator.cpp, GetDenominator: the product of the
+    # inputs' rows is divided by the distinct counts ("total domains") of the join keys; with no
+    # usable key the denominator is 1 ("denominator is 1 and numerators are a cross product of
+    # cardinalities")
+    NON_CONSTANT_GUESSES = {
+        "equality_subplan": "DuckDB has no distinct count for a sub-query's result, so nothing "
+                            "divides the product of the join's inputs: it estimates that every row "
+                            "matches the sub-query's value (GetDenominator in "
+                            "src/optimizer/join_order/cardinality_estimator.cpp takes a denominator "
+                            "of 1 where no key's distinct count applies)",
+    }
+    # the same function walks the join conditions from the largest distinct count down and skips
+    # a condition between relations an earlier one already connected ("another filter is
+    # connecting relations already in the subgraph, but it has a tdom that is less, and we
+    # don't care"): a second key between the same inputs does not lower the estimate
+    JOIN_KEYS_COMBINED = ("largest_domain", "GetDenominator in src/optimizer/join_order/cardinality_estimator.cpp")
 
     def input_rule(self, node: PlanNode, nodes: list[PlanNode], inputs: list[int]) -> str:
         op = node.operator
@@ -900,20 +1064,47 @@ class DuckDB(Engine):
             role.emits = node.children[-1]
         if node.operator in JOINS and len(node.children) > 1:
             role.complete_inputs = tuple(node.children[1:])
-        if node.operator == "HASH_JOIN" and node.children:
-            self._dynamic_filter(node, nodes, role)
+        if node.operator in JOINS and node.children:
+            self._runtime_filters(node, nodes, parsed, role)
+        if node.extra.get("dynamic_filters") and not node.children:
+            _runtime_cuts(parsed)
+            scanned = node.extra.get("rows_scanned")
+            if node.id not in parsed.engine_facts["cut_holders"] and isinstance(scanned, (int, float)) \
+                    and node.actual_rows is not None and scanned >= node.actual_rows \
+                    and any(c.kind == "filter" for c in node.conditions):
+                # its run-time filters removed nothing (`_cuts_nothing`): what it read and did not
+                # emit, its own filter removed
+                role.rows_discarded = float(scanned) - node.actual_rows
 
-    def _dynamic_filter(self, node: PlanNode, nodes: list[PlanNode], role: Role) -> None:
+    def _runtime_filters(self, node: PlanNode, nodes: list[PlanNode], parsed: ParsedPlan,
+                         role: Role) -> None:
         """A hash join may push a filter built from its build side into its probe side while
-        running: the probe's estimate leaves it out."""
-        probe = nodes[node.children[0]]
-        how = _subtree_dynamic_filter(node, nodes)
-        if how and probe.est_rows is not None and probe.actual_rows is not None:
-            if probe.actual_rows < probe.est_rows:
-                role.stops_inputs = {probe.id: DYNAMIC_FILTER_REASON.format(how=how)}
-            role.cut_inputs = {probe.id: f"its probe input was cut while running by a "
-                                         f"dynamic filter ({how}), so that input's true "
-                                         "count is at least what it shows"}
+        running: the probe's estimate leaves it out (see `_runtime_cuts`). Older profiles print
+        the build side's minimum and maximum on the join instead."""
+        facts = _runtime_cuts(parsed).get(node.id)
+        info = node.extra.get("extra_info") or {}
+        if ("Build Min" in info or "Build Max" in info) and node.operator == "HASH_JOIN":
+            probe = nodes[node.children[0]]
+            how = "the join's build-side minimum and maximum"
+            facts = {"stopped": {}, "cut": {probe.id: f"its probe input was cut while running by a "
+                                                     f"dynamic filter ({how}), so that input's true "
+                                                     "count is at least what it shows"}, "exact": {}}
+            if probe.est_rows is not None and probe.actual_rows is not None \
+                    and probe.actual_rows < probe.est_rows:
+                facts["stopped"][probe.id] = DYNAMIC_FILTER_REASON.format(how=how)
+        if not facts:
+            return
+        if facts["stopped"]:
+            role.stops_inputs = {**(role.stops_inputs or {}), **facts["stopped"]}
+        if facts["cut"]:
+            role.cut_inputs = {**(role.cut_inputs or {}), **facts["cut"]}
+        if facts["exact"]:
+            role.exact_inputs = tuple(facts["exact"])
+            node.derived.append(
+                "its probe input is a scan of a whole table cut only by this join's own run-time "
+                f"filter ({'; '.join(facts['exact'].values())}): uncut it holds the table's rows, "
+                "as estimated, and the cut removed only rows this join would drop, so the join is "
+                "judged against the whole table")
 
     def suggest_fix(self, cause, table, columns=(), **details):
         return suggest_fix(cause, table, columns, **details)
