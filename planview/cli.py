@@ -77,11 +77,21 @@ def _format_name(value: str) -> str:
     return name
 
 
+EXIT_CODES = """exit codes:
+  0  no origin reaches --fail-at
+  1  an origin reaches --fail-at (a CI gate fails)
+  2  the input or an option was refused (one line names the line, key or option)
+  3  an internal error (one line; PLANVIEW_DEBUG=1 adds the traceback)
+"""
+
+
 def _parser(secrets: tuple[str, ...] = ()) -> argparse.ArgumentParser:
-    parser = _Parser(prog="planview", description=__doc__.splitlines()[0])
+    parser = _Parser(prog="planview", description=__doc__.splitlines()[0], epilog=EXIT_CODES,
+                     formatter_class=argparse.RawDescriptionHelpFormatter)
     parser.secrets = secrets
     sub = parser.add_subparsers(dest="command", required=True)
-    check = sub.add_parser("check", help="check one plan: a path, or - for standard input")
+    check = sub.add_parser("check", help="check one plan: a path, or - for standard input",
+                           epilog=EXIT_CODES, formatter_class=argparse.RawDescriptionHelpFormatter)
     check.add_argument("path", help="a plan file, or - to read standard input")
     check.add_argument("--engine", type=_engine_name,
                        help=f"force the engine: {', '.join(_engine_names())} (default: detected)")
@@ -94,7 +104,10 @@ def _parser(secrets: tuple[str, ...] = ()) -> argparse.ArgumentParser:
     check.add_argument("--json", action="store_true", help="print the JSON report")
     check.add_argument("--html", metavar="OUT", help="also write the self-contained review page")
     check.add_argument("--markdown", metavar="OUT", help="also write the ticket body")
-    check.add_argument("--width", type=int, help="terminal width for the table")
+    check.add_argument("--width", type=int, help="terminal width for the table (default: the terminal's)")
+    check.add_argument("--query", metavar="FILE",
+                       help="the statement's SQL text, shown beside the plan and in the ticket "
+                            "(default: the Query Text the paste holds, if any)")
     check.add_argument("--probe", metavar="DSN",
                        help="test each cause on a live PostgreSQL, read-only (a connection string; "
                             "a password file or PGPASSWORD keeps the password off the command line)")
@@ -147,6 +160,12 @@ def _check(args) -> int:
                             f"--engine {args.engine}: {', '.join(engines.get(args.engine).FORMATS)}")
 
     plan = load(Path(args.path), engine=args.engine, fmt=args.fmt, threshold=args.threshold)
+    if getattr(args, "query", None):
+        try:
+            query = Path(args.query).read_text(encoding="utf-8", errors="replace")[:1_000_000]
+        except OSError as exc:
+            raise PlanviewError(f"--query: cannot read {args.query}: {exc.strerror}") from None
+        plan.set_query_text(query)
     if args.json:
         sys.stdout.write(plan.to_json() + "\n")
     else:

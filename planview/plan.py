@@ -56,6 +56,14 @@ class Plan:
     def sql_dialect(self) -> str | None:
         return self.engine_spec.dialect
 
+    def set_query_text(self, text: str, statement: int = 0) -> None:
+        """The statement's SQL, given by the user (``--query``, ``review(..., query=...)``):
+        shown beside the plan and in the ticket. It replaces what the paste held."""
+        if not self.statements:
+            return
+        self.statements[min(statement, len(self.statements) - 1)].query_text = str(text).strip() or None
+        self._report = None
+
     def report(self) -> dict[str, Any]:
         """The JSON report (stable keys; later versions add keys, never remove them)."""
         if self._report is None:

@@ -42,6 +42,14 @@ def render(plan, width: int | None = None, color: bool = False) -> str:
         f"at q-error >= {report['threshold']:g}"),
     ]
     lines += [visible(f"note: {note}") for note in report["notes"]]
+    for number, statement in enumerate(report["statements"], 1):
+        query = (statement.get("query_text") or "").strip()
+        if query:
+            shown = query.splitlines()
+            lines.append(visible(f"query{f' {number}' if len(report['statements']) > 1 else ''}: {shown[0][:width - 8]}"))
+            lines += [visible(f"       {line[:width - 8]}") for line in shown[1:12]]
+            if len(shown) > 12:
+                lines.append(visible(f"       ... ({words.plural(len(shown) - 12, 'more line')})"))
     times_head = f" {'total ms':>10} {'self ms':>10}" if timed else ""
     header = (f"{'id':>5}  {'operator':<{label_width}} {'est total':>11} {'actual':>11} {'starts':>8}"
               f"{times_head} {'error':>20}  mark")
@@ -52,8 +60,11 @@ def render(plan, width: int | None = None, color: bool = False) -> str:
         if rel in ("InitPlan", "SubPlan") and node["subplan_name"]:
             prefix += f"[{node['subplan_name']}] "
         label = visible(prefix + node["label"])
-        if len(label) > label_width:
-            label = label[: label_width - 1] + "~"
+        if len(label) > label_width:  # cut the middle: the relation name at the end stays
+            keep = label_width - 1
+            head = len(prefix) + max(3, (keep - len(prefix)) // 3)
+            head = min(head, keep - 4)
+            label = label[:head] + "~" + label[len(label) - (keep - head):]
         text = node["text"]
         row = visible(f"{text['id']:>5}  {label:<{label_width}} {text['est']:>11} "
                       f"{text['actual']:>11} {text['starts']:>8}"
