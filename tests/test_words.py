@@ -33,7 +33,7 @@ OLD_WORDS = re.compile(r"too few est\.|too many est\.|\bunderestimated x|\d(?:\.
 def test_the_widget_formats_factors_as_the_python_views_do(tmp_path):
     source = JS.read_text(encoding="utf-8")
     start = source.index("const ON_TARGET_LOG10")
-    end = source.index("function formatMs(")
+    end = source.index("function ownMs(")
     script = tmp_path / "factor.mjs"
     script.write_text(source[start:end] + f"\nconsole.log(JSON.stringify({json.dumps(FACTORS)}.map(formatFactor)));"
                       + f"\nconsole.log(JSON.stringify([[2, null], [-1.5, null], [0.01, 1.02]].map(([r, q]) => shortError(r, q))));",

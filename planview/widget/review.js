@@ -135,6 +135,12 @@ function shortError(log10Ratio, q) {
   return `${formatFactor(q ?? Math.pow(10, Math.abs(log10Ratio)))} ${log10Ratio > 0 ? "too low" : "too high"}`;
 }
 
+function ownMs(ms) {
+  if (ms === null || ms === undefined) return "–";
+  if (ms >= 1000) return `${(ms / 1000).toFixed(1)}s`;
+  return ms >= 10 ? ms.toFixed(0) : ms.toFixed(ms >= 1 ? 1 : 2);
+}
+
 function formatMs(ms) {
   if (ms === null || ms === undefined) return "–";
   if (ms >= 1000) return `${(ms / 1000).toFixed(2)} s`;
