@@ -70,3 +70,32 @@ def test_every_view_of_a_real_plan_speaks_the_same_words():
     for node in report["nodes"]:
         assert node["text"]["id"] == f"#{node['id']}"
         assert node["text"]["error"].endswith(("too low", "too high", "on target", "–"))
+
+
+# WCAG 2.1 success criterion 1.4.3 (AA): text needs a contrast ratio of at least 4.5:1; the
+# relative-luminance and contrast-ratio formulas are WCAG 2.1's own definitions.
+GRID = [i / 20 for i in range(-100, 101)]  # log10 ratios from -5 to +5 (the scale clamps at ±4)
+
+
+def _rgb(text: str) -> tuple[int, int, int]:
+    return tuple(int(x) for x in re.findall(r"\d+", text))  # type: ignore[return-value]
+
+
+def test_text_on_every_coloured_cell_meets_wcag_aa_contrast():
+    from planview.export.common import contrast, ink_for, ratio_colour
+
+    worst = min(contrast(_rgb(ratio_colour(t)), (0, 0, 0) if ink_for(t) == "#000000" else (255, 255, 255))
+                for t in GRID)
+    assert worst >= 4.5, worst
+
+
+@pytest.mark.skipif(shutil.which("node") is None, reason="Node.js is needed to run the ES module")
+def test_the_widget_picks_the_same_ink_and_colour(tmp_path):
+    from planview.export.common import ink_for, ratio_colour
+
+    script = tmp_path / "ink.mjs"
+    script.write_text(f"import {{ inkFor, ratioColour }} from {json.dumps(JS.as_uri())};\n"
+                      f"const grid = {json.dumps(GRID)};\n"
+                      "console.log(JSON.stringify(grid.map((t) => [ratioColour(t), inkFor(t)])));\n", encoding="utf-8")
+    out = subprocess.run(["node", str(script)], capture_output=True, text=True, timeout=60, check=True).stdout
+    assert json.loads(out) == [[ratio_colour(t), ink_for(t)] for t in GRID]

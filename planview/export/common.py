@@ -35,12 +35,27 @@ def ratio_colour(log10_ratio: float) -> str:
     high = min(len(VIK) - 1, low + 1)
     frac = pos - low
     a, b = _rgb(VIK[low]), _rgb(VIK[high])
-    r, g, bl = (round(x + (y - x) * frac) for x, y in zip(a, b))
+    r, g, bl = (math.floor(x + (y - x) * frac + 0.5) for x, y in zip(a, b))  # half up, as Math.round
     return f"rgb({r}, {g}, {bl})"
 
 
+def luminance(rgb: tuple[int, int, int]) -> float:
+    """WCAG 2.1 relative luminance of an sRGB colour."""
+    c = [v / 255 for v in rgb]
+    c = [v / 12.92 if v <= 0.03928 else ((v + 0.055) / 1.055) ** 2.4 for v in c]
+    return 0.2126 * c[0] + 0.7152 * c[1] + 0.0722 * c[2]
+
+
+def contrast(a: tuple[int, int, int], b: tuple[int, int, int]) -> float:
+    """WCAG 2.1 contrast ratio, (L1 + 0.05) / (L2 + 0.05) with L1 the lighter."""
+    high, low = sorted((luminance(a), luminance(b)), reverse=True)
+    return (high + 0.05) / (low + 0.05)
+
+
 def ink_for(log10_ratio: float) -> str:
-    return "#ffffff" if abs(log10_ratio) >= 2.2 else "#1b1b1b"
+    """Black or white, whichever contrasts more with the cell's colour (≥ 4.5:1 on the scale)."""
+    bg = tuple(int(x) for x in ratio_colour(log10_ratio)[4:-1].split(","))
+    return "#ffffff" if contrast((255, 255, 255), bg) >= contrast((0, 0, 0), bg) else "#000000"
 
 
 def _rgb(hex_colour: str) -> tuple[int, int, int]:

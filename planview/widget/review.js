@@ -101,8 +101,17 @@ export function ratioColour(log10Ratio) {
   return `rgb(${rgb[0]}, ${rgb[1]}, ${rgb[2]})`;
 }
 
-function inkFor(log10Ratio) {
-  return Math.abs(log10Ratio) >= 2.2 ? "#ffffff" : "#1b1b1b";
+// WCAG 2.1 relative luminance; the ink is whichever of black and white contrasts more with
+// the cell (at least 4.5:1 everywhere on the scale: tests/test_words.py measures it).
+function luminance(rgb) {
+  const c = rgb.map((v) => { v /= 255; return v <= 0.03928 ? v / 12.92 : Math.pow((v + 0.055) / 1.055, 2.4); });
+  return 0.2126 * c[0] + 0.7152 * c[1] + 0.0722 * c[2];
+}
+
+export function inkFor(log10Ratio) {
+  const rgb = ratioColour(log10Ratio).match(/\d+/g).map(Number);
+  const l = luminance(rgb);
+  return (1.05 / (l + 0.05)) >= ((l + 0.05) / 0.05) ? "#ffffff" : "#000000";
 }
 
 export function formatRows(value) {
