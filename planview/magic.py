@@ -12,13 +12,14 @@ from .errors import PlanviewError
 
 
 def review(source, *, engine: str | None = None, fmt: str | None = None, threshold: float = 10.0,
-           charts: bool = True, errors: str = "show"):
+           charts: bool = True, errors: str = "show", query: str | None = None):
     """The review of a plan given as text, a path or a `Plan`: a `PlanWidget` (``w.selected``
     is the selected node). Unreadable input gives a `ReviewError` that shows its one-line
     message (``errors="raise"`` raises `planview.PlanParseError` instead)."""
     from .widget import review as _review
 
-    return _review(source, engine=engine, fmt=fmt, threshold=threshold, charts=charts, errors=errors)
+    return _review(source, engine=engine, fmt=fmt, threshold=threshold, charts=charts, errors=errors,
+                   query=query)
 
 
 def _magics_class():
@@ -35,6 +36,7 @@ def _magics_class():
                   help="own q-error that makes a node an origin (default 10)")
         @argument("--name", "-n", help="also keep the review in this variable (to read .selected later)")
         @argument("--no-charts", action="store_true", help="the tree and detail only, no plotly charts")
+        @argument("--query", "-q", help="the statement's SQL: a variable holding it, or a .sql file")
         @line_cell_magic
         def planview(self, line: str = "", cell: str | None = None):
             """Review a query plan: %%planview [--engine E] [--format F] [--threshold T] [--name VAR]"""
@@ -55,9 +57,22 @@ def _magics_class():
             if args.name and not args.name.isidentifier():
                 print(f"planview: --name {args.name!r} is not a Python name")
                 return None
+            query = None
+            if args.query:
+                held = self.shell.user_ns.get(args.query) if args.query.isidentifier() else None
+                if isinstance(held, str):
+                    query = held
+                else:
+                    try:
+                        with open(args.query, encoding="utf-8", errors="replace") as handle:
+                            query = handle.read(1_000_000)
+                    except OSError:
+                        print(f"planview: --query {args.query!r} is neither a variable holding text nor a "
+                              "readable file")
+                        return None
             try:
                 result = review(source, engine=args.engine, fmt=args.fmt, threshold=args.threshold,
-                                charts=not args.no_charts, errors="raise")
+                                charts=not args.no_charts, errors="raise", query=query)
             except PlanviewError as exc:
                 print(ReviewError(exc))
                 return None

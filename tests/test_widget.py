@@ -171,3 +171,19 @@ def test_load_ext_registers_the_review_as_a_plans_display(multi, shell):
     """After ``%load_ext planview`` a Plan as a cell's value is the widget review."""
     data, _ = shell.display_formatter.format(multi)
     assert "application/vnd.jupyter.widget-view+json" in data and data["text/html"] == multi._repr_html_()
+
+
+def test_the_query_text_given_to_the_magic_or_review_reaches_the_report(shell, tmp_path, capsys):
+    # a real capture (tests/pgharness.py's planted-correlation case on PostgreSQL 16)
+    text = (PG16 / "join_correlated.text.txt").read_text()
+    shell.user_ns["q_sql"] = "SELECT * FROM owners o JOIN pets p ON p.owner_id = o.id"
+    result = shell.run_cell_magic("planview", "--query q_sql", text)
+    assert result.report["statements"][0]["query_text"] == shell.user_ns["q_sql"]
+    path = tmp_path / "q.sql"
+    path.write_text("SELECT 42", encoding="utf-8")
+    assert shell.run_cell_magic("planview", f"--query {path}", text).report["statements"][0]["query_text"] == "SELECT 42"
+    assert shell.run_cell_magic("planview", "--query no_such_name", text) is None
+    assert "--query 'no_such_name'" in capsys.readouterr().out
+    widget = review(text, query="SELECT 7")
+    assert widget.report["statements"][0]["query_text"] == "SELECT 7"
+    shell.user_ns.pop("q_sql", None)

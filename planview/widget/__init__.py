@@ -173,8 +173,9 @@ class ReviewError:
 
 
 def review(source, *, engine: str | None = None, fmt: str | None = None, threshold: float = 10.0,
-           charts: bool = True, errors: str = "show"):
-    """The review of a plan given as text, a path or a `Plan`.
+           charts: bool = True, errors: str = "show", query: str | None = None):
+    """The review of a plan given as text, a path or a `Plan`; ``query`` is the statement's
+    SQL, shown beside the plan and in the ticket (it replaces the paste's own Query Text).
 
     Unreadable input gives a `ReviewError` that shows its one-line message (``errors="raise"``
     raises `planview.PlanParseError` instead).
@@ -187,6 +188,8 @@ def review(source, *, engine: str | None = None, fmt: str | None = None, thresho
         if errors == "raise":
             raise
         return ReviewError(exc)
+    if query is not None:
+        plan.set_query_text(str(query))
     return PlanWidget(plan, charts=charts)
 
 
