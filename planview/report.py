@@ -117,16 +117,8 @@ def node_text(node) -> dict[str, str]:
         "error": words.error(node.log10_ratio, node.q_error),
         "direction": words.direction(node.log10_ratio),
         "added": words.added_words(own, node.own_rule == "join") if own is not None else "–",
-        "state": words.STATE_WORDS[_state(node)],
+        "state": words.STATE_WORDS[words.state(node.origin, bool(node.inherits_from), node.judged)],
     }
-
-
-def _state(node) -> str:
-    if node.origin:
-        return "origin"
-    if node.inherits_from:
-        return "inherited"
-    return "judged" if node.judged else "neutral"
 
 
 def finding_record(finding) -> dict[str, Any]:
@@ -148,10 +140,8 @@ def finding_record(finding) -> dict[str, Any]:
         "text": {
             "rank": f"origin {finding.rank}",
             "cause": words.cause(finding.cause),
-            "added": words.error((1 if finding.direction == "under" else -1) * math.log10(max(1.0, finding.own_q_error)),
-                                 finding.own_q_error),
-            "in_all": words.error((1 if finding.direction == "under" else -1) * math.log10(max(1.0, finding.q_error)),
-                                  finding.q_error),
+            "added": words.finding_error(finding.own_q_error, finding.direction),
+            "in_all": words.finding_error(finding.q_error, finding.direction),
             "also": [words.cause(c) for c in finding.also],
         },
     }

@@ -113,6 +113,20 @@ def error(log10_ratio: float | None, q: float | None = None) -> str:
     return f"{factor(q if q is not None else 10 ** min(300.0, abs(log10_ratio)))} {said}"
 
 
+def finding_error(q: float, direction: str) -> str:
+    """An origin's error from its q-error and direction ("under"/"over"): "×602 too high"."""
+    return error((1 if direction == "under" else -1) * math.log10(max(1.0, q)), q)
+
+
+def state(origin: bool, inherits: bool, judged: bool) -> str:
+    """A node's state, a key of STATE_WORDS: where its error was introduced, carried, or not judged."""
+    if origin:
+        return "origin"
+    if inherits:
+        return "inherited"
+    return "judged" if judged else "neutral"
+
+
 def added_words(log10_ratio: float | None, is_join: bool = False) -> str:
     """The error an operator adds itself. For a join: its selectivity is off."""
     if log10_ratio is None:

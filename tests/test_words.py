@@ -36,7 +36,7 @@ def test_the_widget_formats_factors_as_the_python_views_do(tmp_path):
     end = source.index("function ownMs(")
     script = tmp_path / "factor.mjs"
     script.write_text(source[start:end] + f"\nconsole.log(JSON.stringify({json.dumps(FACTORS)}.map(formatFactor)));"
-                      + f"\nconsole.log(JSON.stringify([[2, null], [-1.5, null], [0.01, 1.02]].map(([r, q]) => shortError(r, q))));",
+                      + "\nconsole.log(JSON.stringify([[2, null], [-1.5, null], [0.01, 1.02]].map(([r, q]) => shortError(r, q))));",
                       encoding="utf-8")
     out = subprocess.run(["node", str(script)], capture_output=True, text=True, timeout=60, check=True).stdout.splitlines()
     assert json.loads(out[0]) == [words.factor(q) for q in FACTORS]

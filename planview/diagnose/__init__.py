@@ -9,8 +9,6 @@ The fix SQL comes from the engine module (`suggest_fix`), so it speaks the engin
 
 from __future__ import annotations
 
-import math
-
 from .. import words
 from ..inert import UnquotableName, refused_fix
 from . import (
@@ -90,11 +88,10 @@ def diagnose(plan, rules=RULES, max_diagnosed: int = MAX_DIAGNOSED) -> None:
 
 
 def _head_line(node, finding) -> str:
-    sign = 1 if finding.direction == "under" else -1
-    added = words.error(sign * math.log10(max(1.0, finding.own_q_error)), finding.own_q_error)
+    added = words.finding_error(finding.own_q_error, finding.direction)
     head = (f"Estimated {fmt_rows(node.est_total)} rows, found {fmt_rows(node.actual_total)}: "
             f"the estimate is {added} here"
-            + (f", {words.error(sign * math.log10(max(1.0, finding.q_error)), finding.q_error)} in all"
+            + (f", {words.finding_error(finding.q_error, finding.direction)} in all"
                if abs(finding.q_error - finding.own_q_error) > 0.05 else "")
             + ".")
     if node.starts and node.starts > 1:

@@ -71,13 +71,7 @@ def cause_words(cause: str | None) -> str | None:
 
 
 def node_state(node: dict[str, Any]) -> str:
-    if node.get("origin"):
-        return "origin"
-    if node.get("inherits_from"):
-        return "inherited"
-    if not node.get("judged"):
-        return "neutral"
-    return "judged"
+    return _words.state(bool(node.get("origin")), bool(node.get("inherits_from")), bool(node.get("judged")))
 
 
 def paths_to_origins(report: dict[str, Any]) -> set[int]:

@@ -17,8 +17,8 @@ import json
 from importlib import resources
 from typing import Any
 
-from ..inert import visible
 from .. import words as _words
+from ..inert import visible
 from .common import (
     GENERIC_CAUTION,
     LARGE_PLAN,

@@ -13,8 +13,8 @@ from __future__ import annotations
 import re
 from typing import Any
 
-from ..inert import visible
 from .. import words as _words
+from ..inert import visible
 from .common import GENERIC_CAUTION, cause_words, evidence_items, factor, ms
 
 _SIGNS = re.compile(r"([\\`*_{}\[\]<>#|~$&])")
