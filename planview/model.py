@@ -129,6 +129,8 @@ class PlanNode:
     inherits_from: list[int] | tuple = ()  # the check assigns a list
     own_rule: str | None = None
     derived: list[str] = field(default_factory=list)
+    derivation: dict | None = None
+    """A live session's re-derivation of the estimate from the statistics (planview/live)."""
     # the engine's facts for the diagnosis, copied by planview.check from the engine's role
     parallel_divisor: float | None = None
     """The estimate is per parallel process, with this divisor (None: it covers the whole)."""
@@ -206,3 +208,7 @@ class Finding:
     caution: str | None = None
     impact: dict[str, Any] = field(default_factory=dict)
     rank: int = 0
+    measured: dict[str, Any] | None = None
+    """A live session's measurement of the cause (planview/live): fields and a sentence."""
+    proof: dict[str, Any] | None = None
+    """A live session's proven fix: the estimate with the fix applied in a rolled-back transaction."""

@@ -67,6 +67,8 @@ def node_record(node, times=None) -> dict[str, Any]:
         "buffers": {k: _clean(v) for k, v in node.buffers.items()},
         "text": node_text(node),
     }
+    if node.derivation is not None:
+        record["derivation"] = node.derivation
     if times is not None:
         i = node.id
         record["total_ms"] = _ms(times.total_ms[i])
@@ -137,6 +139,8 @@ def finding_record(finding) -> dict[str, Any]:
         "fix": finding.fix,
         "caution": finding.caution,
         "impact": finding.impact,
+        "measured": finding.measured,
+        "proof": finding.proof,
         "text": {
             "rank": f"origin {finding.rank}",
             "cause": words.cause(finding.cause),
