@@ -79,10 +79,15 @@ def _format_name(value: str) -> str:
 
 EXIT_CODES = """exit codes:
   0  no origin reaches --fail-at
-  1  an origin reaches --fail-at (a CI gate fails)
-  2  the input or an option was refused (one line names the line, key or option)
+  1  an origin reaches --fail-at (a CI gate fails); for a folder, in any of its plans
+  2  the input or an option was refused (one line names the line, key or option); in a
+     folder an unreadable file is listed with its reason and is never a 2
   3  an internal error (one line; PLANVIEW_DEBUG=1 adds the traceback)
 """
+
+
+FOLDER_OUT = "planview-review"
+"""Where ``planview check FOLDER`` writes its pages unless --out says otherwise."""
 
 
 def _parser(secrets: tuple[str, ...] = ()) -> argparse.ArgumentParser:
@@ -90,9 +95,10 @@ def _parser(secrets: tuple[str, ...] = ()) -> argparse.ArgumentParser:
                      formatter_class=argparse.RawDescriptionHelpFormatter)
     parser.secrets = secrets
     sub = parser.add_subparsers(dest="command", required=True)
-    check = sub.add_parser("check", help="check one plan: a path, or - for standard input",
+    check = sub.add_parser("check", help="check one plan (a path, or - for standard input) or a folder of plans",
                            epilog=EXIT_CODES, formatter_class=argparse.RawDescriptionHelpFormatter)
-    check.add_argument("path", help="a plan file, or - to read standard input")
+    check.add_argument("path", help="a plan file, - to read standard input, or a folder: every plan in it "
+                                    "gets a review page and one line here, and --out gets index.html")
     check.add_argument("--engine", type=_engine_name,
                        help=f"force the engine: {', '.join(_engine_names())} (default: detected)")
     check.add_argument("--format", dest="fmt", type=_format_name,
@@ -108,6 +114,8 @@ def _parser(secrets: tuple[str, ...] = ()) -> argparse.ArgumentParser:
     check.add_argument("--query", metavar="FILE",
                        help="the statement's SQL text, shown beside the plan and in the ticket "
                             "(default: the Query Text the paste holds, if any)")
+    check.add_argument("--out", metavar="DIR",
+                       help=f"with a folder: where the review pages and index.html go (default {FOLDER_OUT}/)")
     check.add_argument("--probe", metavar="DSN",
                        help="test each cause on a live PostgreSQL, read-only (a connection string; "
                             "a password file or PGPASSWORD keeps the password off the command line)")
@@ -159,6 +167,10 @@ def _check(args) -> int:
         raise PlanviewError(f"--format {args.fmt} is not a {args.engine} format; valid values with "
                             f"--engine {args.engine}: {', '.join(engines.get(args.engine).FORMATS)}")
 
+    if str(args.path) != "-" and Path(args.path).is_dir():
+        return _check_folder(args)
+    if getattr(args, "out", None):
+        raise PlanviewError("--out is for a folder of plans; for one plan use --html OUT or --markdown OUT")
     plan = load(Path(args.path), engine=args.engine, fmt=args.fmt, threshold=args.threshold)
     if getattr(args, "query", None):
         try:
@@ -194,39 +206,110 @@ def bundled_plans_dir() -> Path:
     raise PlanviewError("the bundled plans/ folder was not found; pass --plans")
 
 
-def _beside_the_plans(path: Path) -> bool:
-    """Files kept beside the bundled plans that are not plans: expected results, the capture manifest."""
-    return path.name.endswith(".expected.json") or path.name == "manifest.json"
+def _check_folder(args) -> int:
+    """Every plan in a folder: a review page each, one terminal line each, and the index page.
+    Exit 1 when any plan has an origin at --fail-at or worse; an unreadable file is listed."""
+    for option, name in ((args.html, "--html"), (args.markdown, "--markdown"), (args.query, "--query"),
+                         (args.probe, "--probe")):
+        if option:
+            raise PlanviewError(f"{name} is for one plan, not a folder; a folder's pages go to --out DIR")
+    out = Path(args.out or FOLDER_OUT)
+    rows, unreadable, skipped = review_folder(
+        Path(args.path), out, threshold=args.threshold, engine=args.engine, fmt=args.fmt,
+        fail_at=args.fail_at, title=f"planview reviews of {args.path}", quiet=args.json)
+    if not rows and not unreadable:
+        raise PlanviewError(f"no plan file in {args.path} (plan files end in "
+                            f"{', '.join(_plan_suffixes())}; {len(skipped)} other file(s) skipped)")
+    if args.json:
+        import json
+
+        sys.stdout.write(json.dumps({
+            "plans": [{"file": r.file, "review": r.link, "text": r.text, "values": r.key} for r in rows],
+            "unreadable": [{"file": u.file, "reason": u.reason} for u in unreadable],
+            "skipped": [str(p.relative_to(args.path)) for p in skipped],
+            "index": str(out / "index.html"),
+        }, indent=2, ensure_ascii=False) + "\n")
+    failing = [r for r in rows if r.key["origins"] and r.worst_q_error >= args.fail_at]
+    return 1 if failing else 0
 
 
-def _demo(args) -> int:
+def _plan_suffixes() -> tuple[str, ...]:
+    from .source import PLAN_SUFFIXES
+
+    return PLAN_SUFFIXES
+
+
+def _page_stem(relative: str, used: set[str]) -> str:
+    """A review page's name from the plan's path in the folder: one file name, not too long
+    for a file system, unique even where case is ignored."""
+    import hashlib
+
+    stem = relative.replace("/", "__")
+    if len(stem.encode("utf-8")) > 150:
+        digest = hashlib.sha256(relative.encode("utf-8", "surrogatepass")).hexdigest()[:12]
+        stem = stem.encode("utf-8")[:100].decode("utf-8", "ignore") + "-" + digest
+    base, number = stem, 1
+    while stem.lower() in used or stem.lower() == "index":
+        number += 1
+        stem = f"{base}-{number}"
+    used.add(stem.lower())
+    return stem
+
+
+def review_folder(root: Path, out: Path, *, threshold: float = 10.0, engine: str | None = None,
+                  fmt: str | None = None, fail_at: float | None = None, title: str = "planview reviews",
+                  quiet: bool = False):
+    """Review every plan under `root` into `out` (a page and a ticket each, and index.html).
+    Returns the index rows, the unreadable files and the files skipped as not plans."""
     from .errors import PlanParseError
+    from .export.index_page import Unreadable, index_row, render_index, summary_line
+    from .inert import visible
     from .plan import load
+    from .source import plan_files
+    from .words import plural
 
-    root = Path(args.plans) if args.plans else bundled_plans_dir()
-    out = Path(args.out)
+    say = (lambda line: None) if quiet else (lambda line: sys.stdout.write(visible(line) + "\n"))
+    if not root.is_dir():
+        raise PlanviewError(f"{root}: no such folder")
+    files, skipped = plan_files(root)
     out.mkdir(parents=True, exist_ok=True)
-    files = sorted(p for p in root.rglob("*") if p.is_file() and p.suffix in (".txt", ".json", ".xml", ".yaml")
-                   and not p.name.startswith("README") and not _beside_the_plans(p))
-    total_findings = 0
+    inside = out.resolve()
+    files = [p for p in files if not p.resolve().is_relative_to(inside)]  # not our own pages
+    rows, unreadable, used = [], [], set()
     for path in files:
-        rel = path.relative_to(root)
+        rel = path.relative_to(root).as_posix()
         try:
-            plan = load(path)
+            plan = load(path, engine=engine, fmt=fmt, threshold=threshold)
         except PlanParseError as exc:
-            print(f"{rel}: unreadable: {exc}")
+            reason = " ".join(str(exc).split())
+            unreadable.append(Unreadable(rel, reason))
+            say(f"{rel}: unreadable: {reason}")
             continue
-        stem = str(rel).replace("/", "__")
+        stem = _page_stem(rel, used)
+        link = None
         try:
             plan.to_html(out / f"{stem}.html")
             plan.to_markdown(out / f"{stem}.md")
+            link = f"{stem}.html"
         except ImportError:
             pass
-        total_findings += len(plan.findings)
-        causes = ", ".join(f"#{f.node} {f.cause or 'origin'} x{f.own_q_error:,.0f}" for f in plan.findings)
-        print(f"{rel}: {plan.engine} {plan.format}, {len(plan.nodes)} operators, "
-              f"{len(plan.findings)} origin(s){': ' + causes if causes else ''}")
-    print(f"reviewed {len(files)} plans, {total_findings} origins; pages in {out}/")
+        row = index_row(plan.report(), rel, link)
+        rows.append(row)
+        say(summary_line(row))
+    index = out / "index.html"
+    index.write_text(render_index(rows, title=title, unreadable=unreadable, skipped=len(skipped),
+                                  fail_at=fail_at), encoding="utf-8")
+    origins = sum(r.key["origins"] for r in rows)
+    say(f"reviewed {plural(len(rows), 'plan')}, {plural(origins, 'origin')}"
+        + (f"; {len(unreadable)} unreadable" if unreadable else "")
+        + (f"; {plural(len(skipped), 'file')} skipped as not plans" if skipped else "")
+        + f"; index: {index}")
+    return rows, unreadable, skipped
+
+
+def _demo(args) -> int:
+    root = Path(args.plans) if args.plans else bundled_plans_dir()
+    review_folder(root, Path(args.out), title="planview demo: the bundled plans")
     return 0
 
 
