@@ -207,3 +207,27 @@ def test_past_the_diagnosis_cap_origins_keep_rank_and_numbers():
     assert capped[1][:2] == full[1][:2] and capped[1][2] == "not_diagnosed"
     assert plan.findings[1].evidence["lines"] and plan.findings[1].caution
     assert any("diagnosed" in note for note in plan.notes)
+
+
+def test_a_dollar_in_a_literal_is_kept_and_a_parameter_still_read():
+    """PostgreSQL prints a query parameter as $n outside quotes (the manual, "PREPARE"); inside
+    a string literal a $ is a character of the value: a SCRAM verifier begins
+    'SCRAM-SHA-256$4096:' (RFC 5803). The real range_gap capture (PostgreSQL 16), its origin's
+    condition replaced: the evidence holds the literals exactly as the plan wrote them."""
+    import json
+
+    from plan_files import with_payloads
+
+    literal_low, literal_high = "SCRAM-SHA-256$4096:aa", "SCRAM-SHA-256$4096:zz"
+    condition = (f"((invoice_no >= '{literal_low}'::text) AND (invoice_no <= '{literal_high}'::text) "
+                 "AND (invoice_no > $1))")
+    doc = with_payloads(path("16", "range_gap", "json"), {"Index Cond": condition})
+    plan = planview.load(json.dumps(doc))
+    assert plan.findings
+    evidence = plan.findings[0].evidence
+    said = json.dumps(evidence, ensure_ascii=False)
+    assert "__pv_" not in said and "$param:" not in said
+    constants = [c for clause in evidence["clauses"] for c in clause["constants"]]
+    assert literal_low in constants and literal_high in constants
+    assert any(clause["has_parameter"] for clause in evidence["clauses"])
+    assert f"'{literal_low}'" in plan.to_markdown().replace("\\", "")
