@@ -231,3 +231,29 @@ def test_a_dollar_in_a_literal_is_kept_and_a_parameter_still_read():
     assert literal_low in constants and literal_high in constants
     assert any(clause["has_parameter"] for clause in evidence["clauses"])
     assert f"'{literal_low}'" in plan.to_markdown().replace("\\", "")
+
+
+def test_an_alias_names_a_table_of_its_own_statement_only():
+    """A paste of two real PostgreSQL 16 captures, the first's scan of owners aliased ``p``
+    (an alias is the statement's own: the manual, "Table and Column Aliases"); in the second,
+    join_correlated, ``p`` is pets. The second statement's join origin names pets, as its raw
+    plan says, never the first statement's owners."""
+    import json
+
+    from plan_files import with_payloads
+
+    first = with_payloads(path("16", "correlated", "json"), {"Alias": "p"})
+    second = json.loads(path("16", "join_correlated", "json").read_text(encoding="utf-8"))
+    scans, todo = {}, [second[0]["Plan"]]
+    while todo:  # the second statement's own aliases, read from its raw JSON
+        node = todo.pop()
+        if "Alias" in node:
+            scans[node["Alias"]] = node["Relation Name"]
+        todo += node.get("Plans", [])
+    assert scans["p"] == "pets"
+    plan = planview.load(json.dumps(first) + "\n" + json.dumps(second))
+    assert len(plan.statements) == 2
+    join = next(f for f in plan.findings if plan.nodes[f.node].statement == 1 and plan.nodes[f.node].relation is None)
+    assert join.cause == "correlation"
+    assert join.evidence["table"].split(".")[-1] == "pets"
+    assert "owners" not in join.fix and "pets" in join.fix

@@ -59,7 +59,7 @@ def diagnose(plan, rules=RULES, max_diagnosed: int = MAX_DIAGNOSED) -> None:
         finding.impact = impact.of(plan.nodes[finding.node])
     plan.findings.sort(key=lambda f: (-(f.impact.get("ms") or 0.0), -(f.impact.get("rows") or 0.0),
                                       -f.own_q_error))
-    relation_of = relation_map(plan)
+    relation_maps = relation_map(plan)
     names = table_parts(plan)
     for rank, finding in enumerate(plan.findings, 1):
         finding.rank = rank
@@ -67,7 +67,7 @@ def diagnose(plan, rules=RULES, max_diagnosed: int = MAX_DIAGNOSED) -> None:
         if rank > max_diagnosed:
             _fill_undiagnosed(plan, finding, node, max_diagnosed)
             continue
-        ctx = build_context(plan, node, relation_of)
+        ctx = build_context(plan, node, relation_maps)
         candidates: list[Candidate] = []
         checked: list[str] = []
         for name, rule in rules:
