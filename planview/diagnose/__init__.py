@@ -177,6 +177,11 @@ def _suggest(plan, candidate: Candidate, names: dict[str, tuple[str | None, str]
     details["table_parts"] = names.get(candidate.table or "")
     if details.get("other_table"):
         details["other_table_parts"] = names.get(details["other_table"])
+    if details.get("tables"):
+        details["tables_parts"] = [names.get(t) or (None, t) for t in details["tables"]]
+    if details.get("columns_by_table"):
+        details["columns_by_table_parts"] = [(names.get(t) or (None, t), cols)
+                                             for t, cols in details["columns_by_table"].items()]
     try:
         return plan.engine_spec.suggest_fix(candidate.cause, candidate.table, candidate.columns,
                        expressions=candidate.expressions, **details)
