@@ -331,3 +331,14 @@ def test_every_time_in_the_ticket_is_said_in_the_one_format(name):
     for number, unit in found:
         value = float(number.replace(",", "")) * (1000 if unit == "s" else 1)
         assert words.ms(value) == f"{number} {unit}", (number, unit)
+
+
+def test_static_tree_heads_each_statement_of_a_paste_with_its_time():
+    from planview import words
+
+    raw = _raw_json_statements(PG16 / "multi.json")
+    page = render_static_tree(planview.load(PG16 / "multi.json"))
+    execution = [s["Execution Time"] for s in raw]
+    assert f"2 statements, {words.ms(sum(execution))} in all" in page
+    headings = re.findall(r'<tr class="statement"><th colspan="6">(.*?)</th></tr>', page)
+    assert headings == [f"statement {i} of 2 · ran {words.ms(t)}" for i, t in enumerate(execution, 1)]

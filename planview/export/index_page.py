@@ -142,7 +142,7 @@ def render_index(rows: list[IndexRow], *, title: str = "planview reviews",
         "else its operators' time, summed over the statements.</p>",
         "<table class=\"pv-index\" id=\"pv-index\"><thead><tr>",
     ]
-    for number, (key, heading, kind) in enumerate(COLUMNS):
+    for number, (_key, heading, kind) in enumerate(COLUMNS):
         out.append(f"<th scope=\"col\" data-kind=\"{kind}\" aria-sort=\"none\">"
                    f"<button type=\"button\" data-column=\"{number}\">{_esc(heading)}</button></th>")
     out.append("</tr></thead><tbody>")
