@@ -309,7 +309,7 @@ def review_folder(root: Path, out: Path, *, threshold: float = 10.0, engine: str
 
 def _demo(args) -> int:
     root = Path(args.plans) if args.plans else bundled_plans_dir()
-    review_folder(root, Path(args.out), title="planview demo: the bundled plans")
+    review_folder(root, Path(args.out), title="planview demo: the bundled plans", fail_at=10.0)
     return 0
 
 

@@ -58,8 +58,6 @@ def index_row(report: dict[str, Any], file: str, link: str | None) -> IndexRow:
     worst = max(findings, key=lambda f: f.get("own_q_error") or 1.0, default=None)
     top = min(findings, key=lambda f: f.get("rank") or 0, default=None)
     time_ms = report.get("total_ms")
-    if time_ms is None:
-        time_ms = report.get("operator_ms")
     engine = str(report.get("engine") or "")
     if report.get("engine_version"):
         engine += f" {report['engine_version']}"
@@ -139,7 +137,9 @@ def render_index(rows: list[IndexRow], *, title: str = "planview reviews",
         f"<h1>{_esc(title)}</h1>",
         f"<p class=\"pv-index-facts\">{_esc(', '.join(facts))}. Click a column's heading to sort by it; "
         "click again to reverse. Time: each statement's execution time as the engine printed it, "
-        "else its operators' time, summed over the statements.</p>",
+        "else its operators' time, summed over the statements; – where the output has no timings."
+        + (f" A bar at the left marks a plan with an origin at {_esc(_words.factor(fail_at))} or worse."
+           if fail_at is not None else "") + "</p>",
         "<table class=\"pv-index\" id=\"pv-index\"><thead><tr>",
     ]
     for number, (_key, heading, kind) in enumerate(COLUMNS):
@@ -172,7 +172,7 @@ main { max-width: 1400px; margin: 0 auto; }
 h1 { font-size: 20px; }
 .pv-index { border-collapse: collapse; width: 100%; }
 .pv-index th, .pv-index td { border-bottom: 1px solid #ccc; padding: 4px 8px; text-align: left; vertical-align: top; }
-.pv-index td.num { text-align: right; font-variant-numeric: tabular-nums; }
+.pv-index td.num, .pv-index th[data-kind="number"] { text-align: right; font-variant-numeric: tabular-nums; }
 .pv-index th button { font: inherit; font-weight: 600; border: 0; background: none; padding: 0; cursor: pointer; color: #111; }
 .pv-index th[aria-sort="ascending"] button::after { content: " \\25B2"; }
 .pv-index th[aria-sort="descending"] button::after { content: " \\25BC"; }
