@@ -342,3 +342,10 @@ def test_static_tree_heads_each_statement_of_a_paste_with_its_time():
     assert f"2 statements, {words.ms(sum(execution))} in all" in page
     headings = re.findall(r'<tr class="statement"><th colspan="6">(.*?)</th></tr>', page)
     assert headings == [f"statement {i} of 2 · ran {words.ms(t)}" for i, t in enumerate(execution, 1)]
+
+
+def test_the_ticket_has_no_empty_evidence_field():
+    """multi.json's correlated origin has no expression (its clauses are bare columns): the
+    ticket lists no "expressions:" with nothing after it."""
+    text = planview.load(PG16 / "multi.json").to_markdown()
+    assert not re.search(r"^- [\w ]+:\s*$", text, re.M)
