@@ -275,6 +275,7 @@ def review_folder(root: Path, out: Path, *, threshold: float = 10.0, engine: str
     out.mkdir(parents=True, exist_ok=True)
     inside = out.resolve()
     files = [p for p in files if not p.resolve().is_relative_to(inside)]  # not our own pages
+    skipped = [p for p in skipped if not p.resolve().is_relative_to(inside)]
     rows, unreadable, used = [], [], set()
     for path in files:
         rel = path.relative_to(root).as_posix()

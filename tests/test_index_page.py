@@ -316,3 +316,19 @@ def test_the_index_sorts_in_a_browser_offline_and_links_to_each_review(tmp_path)
         assert not errors and not dialogs and not blocked
         assert not [m for m in console if "Content Security Policy" in m]
         page.close()
+
+
+def test_check_folder_json_lists_the_rows_the_unreadable_and_the_skipped(tmp_path):
+    folder = tmp_path / "plans"
+    folder.mkdir()
+    shutil.copy(PLANS / "mysql" / "8.0-filter.txt", folder / "filter.txt")
+    shutil.copy(PLANS / "mysql" / "README.md", folder / "README.md")
+    (folder / "empty.json").write_text("", encoding="utf-8")
+    run = _cli("check", str(folder), "--out", str(tmp_path / "review"), "--json")
+    assert run.returncode == 0, run.stderr  # the MySQL manual's example has no origin (its fixture)
+    doc = json.loads(run.stdout)
+    assert [p["file"] for p in doc["plans"]] == ["filter.txt"]
+    assert doc["plans"][0]["values"]["operators"] == 2  # plans/mysql/8.0-filter.expected.json
+    assert [u["file"] for u in doc["unreadable"]] == ["empty.json"] and doc["unreadable"][0]["reason"]
+    assert doc["skipped"] == ["README.md"]
+    assert (tmp_path / "review" / doc["plans"][0]["review"]).is_file()
