@@ -195,6 +195,7 @@ def test_hostile_names_unreadable_files_and_non_plans(tmp_path):
     real = PLANS / "postgresql" / "pg16" / "multi.json"
     shutil.copy(real, folder / HOSTILE)
     shutil.copy(real, folder / "plain.json")
+    shutil.copy(real, folder / "clear\x1b[2Jscreen\u202eevil.json")  # ECMA-48 ESC, a direction override
     (folder / "broken.json").write_text('[{"Plan": {"Node Type": ', encoding="utf-8")
     shutil.copy(PLANS / "postgresql" / "manifest.json", folder / "manifest.json")
     shutil.copy(PLANS / "postgresql" / "pg16" / "multi.expected.json", folder / "multi.expected.json")
@@ -207,7 +208,9 @@ def test_hostile_names_unreadable_files_and_non_plans(tmp_path):
     assert "<img" not in page and "&lt;img src=x onerror=alert(1)&gt;&amp;&quot;q&quot;#?.json" in page
     index = _read_index(out / "index.html")
     names = [row[0]["text"] for row in index.rows]
-    assert sorted(names) == sorted([HOSTILE, "plain.json"])
+    assert sorted(names) == sorted([HOSTILE, "plain.json", "clear\\x1b[2Jscreen\\u202eevil.json"])
+    assert "\x1b" not in run.stdout and "\u202e" not in run.stdout and "\u202e" not in page
+    assert "clear\\x1b[2Jscreen\\u202eevil.json: postgresql" in run.stdout
     hostile_row = index.rows[names.index(HOSTILE)]
     href = hostile_row[0]["href"]
     assert not re.search(r'[<>"#?&]', href)  # percent-encoded: one relative path, no query or fragment
