@@ -271,6 +271,8 @@ def review_folder(root: Path, out: Path, *, threshold: float = 10.0, engine: str
     say = (lambda line: None) if quiet else (lambda line: sys.stdout.write(visible(line) + "\n"))
     if not root.is_dir():
         raise PlanviewError(f"{root}: no such folder")
+    if not threshold > 1:  # refused once, not once a file
+        raise PlanviewError(f"--threshold must be a q-error above 1, got {threshold:g}")
     files, skipped = plan_files(root)
     out.mkdir(parents=True, exist_ok=True)
     inside = out.resolve()

@@ -266,6 +266,8 @@ def test_a_folder_refuses_single_plan_options_and_an_empty_one_is_refused(tmp_pa
     assert run.returncode == 2 and "--html" in run.stderr
     run = _cli("check", str(PLANS / "mysql" / "8.0-filter.txt"), "--out", str(tmp_path / "o"))
     assert run.returncode == 2 and "--out" in run.stderr
+    run = _cli("check", str(PLANS / "mysql"), "--out", str(tmp_path / "o"), "--threshold", "0.5")
+    assert run.returncode == 2 and "--threshold" in run.stderr and not run.stdout  # once, not a line a file
 
 
 # -- in a real browser, offline --------------------------------------------------------------
