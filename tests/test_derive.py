@@ -263,6 +263,20 @@ LIVE_QUERIES = [
     "SELECT * FROM lines WHERE amount BETWEEN 10 AND 20 AND status = 'shipped'",
     "SELECT * FROM lines WHERE score > -10 AND score < 10",
     "SELECT * FROM lines WHERE code > 'b' AND code < 'c' AND qty = 6",
+    # the edges: beyond the histogram (with and without an index), a tight range, two lower
+    # bounds on one column, three clauses, the constant on the left, index-only scans
+    "SELECT * FROM lines WHERE shipped > '2030-01-01'",
+    "SELECT * FROM lines WHERE score < -1000",
+    "SELECT * FROM lines WHERE amount > 99.99",
+    "SELECT * FROM lines WHERE qty >= 10 AND qty <= 10",
+    "SELECT * FROM lines WHERE id > 100 AND id > 200",
+    "SELECT * FROM lines WHERE region = 'zone7' AND qty = 0 AND note IS NOT NULL",
+    "SELECT * FROM lines WHERE 'open' = status",
+    "SELECT * FROM lines WHERE ratio = 0.5",
+    "SELECT * FROM lines WHERE stamped = '2024-01-01 01:37:00'",
+    "SELECT * FROM lines WHERE note < 'n2'",
+    "SELECT id FROM lines WHERE id < 50",
+    "SELECT amount FROM lines WHERE amount < 5",
     # no statistics (statistics target 0): the defaults
     "SELECT * FROM lines WHERE guess = 5",
     "SELECT * FROM lines WHERE guess < 5",
@@ -319,3 +333,106 @@ def test_live_rederived_estimates_equal_the_printed_ones(pg_servers):
         print("  miss:", miss)
     assert total >= len(LIVE_QUERIES)
     assert share >= 0.95, misses
+
+
+def _node(text: str):
+    return planview.load(text).nodes[0]
+
+
+@pytest.mark.parametrize("condition, why", [
+    ("Filter: ((a = 1) OR (b = 2))", "not one bare column"),
+    ("Filter: (lower(town) = 'x'::text)", "not one bare column"),
+    ("Filter: (town ~~ 'ab%'::text)", "not a comparison"),
+    ("Filter: (a = ANY ('{1,2}'::integer[]))", "not a comparison"),
+    ("Filter: (a = $1)", "known only when the plan runs"),
+    ("Filter: (a = (InitPlan 1).col1)", "known only when the plan runs"),
+    ("Filter: (a = b)", "not one bare column"),
+    ("Filter: ((a)::numeric < 10.5)", "not one bare column"),
+])
+def test_only_simple_clauses_are_derived(condition, why):
+    """A clause is re-derived only when it is one bare column against one constant (PostgreSQL's
+    var_eq_const / scalarineqsel cases); the rest are refused with a reason, never guessed."""
+    from planview.live.derive import NotDerivable
+
+    node = _node(f"Seq Scan on t  (cost=0.00..1.00 rows=5 width=4)\n  {condition}\n")
+    with pytest.raises(NotDerivable, match=why):
+        restrictions_of(node)
+
+
+def test_join_side_and_parameterised_scans_are_not_derived():
+    """An index scan driven by an outer row (the manual's join example, `unique2 = t1.unique2`)
+    is estimated per outer row, not from the restriction: refused."""
+    from planview.live.derive import NotDerivable
+
+    node = _node("Index Scan using tenk2_unique2 on tenk2 t2  (cost=0.00..6.27 rows=1 width=244)\n"
+                 "  Index Cond: (unique2 = t1.unique2)\n")
+    with pytest.raises(NotDerivable):
+        restrictions_of(node)
+
+
+def test_strings_under_a_collation_other_than_c_are_approximate():
+    """selfuncs.c convert_string_datum passes strings through strxfrm() unless the collation is C,
+    which planview cannot redo: such a range is marked approximate."""
+    other = column("stringu1", "name", **{k: getattr(STRINGU1, k) for k in (
+        "null_frac", "n_distinct", "most_common_vals", "most_common_freqs", "histogram_bounds")})
+    other.collation_is_c = False
+    result = derive_restrictions([Restriction("(stringu1 < 'IAAAAA'::name)", "stringu1", "<", "IAAAAA")],
+                                 {"stringu1": other}, version=MANUAL_VERSION, **TENK1)
+    assert result["approximate"]
+
+
+@pytest.mark.pg
+def test_live_extended_statistics_are_flagged(pg_servers):
+    """PostgreSQL manual, 'Multivariate Statistics Examples': t(a, b) with a = b = i % 100 over
+    10,000 rows; with functional-dependency statistics the planner estimates a = 1 AND b = 1 at
+    100 rows, where independence gives 1. The derivation says the statistics object applies and
+    is marked approximate, and its independence product is the manual's 1."""
+    from planview.live.derive import derive_plan
+    from planview.probe import Budget
+
+    db = pg_servers.create_database(f"derive_mv_{pg_servers.source}")
+    db.execute("CREATE TABLE t (a INT, b INT); "
+               "INSERT INTO t SELECT i % 100, i % 100 FROM generate_series(1, 10000) s(i); "
+               "CREATE STATISTICS stts (dependencies) ON a, b FROM t; ANALYZE t;")
+    plan = planview.load(db.explain("SELECT * FROM t WHERE a = 1 AND b = 1", "json", options=()))
+    with db.connect() as conn:
+        derived = derive_plan(plan, conn, budget=Budget(5000, 20000))
+    (result,) = derived.values()
+    assert result["printed"] == 100 and result["rows"] == 1
+    assert result["approximate"] and not result["equal"]
+    assert any("stts" in step for step in result["steps"])
+
+
+@pytest.mark.pg
+def test_live_derivation_reads_only_and_withholds_secret_values(pg_servers):
+    """The statistics are read in a transaction that is rolled back: pg_statistic and the
+    analyze times are as before and the connection is idle after. A column whose name looks
+    secret has its frequencies used but none of its values shown (common practice: credentials
+    in columns named like them); the derivation lands in the report."""
+    import json
+
+    from planview.live.derive import derive_plan
+    from planview.probe import Budget
+
+    db = pg_servers.create_database(f"derive_ro_{pg_servers.source}")
+    db.execute("CREATE TABLE accounts (id int PRIMARY KEY, reset_token text); "
+               "INSERT INTO accounts SELECT i, 'tok' || (i % 20) FROM generate_series(1, 5000) s(i); "
+               "ANALYZE accounts;")
+    state = ("SELECT (SELECT md5(string_agg(s::text, ',' ORDER BY starelid, staattnum, stainherit)) "
+             "FROM pg_statistic s), (SELECT max(last_analyze)::text FROM pg_stat_user_tables)")
+    plan = planview.load(db.explain("SELECT * FROM accounts WHERE reset_token = 'tok3' AND id > 10",
+                                    "json", options=()))
+    with db.connect() as conn:
+        conn.autocommit = True
+        before = conn.execute(state).fetchone()
+        derived = derive_plan(plan, conn, budget=Budget(5000, 20000))
+        assert conn.info.transaction_status == 0
+        after = conn.execute(state).fetchone()
+    assert before == after
+    (result,) = derived.values()
+    assert result["equal"], result["steps"]
+    text = json.dumps(result)
+    assert "tok3" in text  # the plan's own constant
+    assert not any(f"tok{i}'" in text for i in range(20) if i != 3)  # no value from the catalogue
+    assert result["statistics"]["columns"]["reset_token"]["most_common_vals"] == "withheld"
+    assert plan.report()["nodes"][0]["derivation"]["rows"] == result["rows"]

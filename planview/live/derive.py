@@ -436,8 +436,12 @@ def ineq_selectivity(r: Restriction, column: ColumnStats | None, tuples: float, 
     else:
         selec *= 0.5
         combine = f"{_g(mcv_selec)} + 0.5 x {_g(rest)}"
-        steps.append(f"{r.text}: no histogram, so the planner assumes half of the {_g(rest)} of the rows "
-                     "outside the most-common values and nulls satisfy it.")
+        if rest > 1e-6:
+            steps.append(f"{r.text}: no histogram, so the planner assumes half of the {_g(rest)} of the rows "
+                         "outside the most-common values and nulls satisfy it.")
+        else:
+            steps.append(f"{r.text}: the most-common values and nulls hold all the rows (to rounding), "
+                         "so there is no histogram.")
     selec += mcv_selec
     selec = clamp_probability(selec)
     steps.append(f"{r.text}: the histogram covers 1 - {_g(nullfrac)} (nulls) - {_g(sumcommon)} (most-common "
@@ -465,9 +469,8 @@ def histogram_selectivity(r: Restriction, column: ColumnStats, const: Value, bou
             return True
         return False
 
-    if n == 2 and column.leading_btree:
-        have_end = use_actual(0, 0)
-        have_end = use_actual(1, 1) and have_end if 0 in actual else False
+    if n == 2 and column.leading_btree and 0 in actual and 1 in actual:
+        have_end = use_actual(0, 0) and use_actual(1, 1)
     lo, hi = 0, n
     probe_op = "<=" if iseq else "<"
     if isgt:
@@ -632,7 +635,7 @@ def derive_restrictions(restrictions: list[Restriction], columns: dict[str, Colu
                                     has_subclass=has_subclass)
     approximate = False
     for stat in extended:
-        kinds = set(stat.kinds) & {"d", "m"}
+        kinds = set(stat.kinds) & {"f", "m"}  # dependencies and most-common values combine clauses
         covered = {r.column for r in restrictions} & set(stat.columns)
         if kinds and len(covered) >= 2:
             approximate = True

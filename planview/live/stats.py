@@ -174,7 +174,8 @@ class ExtendedStats:
     name: str
     columns: tuple[str, ...]
     kinds: tuple[str, ...]
-    """``d`` dependencies, ``m`` most-common values, ``f`` distinct counts, ``e`` expressions."""
+    """pg_statistic_ext.stxkind: ``d`` distinct counts, ``f`` functional dependencies, ``m``
+    most-common values, ``e`` expressions."""
     has_expressions: bool = False
     n_distinct: str | None = None
     dependencies: str | None = None
