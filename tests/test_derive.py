@@ -277,6 +277,18 @@ LIVE_QUERIES = [
     "SELECT * FROM lines WHERE note < 'n2'",
     "SELECT id FROM lines WHERE id < 50",
     "SELECT amount FROM lines WHERE amount < 5",
+    # lists: = ANY and <> ALL (scalararraysel)
+    "SELECT * FROM lines WHERE status IN ('open', 'closed')",
+    "SELECT * FROM lines WHERE status IN ('state17', 'nowhere', 'open')",
+    "SELECT * FROM lines WHERE status NOT IN ('open', 'shipped')",
+    "SELECT * FROM lines WHERE qty IN (0, 30, 31)",
+    "SELECT * FROM lines WHERE id IN (1, 2, 3)",
+    "SELECT * FROM lines WHERE shipped IN ('2024-03-01', '2024-03-02') AND qty > 5",
+    "SELECT * FROM lines WHERE region IN ('zone1', NULL)",
+    # parallel scans: each process expects its share (cost_seqscan divides by the parallel divisor)
+    ("SELECT * FROM lines WHERE status = 'open'", "parallel"),
+    ("SELECT count(*) FROM lines WHERE qty > 5", "parallel"),
+    ("SELECT * FROM lines WHERE amount < 50 AND note IS NOT NULL", "parallel"),
     # no statistics (statistics target 0): the defaults
     "SELECT * FROM lines WHERE guess = 5",
     "SELECT * FROM lines WHERE guess < 5",
@@ -290,21 +302,27 @@ LIVE_QUERIES = [
 ]
 
 
+SETTINGS = {"parallel": {"parallel_setup_cost": "0", "parallel_tuple_cost": "0",
+                         "min_parallel_table_scan_size": "0", "max_parallel_workers_per_gather": "3"}}
+
+
 def _live_share(db) -> tuple[int, int, list[str], dict]:
     from planview.live.derive import RESTRICTION_SCANS, derive_plan
     from planview.probe import Budget
 
     equal, total, misses, kinds = 0, 0, [], {}
     with db.connect() as conn:
-        for sql in LIVE_QUERIES:
-            plan = planview.load(db.explain(sql, "json", options=()))
+        for query in LIVE_QUERIES:
+            sql, settings = query if isinstance(query, tuple) else (query, None)
+            plan = planview.load(db.explain(sql, "json", options=(), settings=SETTINGS.get(settings)))
             skipped: dict = {}
             derived = derive_plan(plan, conn, budget=Budget(5000, 20000), skipped=skipped)
             scans = [n for n in plan.nodes if n.operator in RESTRICTION_SCANS]
             assert scans, sql
             for node in scans:
                 total += 1
-                kinds[node.operator] = kinds.get(node.operator, 0) + 1
+                kind = node.label.split(" on ")[0].split(" using ")[0]
+                kinds[kind] = kinds.get(kind, 0) + 1
                 result = derived.get(node.id)
                 assert (result is None) == (node.derivation is None)
                 if result is not None and result["equal"]:
@@ -343,7 +361,8 @@ def _node(text: str):
     ("Filter: ((a = 1) OR (b = 2))", "not one bare column"),
     ("Filter: (lower(town) = 'x'::text)", "not one bare column"),
     ("Filter: (town ~~ 'ab%'::text)", "not a comparison"),
-    ("Filter: (a = ANY ('{1,2}'::integer[]))", "not a comparison"),
+    ("Filter: (a = ALL ('{1,2}'::integer[]))", "not a comparison"),
+    ("Filter: (a = ANY ('{{1,2},{3,4}}'::integer[]))", "more than one dimension"),
     ("Filter: (a = $1)", "known only when the plan runs"),
     ("Filter: (a = (InitPlan 1).col1)", "known only when the plan runs"),
     ("Filter: (a = b)", "not one bare column"),

@@ -18,6 +18,8 @@ Estimation Examples") and the source it describes:
   last bounds replaced by the current extremes when a b-tree index leads with the column
   (``get_actual_variable_range``), and kept off 0 and 1 by a hundredth of a bucket otherwise;
 - ``IS NULL`` / ``IS NOT NULL`` (``nulltestsel``): ``null_frac`` or its complement;
+- ``column = ANY (constants)`` and ``column <> ALL (constants)``, which IN and NOT IN lists
+  become (``scalararraysel``): each value as one constant, the shares added as disjoint;
 - several clauses (``clauselist_selectivity_ext`` in ``clausesel.c``): the product of their
   selectivities, except that a lower and an upper bound on one column are one range,
   ``hi + lo - 1`` plus the null share (the default for a range when either side was a guess);
@@ -34,6 +36,7 @@ from __future__ import annotations
 
 import datetime as _dt
 import math
+import re
 import struct
 from dataclasses import dataclass
 from decimal import Decimal, InvalidOperation
@@ -296,12 +299,15 @@ class Restriction:
     text: str
     column: str
     op: str
-    """``=``, ``<>``, ``<``, ``<=``, ``>``, ``>=``, ``is_null`` or ``is_not_null``, column on the left."""
+    """``=``, ``<>``, ``<``, ``<=``, ``>``, ``>=``, ``in`` (= ANY), ``not_in`` (<> ALL), ``is_null`` or
+    ``is_not_null``, with the column on the left."""
     constant: str | None = None
     const_type: str | None = None
     """The constant's cast as printed (sqlglot's name for it: ``name``, ``date``, ``float``...)."""
     column_cast: str | None = None
     """A cast printed on the column (``::text`` on a varchar column is a relabelling)."""
+    elements: list[str | None] | None = None
+    """The constants of ``= ANY`` (``in``) and ``<> ALL`` (``not_in``); None is a NULL."""
 
 
 @dataclass
@@ -566,6 +572,8 @@ def clause_selectivity(r: Restriction, column: ColumnStats | None, tuples: float
         return null_selectivity(r, column)
     if r.op in ("=", "<>"):
         return eq_selectivity(r, column, tuples)
+    if r.op in ("in", "not_in"):
+        return array_selectivity(r, column, tuples)
     return ineq_selectivity(r, column, tuples, version=version)
 
 
@@ -721,6 +729,17 @@ def _restriction(clause, node) -> Restriction:
     wrapper = set(clause.wrappers)
     if clause.op_class in ("is_null", "is_not_null"):
         return Restriction(text, column, clause.op_class)
+    if len(wrapper) > 1:
+        raise NotDerivable(f"{text} wraps its column in more than one cast")
+    if _QUANTIFIED.search(rendered.sql):  # x op ANY/ALL (array), however the classifier read it
+        op = "in" if _ANY in rendered.sql else "not_in" if _ALL in rendered.sql else None
+        if op is None or len(rendered.literals) != 1 or not clause.column_left:
+            raise NotDerivable(f"{text} is not a comparison planview works out")
+        try:
+            elements = array_elements(rendered.literals[0])
+        except ValueError as exc:
+            raise NotDerivable(f"{text}: {exc}") from None
+        return Restriction(text, column, op, None, None, next(iter(wrapper), None), elements)
     if clause.op_class not in ("equality", "inequality", "open_range") or clause.operator not in _OPS:
         raise NotDerivable(f"{text} is not a comparison planview works out")
     if len(rendered.literals) != 1:
@@ -729,9 +748,99 @@ def _restriction(clause, node) -> Restriction:
     if not clause.column_left:
         op = _FLIP[op]
     cast = next(iter(clause.constant_types), None)
-    if len(wrapper) > 1:
-        raise NotDerivable(f"{text} wraps its column in more than one cast")
     return Restriction(text, column, op, rendered.literals[0], cast, next(iter(wrapper), None))
+
+
+_ANY = "OPERATOR(pg_catalog.=) ANY ("
+_ALL = "OPERATOR(pg_catalog.<>) ALL ("
+_QUANTIFIED = re.compile(r"OPERATOR\(pg_catalog\.[^)]*\) (?:ANY|ALL) \(")
+MAX_ELEMENTS = 10_000
+
+
+def array_elements(text: str) -> list[str | None]:
+    """A one-dimensional array constant as PostgreSQL prints it (``{a,"b c",NULL}``).
+
+    >>> array_elements('{open,"a, b",NULL, x }')
+    ['open', 'a, b', None, 'x']
+    """
+    body = text.strip()
+    if not (body.startswith("{") and body.endswith("}")):
+        raise ValueError("the list is not an array constant")
+    body = body[1:-1]
+    if not body.strip():
+        return []
+    out: list[str | None] = []
+    i, n = 0, len(body)
+    while i <= n:
+        while i < n and body[i] == " ":
+            i += 1
+        if i < n and body[i] == "{":
+            raise ValueError("the list has more than one dimension")
+        if i < n and body[i] == '"':
+            i += 1
+            piece = []
+            while i < n and body[i] != '"':
+                if body[i] == "\\" and i + 1 < n:
+                    i += 1
+                piece.append(body[i])
+                i += 1
+            if i >= n:
+                raise ValueError("the list has an unclosed quote")
+            i += 1
+            value: str | None = "".join(piece)
+            while i < n and body[i] == " ":
+                i += 1
+        else:
+            start = i
+            while i < n and body[i] != ",":
+                i += 1
+            raw = body[start:i].strip()
+            value = None if raw.upper() == "NULL" else raw
+        out.append(value)
+        if len(out) > MAX_ELEMENTS:
+            raise ValueError(f"the list holds more than {MAX_ELEMENTS:,} values")
+        if i < n and body[i] != ",":
+            raise ValueError("the list is not a plain array constant")
+        i += 1
+    return out
+
+
+def array_selectivity(r: Restriction, column: ColumnStats | None, tuples: float) -> Selectivity:
+    """scalararraysel for ``column = ANY (constants)`` and ``column <> ALL (constants)``: each
+    value's selectivity as for one constant; for ``= ANY`` the values are taken as distinct, so
+    their shares add up (while the sum stays within 0..1, else 1 - product of misses), for
+    ``<> ALL`` the shares multiply (or add up as ``1 + sum(s - 1)`` while that stays within 0..1)."""
+    use_or = r.op == "in"
+    s1 = s1disjoint = 0.0 if use_or else 1.0
+    steps: list[str] = []
+    approximate = False
+    shown_steps = 3
+    for k, element in enumerate(r.elements or []):
+        if element is None:
+            s2 = 0.0
+            said = [f"{r.text}: a NULL in the list matches nothing."]
+        else:
+            one = Restriction(f"value {k + 1}", r.column, "=" if use_or else "<>", element)
+            found = eq_selectivity(one, column, tuples)
+            s2, said, approximate = found.value, found.steps, approximate or found.approximate
+        if use_or:
+            s1 = s1 + s2 - s1 * s2
+            s1disjoint += s2
+        else:
+            s1 = s1 * s2
+            s1disjoint += s2 - 1.0
+        if k < shown_steps:
+            steps.extend(said)
+    count = len(r.elements or [])
+    if count > shown_steps:
+        steps.append(f"... and so for the other {count - shown_steps} values of the list.")
+    if 0.0 <= s1disjoint <= 1.0:
+        steps.append(f"{r.text}: the {count} values are taken as distinct, so their shares "
+                     f"{'add up' if use_or else 'of the rest combine'}: {_g(s1disjoint)}.")
+        s1 = s1disjoint
+    else:
+        steps.append(f"{r.text}: adding the shares would leave 0..1, so they combine as independent: {_g(s1)}.")
+    return Selectivity(clamp_probability(s1), steps, approximate)
 
 
 def _check_types(restrictions: list[Restriction], columns: dict[str, ColumnStats]) -> None:
