@@ -455,3 +455,30 @@ def test_live_derivation_reads_only_and_withholds_secret_values(pg_servers):
     assert not any(f"tok{i}'" in text for i in range(20) if i != 3)  # no value from the catalogue
     assert result["statistics"]["columns"]["reset_token"]["most_common_vals"] == "withheld"
     assert plan.report()["nodes"][0]["derivation"]["rows"] == result["rows"]
+
+
+@pytest.mark.pg
+def test_live_partial_index_and_stale_statistics_are_said(pg_servers):
+    """An index scan of a partial index does not print the clauses its predicate implies
+    (create_indexscan_plan in createplan.c leaves them out), though the planner counted them:
+    the derivation says so and is marked approximate. Rows changed since the last ANALYZE are
+    named (pg_stat_user_tables.n_mod_since_analyze)."""
+    from planview.live.derive import derive_plan
+    from planview.probe import Budget
+
+    db = pg_servers.create_database(f"derive_pi_{pg_servers.source}")
+    db.execute("CREATE TABLE tickets (id int, status text); "
+               "INSERT INTO tickets SELECT i, CASE WHEN i % 4 = 0 THEN 'open' ELSE 'done' END "
+               "FROM generate_series(1, 20000) s(i); "
+               "CREATE INDEX tickets_open ON tickets (id) WHERE status = 'open'; ANALYZE tickets; "
+               "UPDATE tickets SET status = 'done' WHERE id <= 5000;")
+    plan = planview.load(db.explain("SELECT * FROM tickets WHERE status = 'open' AND id < 100", "json",
+                                    options=(), settings={"enable_seqscan": "off", "enable_bitmapscan": "off"}))
+    node = next(n for n in plan.nodes if n.relation == "tickets")
+    assert node.index == "tickets_open", [n.label for n in plan.nodes]
+    with db.connect() as conn:
+        derived = derive_plan(plan, conn, budget=Budget(5000, 20000))
+    result = derived[node.id]
+    text = " ".join(result["steps"])
+    assert result["approximate"] and "predicate" in text
+    assert "5,000 rows have changed since the last ANALYZE" in text

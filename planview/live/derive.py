@@ -921,6 +921,17 @@ def derive_node(node, restrictions: list[Restriction], stats: TableStats) -> dic
         restrictions, stats.columns, reltuples=stats.reltuples, relpages=stats.relpages,
         current_pages=stats.current_pages, version=stats.server_version, has_subclass=stats.has_subclass,
         printed=node.est_rows, parallel_divisor=divisor, extended=stats.extended)
+    notes = []
+    if node.index and node.index in stats.partial_indexes:
+        derivation["approximate"] = True
+        notes.append(f"The index {printable(node.index, 63)} has a predicate: the scan does not print the "
+                     "clauses it implies, which the planner still counted, so this derivation may miss some.")
+    modified = stats.modified_since_analyze
+    if modified and stats.reltuples > 0 and modified >= 0.1 * stats.reltuples:
+        notes.append(f"{modified:,} rows have changed since the last ANALYZE: the planner still uses the "
+                     "statistics of then (refreshing them is ANALYZE, which reads a sample and takes a "
+                     "SHARE UPDATE EXCLUSIVE lock; your change process decides).")
+    derivation["steps"][-1:-1] = notes
     derivation["table"] = stats.label
     derivation["statistics"] = stats.as_dict()
     return derivation
