@@ -28,6 +28,7 @@ from planview.live.derive import (
     eqjoin_selectivity,
     join_rows,
     restrictions_of,
+    table_node,
 )
 from planview.live.stats import ColumnStats, TableStats
 from planview.probe.postgresql import Relation
@@ -132,6 +133,12 @@ def test_manual_two_clauses_multiply():
     assert result["selectivity"] == pytest.approx(0.0001466, abs=5e-8)
     assert result["rows"] == 1 and result["printed"] == 1 and result["equal"]
     assert "multiply" in " ".join(result["steps"])
+    # "the number of rows estimated to be returned from the bitmap index scan reflects only the
+    # condition used with the index": 1007
+    index_scan = plan.nodes[1]
+    assert table_node(plan.nodes, index_scan) is node
+    index_result = derive_node(index_scan, restrictions_of(index_scan, node), stats)
+    assert index_result["rows"] == 1007 and index_result["printed"] == 1007 and index_result["equal"]
 
 
 def test_manual_join():
@@ -455,6 +462,11 @@ def test_live_derivation_reads_only_and_withholds_secret_values(pg_servers):
     assert not any(f"tok{i}'" in text for i in range(20) if i != 3)  # no value from the catalogue
     assert result["statistics"]["columns"]["reset_token"]["most_common_vals"] == "withheld"
     assert plan.report()["nodes"][0]["derivation"]["rows"] == result["rows"]
+    # out of time: each scan says why it has no derivation, nothing is raised
+    skipped: dict = {}
+    with db.connect() as conn:
+        assert derive_plan(plan, conn, budget=Budget(5000, 0), skipped=skipped) == {}
+    assert skipped and all("time limit" in why for why in skipped.values()), skipped
 
 
 @pytest.mark.pg

@@ -693,12 +693,28 @@ def join_rows(outer_rows: float, inner_rows: float, selectivity: float) -> float
 # ---- reading a node's clauses -----------------------------------------------------------------
 
 
-def restrictions_of(node) -> list[Restriction]:
-    """The node's printed clauses as column-op-constant restrictions, or NotDerivable."""
+MAX_BITMAP_DEPTH = 64
+
+
+def table_node(nodes, node):
+    """The node that names the table `node` reads: itself, or for an index scan feeding a bitmap
+    (which names only its index) the heap scan it feeds, up through the bitmaps combining it."""
+    current, steps = node, 0
+    while not current.relation and current.parent is not None and steps < MAX_BITMAP_DEPTH:
+        current, steps = nodes[current.parent], steps + 1
+        if current.relation and current.operator not in RESTRICTION_SCANS:
+            return None
+    return current if current.relation else None
+
+
+def restrictions_of(node, table=None) -> list[Restriction]:
+    """The node's printed clauses as column-op-constant restrictions, or NotDerivable. `table`
+    is the node naming the table (`table_node`), when `node` names only an index."""
     kinds = RESTRICTION_SCANS.get(node.operator)
     if kinds is None:
         raise NotDerivable("not a scan whose estimate is the table's restriction estimate")
-    if not node.relation:
+    table = table if table is not None else node
+    if not table.relation:
         raise NotDerivable("the scan names no table")
     found: list[Restriction] = []
     for condition in node.conditions:
@@ -706,7 +722,7 @@ def restrictions_of(node) -> list[Restriction]:
             raise NotDerivable(f"its {printable(condition.key or condition.kind, 40)} is not a restriction "
                                "planview works out")
         for clause in parse_condition(condition.text, condition.kind, DIALECT):
-            found.append(_restriction(clause, node))
+            found.append(_restriction(clause, table))
     return found
 
 
@@ -878,12 +894,15 @@ def derive_plan(plan, conn, *, budget: Budget, skipped: dict | None = None) -> d
         try:
             if node.est_rows is None:
                 raise NotDerivable("the plan printed no estimate")
-            restrictions = restrictions_of(node)
+            table = table_node(plan.nodes, node)
+            if table is None:
+                raise NotDerivable("the scan names no table")
+            restrictions = restrictions_of(node, table)
         except NotDerivable as exc:
             skipped[node.id] = str(exc)
             continue
-        key = (node.schema, node.relation)
-        entry = wanted.setdefault(key, {"node": node, "columns": set(), "endpoints": set(), "nodes": []})
+        key = (table.schema, table.relation)
+        entry = wanted.setdefault(key, {"node": table, "columns": set(), "endpoints": set(), "nodes": []})
         entry["columns"].update(r.column for r in restrictions)
         entry["endpoints"].update(r.column for r in restrictions if r.op in ("<", "<=", ">", ">="))
         entry["nodes"].append((node, restrictions))
