@@ -200,6 +200,7 @@ CREATE TABLE lines (
     code text COLLATE "C",
     grade char(2),
     big int8,
+    active bool,
     guess int
 );
 INSERT INTO lines
@@ -217,6 +218,7 @@ SELECT i,
        substr(md5(i::text), 1, 6),
        chr(65 + i % 5) || chr(65 + i % 3),
        i::int8 * 1000003,
+       CASE WHEN i % 20 = 0 THEN NULL ELSE i % 5 <> 0 END,
        i % 13
 FROM generate_series(1, 24000) AS s(i);
 CREATE INDEX lines_shipped ON lines (shipped);
@@ -293,6 +295,10 @@ LIVE_QUERIES = [
     "SELECT * FROM lines WHERE grade < 'C'",
     "SELECT * FROM lines WHERE big > 5000000000",
     "SELECT * FROM lines WHERE big = 1000003",
+    # a boolean column alone and NOT it (nulls count as NOT)
+    "SELECT * FROM lines WHERE active",
+    "SELECT * FROM lines WHERE NOT active",
+    "SELECT * FROM lines WHERE active = false AND qty = 0",
     # lists: = ANY and <> ALL (scalararraysel)
     "SELECT * FROM lines WHERE status IN ('open', 'closed')",
     "SELECT * FROM lines WHERE status IN ('state17', 'nowhere', 'open')",

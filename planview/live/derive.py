@@ -18,6 +18,7 @@ Estimation Examples") and the source it describes:
   last bounds replaced by the current extremes when a b-tree index leads with the column
   (``get_actual_variable_range``), and kept off 0 and 1 by a hundredth of a bucket otherwise;
 - ``IS NULL`` / ``IS NOT NULL`` (``nulltestsel``): ``null_frac`` or its complement;
+- a boolean column alone (``boolvarsel``: ``column = true``) and ``NOT`` it (1 minus that);
 - ``column = ANY (constants)`` and ``column <> ALL (constants)``, which IN and NOT IN lists
   become (``scalararraysel``): each value as one constant, the shares added as disjoint;
 - several clauses (``clauselist_selectivity_ext`` in ``clausesel.c``): the product of their
@@ -197,6 +198,11 @@ def read_value(text: str, type_name: str, const_type: str | None = None) -> Valu
         if math.isnan(number):
             raise ValueError("a NaN")
         return Value(number, number, text, type_name)
+    if type_name == "bool":
+        lowered = text.strip().lower()
+        if lowered not in ("t", "true", "f", "false"):
+            raise ValueError("a boolean that is neither true nor false")
+        return Value(lowered in ("t", "true"), None, text, type_name)
     if type_name in STRING_TYPES:
         data = text.encode("utf-8")
         key = data.rstrip(b" ") if type_name == "bpchar" else data
@@ -299,8 +305,9 @@ class Restriction:
     text: str
     column: str
     op: str
-    """``=``, ``<>``, ``<``, ``<=``, ``>``, ``>=``, ``in`` (= ANY), ``not_in`` (<> ALL), ``is_null`` or
-    ``is_not_null``, with the column on the left."""
+    """``=``, ``<>``, ``<``, ``<=``, ``>``, ``>=``, ``in`` (= ANY), ``not_in`` (<> ALL), ``is_null``,
+    ``is_not_null``, ``bool_true`` (a boolean column alone) or ``bool_false`` (NOT it), with the
+    column on the left."""
     constant: str | None = None
     const_type: str | None = None
     """The constant's cast as printed (sqlglot's name for it: ``name``, ``date``, ``float``...)."""
@@ -566,6 +573,20 @@ def histogram_selectivity(r: Restriction, column: ColumnStats, const: Value, bou
     return selec, steps, approximate
 
 
+def bool_selectivity(r: Restriction, column: ColumnStats | None, tuples: float) -> Selectivity:
+    """A boolean column alone is ``column = true`` (boolvarsel, 0.5 without statistics);
+    ``NOT column`` is 1 minus that (clause_selectivity_ext), nulls included."""
+    if column is not None and column.analyzed:
+        found = eq_selectivity(Restriction(r.text, r.column, "=", "t"), column, tuples)
+        value, steps = found.value, list(found.steps)
+    else:
+        value, steps = 0.5, [f"{r.text}: the column has no statistics, so the planner takes half the rows."]
+    if r.op == "bool_false":
+        steps.append(f"NOT takes the rest, nulls included: 1 - {_g(value)} = {_g(1.0 - value)}.")
+        value = 1.0 - value
+    return Selectivity(clamp_probability(value), steps)
+
+
 def clause_selectivity(r: Restriction, column: ColumnStats | None, tuples: float, *,
                        version: int = 160000) -> Selectivity:
     if r.op in ("is_null", "is_not_null"):
@@ -574,6 +595,8 @@ def clause_selectivity(r: Restriction, column: ColumnStats | None, tuples: float
         return eq_selectivity(r, column, tuples)
     if r.op in ("in", "not_in"):
         return array_selectivity(r, column, tuples)
+    if r.op in ("bool_true", "bool_false"):
+        return bool_selectivity(r, column, tuples)
     return ineq_selectivity(r, column, tuples, version=version)
 
 
@@ -745,6 +768,11 @@ def _restriction(clause, node) -> Restriction:
     wrapper = set(clause.wrappers)
     if clause.op_class in ("is_null", "is_not_null"):
         return Restriction(text, column, clause.op_class)
+    if clause.op_class == "boolean_column" and not wrapper:  # "flag" or "NOT flag"
+        negations = rendered.sql.count("(NOT ")
+        if negations > 1 or (negations and not rendered.sql.startswith("(NOT ")):
+            raise NotDerivable(f"{text} is not a plain boolean column")
+        return Restriction(text, column, "bool_false" if negations else "bool_true")
     if len(wrapper) > 1:
         raise NotDerivable(f"{text} wraps its column in more than one cast")
     if _QUANTIFIED.search(rendered.sql):  # x op ANY/ALL (array), however the classifier read it
@@ -868,6 +896,12 @@ def _check_types(restrictions: list[Restriction], columns: dict[str, ColumnStats
             raise NotDerivable(f"{r.text} converts its column ({printable(column.type_shown, 40)}), so the "
                                "planner has no statistics of what it compares")
         if r.op in ("is_null", "is_not_null"):
+            continue
+        if (r.op in ("bool_true", "bool_false")) != (column.type_name == "bool") and \
+                (r.op in ("bool_true", "bool_false") or r.op not in ("=", "<>", "in", "not_in")):
+            raise NotDerivable(f"{r.text}: a boolean test on a {printable(column.type_shown, 40)} column, "
+                               "or a comparison planview does not work out on a boolean")
+        if column.type_name == "bool" or r.op in ("bool_true", "bool_false"):
             continue
         if column.type_name not in NUMBER_TYPES | STRING_TYPES | TIME_TYPES:
             raise NotDerivable(f"{r.text}: values of type {printable(column.type_shown, 40)} are not "
