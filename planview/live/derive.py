@@ -75,6 +75,7 @@ _OPS = {"EQ": "=", "NEQ": "<>", "LT": "<", "LTE": "<=", "GT": ">", "GTE": ">="}
 _FLIP = {"<": ">", "<=": ">=", ">": "<", ">=": "<=", "=": "=", "<>": "<>"}
 _EPOCH = _dt.date(2000, 1, 1).toordinal()  # PostgreSQL's dates and timestamps count from 2000-01-01
 _USECS_PER_DAY = 86_400_000_000
+_ZONE = re.compile(r"([+-])(\d{2}):?(\d{2})?(?::(\d{2}))?$")
 
 
 class NotDerivable(ValueError):
@@ -167,9 +168,13 @@ def _float4(x: float) -> float:
 def _time_usecs(text: str, type_name: str) -> int:
     """Microseconds since 2000-01-01 (UTC for timestamptz), from the ISO text PostgreSQL prints."""
     text = text.strip()
-    if type_name == "date" or (len(text) == 10 and text[4] == "-"):
+    if len(text) == 10 and text[4] == "-":  # a date, whatever the column (a constant may be a timestamp)
         day = _dt.date.fromisoformat(text)
         return (day.toordinal() - _EPOCH) * _USECS_PER_DAY
+    zone = _ZONE.search(text)  # PostgreSQL writes +00 or +05:30; Python 3.11 wants +00:00
+    if zone:
+        text = text[:zone.start()] + zone.group(1) + zone.group(2) + ":" + (zone.group(3) or "00") \
+            + (":" + zone.group(4) if zone.group(4) else "")
     moment = _dt.datetime.fromisoformat(text)
     offset = moment.utcoffset() if moment.tzinfo else None
     naive = moment.replace(tzinfo=None)
@@ -325,6 +330,14 @@ class Selectivity:
     default: bool = False
 
 
+def _cross_zone(r: Restriction, column: ColumnStats | None) -> bool:
+    """A date or timestamp compared with a timestamptz (or the other way round) is converted in
+    the session's time zone, which planview does not know: the result is approximate."""
+    if column is None or column.type_name not in TIME_TYPES or r.const_type not in TIME_TYPES:
+        return False
+    return (column.type_name == "timestamptz") != (r.const_type == "timestamptz")
+
+
 def _shown_value(column: ColumnStats, text: str) -> str:
     return "(a value withheld)" if column.secret else shown(text)
 
@@ -340,7 +353,7 @@ def eq_selectivity(r: Restriction, column: ColumnStats | None, tuples: float) ->
     negate = r.op == "<>"
     nullfrac = (column.null_frac or 0.0) if column is not None and column.analyzed else 0.0
     steps: list[str] = []
-    approximate = False
+    approximate = _cross_zone(r, column)
     if column is not None and column.unique_index and tuples >= 1.0:
         selec = 1.0 / tuples
         steps.append(f"{r.text}: the unique index {printable(column.unique_index, 63)} allows one row, "
@@ -411,7 +424,7 @@ def ineq_selectivity(r: Restriction, column: ColumnStats | None, tuples: float, 
         return Selectivity(DEFAULT_INEQ_SEL, [f"{r.text}: the column has no statistics, so the planner's "
                                               f"default DEFAULT_INEQ_SEL = 1/3."], default=True)
     isgt, iseq = r.op in (">", ">="), r.op in ("<=", ">=")
-    approximate = column.type_name in STRING_TYPES and not column.collation_is_c
+    approximate = (column.type_name in STRING_TYPES and not column.collation_is_c) or _cross_zone(r, column)
     if column.type_name == "bpchar":
         approximate = True
     try:

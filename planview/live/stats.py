@@ -266,6 +266,9 @@ def table_stats(session: _Session, node, columns, *, endpoints=(), scans: dict |
         if not node.relation:
             raise ProbeError("this node names no table")
         table = f"{node.schema}.{node.relation}" if node.schema else node.relation
+    # the statistics' values as text planview reads exactly: ISO dates, shortest exact floats
+    session.cur.execute("SET LOCAL datestyle = 'ISO, YMD'")
+    session.cur.execute("SET LOCAL extra_float_digits = 3")
     relation = _relation(session, node, table, scans if scans is not None else {})
     version, block_size, default_target = session.one(SERVER_SQL)
     size, relkind, has_subclass = session.one(SIZE_SQL, (relation.oid,))
