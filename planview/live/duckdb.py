@@ -156,8 +156,11 @@ class Backend:
             raise LiveError(f"the statement failed: {failure}")
         if ended is not None:
             raise LiveError(ended)
-        if not text:
-            raise LiveError("DuckDB returned no profile")
+        if not text or '"result": "error"' in text[:80]:
+            # DuckDB answers some statements without running operators (a count(*) of a stored
+            # table from its metadata) and then profiles nothing
+            raise LiveError("DuckDB returned no profile of this statement (it printed "
+                            f"{' '.join((text or 'nothing').split())[:60]}); nothing to review")
         return text
 
     def _rollback(self) -> str | None:

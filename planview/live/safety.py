@@ -50,6 +50,12 @@ _WRITES = {exp.Insert: "INSERT", exp.Update: "UPDATE", exp.Delete: "DELETE", exp
 _QUERIES = (exp.Select, exp.SetOperation, exp.Values, exp.Subquery)
 
 
+_STATEMENTS = tuple(getattr(exp, name) for name in (
+    "Query", "DML", "DDL", "Command", "Copy", "TruncateTable", "Alter", "Drop", "Grant", "Revoke",
+    "Set", "Pragma", "Use", "Transaction", "Commit", "Rollback", "Describe", "Merge", "Create",
+    "Insert", "Update", "Delete", "Values") if hasattr(exp, name))
+
+
 class RefusedStatement(LiveError):
     """The statement was not run: it may change data, or it could not be read."""
 
@@ -79,15 +85,14 @@ def classify(sql: str, dialect: str | None, *, allow_writes: bool = False) -> Ve
             statements = [s for s in sqlglot.parse(sql, read=dialect) if s is not None]
     except (sqlglot.errors.ParseError, sqlglot.errors.TokenError) as exc:
         first = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
-        if allow_writes:
-            return Verdict(True, f"planview could not read the statement ({first}); run as given",
-                           writes=True)
-        return Verdict(False, f"planview could not read the statement, so it is not run ({first}); "
-                              f"{ALLOW_HINT} if you know it only reads")
+        return _unreadable(first, allow_writes)
     if len(statements) != 1:
         return Verdict(False, f"{len(statements)} statements in one string: give one statement"
                        if statements else "no statement given")
     tree = statements[0]
+    if not isinstance(tree, _STATEMENTS):  # sqlglot read an expression, not a statement
+        return _unreadable(f"it reads as a bare {type(tree).__name__.lower()}, not a statement",
+                           allow_writes)
     writes = _writes(tree)
     functions = _functions(tree, dialect)
     if writes is None:
@@ -98,6 +103,13 @@ def classify(sql: str, dialect: str | None, *, allow_writes: bool = False) -> Ve
         return Verdict(False, f"{writes[0]}: EXPLAIN ANALYZE cannot run it")
     hint = f" ({ALLOW_HINT})" if writes[1] else ""
     return Verdict(False, writes[0] + hint)
+
+
+def _unreadable(why: str, allow_writes: bool) -> Verdict:
+    if allow_writes:
+        return Verdict(True, f"planview could not read the statement ({why}); run as given", writes=True)
+    return Verdict(False, f"planview could not read the statement, so it is not run ({why}); "
+                          f"{ALLOW_HINT} if you know it only reads")
 
 
 def _writes(tree: exp.Expression) -> tuple[str, bool] | None:
