@@ -25,7 +25,7 @@ import pytest
 import planview
 from planview.errors import LiveError
 from planview.live import RefusedStatement, classify
-from planview.live.session import CAUTION
+from planview.live.session import CAUTION, WRITES_NOTE
 
 ROOT = Path(__file__).resolve().parent.parent
 SECRET = "Tulip-Sp4rrow-91x"
@@ -44,7 +44,7 @@ CREATE OR REPLACE VIEW bumped AS SELECT bump() AS b;
 """
 CHECKSUM_SQL = ("SELECT count(*), md5(string_agg(id::text || ':' || bench || ':' || sensor || ':' || celsius, ',' "
                 "ORDER BY id)), (SELECT count(*) FROM bump_log), "
-                "(SELECT last_value FROM reading_seq) FROM readings")
+                "(SELECT last_value::text || is_called::text FROM reading_seq) FROM readings")
 
 
 @pytest.fixture(scope="module")
@@ -183,7 +183,7 @@ def test_with_writes_allowed_a_delete_runs_and_is_rolled_back(live_db):
         plan = session.review("DELETE FROM readings WHERE bench = 3")
     scans = [n for n in plan.nodes if n.relation == "readings" and n.parent is not None]
     assert scans and scans[0].actual_rows == doomed
-    assert any("rolled back" in note for note in plan.notes)
+    assert WRITES_NOTE in plan.notes
     assert _state(live_db) == before
 
 
@@ -203,7 +203,8 @@ def test_volatile_functions(live_db):
         with pytest.raises(RefusedStatement, match="read-only transaction"):
             session.review("SELECT * FROM bumped")
     with planview.connect(live_db.dsn, allow_writes=True) as session:
-        session.review("SELECT bump(), nextval('reading_seq')")
+        plan = session.review("SELECT bump()")
+    assert WRITES_NOTE in plan.notes  # which says that a sequence advanced stays advanced
     assert _state(live_db) == before
 
 
@@ -285,7 +286,10 @@ def test_connection_failures_are_one_line_without_the_password(password_server):
     srv = password_server
     right = f"host={srv.socket_dir} port=5432 user=pv_locked dbname=postgres password={SECRET}"
     with planview.connect(right) as session:  # the password is checked: the right one works
-        assert session.review("SELECT 1").nodes
+        plan = session.review("SELECT count(*) FROM pg_catalog.pg_class")
+        for shown in (repr(session), plan.to_json(), plan.to_text(), plan.to_markdown(), plan.to_html(),
+                      repr(plan.live)):
+            assert SECRET not in shown
     wrong_pw = "Wr0ng-" + SECRET
     cases = {
         "wrong password": f"host={srv.socket_dir} port=5432 user=pv_locked dbname=postgres password={wrong_pw}",
@@ -322,6 +326,9 @@ def test_cli_live_review_gives_the_file_report(live_db, tmp_path):
     text = _cli("check", "--dsn", live_db.dsn, "--sql-file", str(tmp_path / "q.sql"), "--params", "[5]")
     assert text.returncode in (0, 1), text.stderr
     assert "EXPLAIN ANALYZE really ran this statement" in text.stdout
+    from_env = _cli("check", "--sql", sql, "--json", "--prove", env_extra={"PLANVIEW_DSN": live_db.dsn})
+    assert from_env.returncode in (0, 1), from_env.stderr
+    assert json.loads(from_env.stdout)["notes"]  # the proof lines went to stderr, the JSON stays whole
     refused = _cli("check", "--dsn", live_db.dsn, "--sql", "DELETE FROM readings")
     assert refused.returncode == 2 and "refused, not run" in refused.stderr
     slow = _cli("check", "--dsn", live_db.dsn, "--sql", "SELECT pg_sleep(10)", "--statement-timeout", "200")
@@ -433,6 +440,20 @@ def test_cli_duckdb_live_review(tmp_path):
     empty = _cli("check", "--dsn", f"duckdb:///{path}", "--sql", "SELECT count(*) FROM trays")
     assert empty.returncode in (0, 1, 2) and len(empty.stderr.strip().splitlines()) <= 1, empty.stderr
     assert empty.returncode != 2 or "returned no profile" in empty.stderr
+
+
+def test_magic_reads_the_dsn_from_the_environment(monkeypatch, capsys):
+    pytest.importorskip("IPython")
+    from IPython.testing.globalipapp import get_ipython
+
+    monkeypatch.setenv("PV_LIVE_TEST_DSN", "duckdb:")
+    shell = get_ipython()
+    shell.run_line_magic("load_ext", "planview")
+    widget = shell.run_cell_magic("planview", "--dsn PV_LIVE_TEST_DSN --no-charts",
+                                  "SELECT count(*) FROM range(1000) t(i) WHERE i % 7 = 0")
+    assert widget is not None, capsys.readouterr().out
+    assert shell.run_cell_magic("planview", "--dsn PV_NOT_SET_ANYWHERE", "SELECT 1") is None
+    assert "no notebook variable or environment variable" in capsys.readouterr().out
 
 
 def test_magic_reviews_the_cells_sql(duck, capsys):

@@ -53,7 +53,9 @@ _QUERIES = (exp.Select, exp.SetOperation, exp.Values, exp.Subquery)
 _STATEMENTS = tuple(getattr(exp, name) for name in (
     "Query", "DML", "DDL", "Command", "Copy", "TruncateTable", "Alter", "Drop", "Grant", "Revoke",
     "Set", "Pragma", "Use", "Transaction", "Commit", "Rollback", "Describe", "Merge", "Create",
-    "Insert", "Update", "Delete", "Values") if hasattr(exp, name))
+    "Insert", "Update", "Delete", "Values", "Attach", "Detach", "Install", "Summarize", "Pivot",
+    "Export", "Kill", "Analyze", "Comment", "Cache", "Uncache", "Refresh", "Show", "Lock", "Execute",
+    "Declare") if hasattr(exp, name))
 
 
 class RefusedStatement(LiveError):

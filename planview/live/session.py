@@ -29,6 +29,10 @@ LOCK_TIMEOUT_MS = 2_000
 CAUTION = ("live review: EXPLAIN ANALYZE really ran this statement (its time, I/O and locks); "
            "run it on a replica or a copy. planview ran it in a transaction it rolled back")
 
+WRITES_NOTE = ("live review: writes were allowed; the statement changed data inside the transaction, "
+               "which was rolled back. What a transaction cannot undo stays: sequences it advanced "
+               "(nextval is never rolled back), session locks, anything sent to another server")
+
 
 def connect(target, *, statement_timeout_ms: int = STATEMENT_TIMEOUT_MS,
             lock_timeout_ms: int = LOCK_TIMEOUT_MS, allow_writes: bool = False,
@@ -41,7 +45,8 @@ def connect(target, *, statement_timeout_ms: int = STATEMENT_TIMEOUT_MS,
     stops the statement, `lock_timeout_ms` stops a wait for a lock; `total_timeout_ms`
     (default four times the statement timeout) bounds the catalogue reads of the evidence
     that follow a review. `allow_writes` lets INSERT, UPDATE, DELETE and MERGE run, still in a
-    transaction that is rolled back. A connection you pass stays yours (the session does not
+    transaction that is rolled back (a sequence they advance stays advanced: nextval is never
+    rolled back). A connection you pass stays yours (the session does not
     close it); a connection string's password never appears in any message."""
     for name, value in (("statement_timeout_ms", statement_timeout_ms), ("lock_timeout_ms", lock_timeout_ms),
                         ("total_timeout_ms", total_timeout_ms)):
@@ -139,8 +144,7 @@ class Session:
                      "lock_timeout_ms": self.lock_timeout_ms}
         plan.notes.append(CAUTION)
         if verdict.writes:
-            plan.notes.append("live review: writes were allowed; the statement changed data inside the "
-                              "transaction, which was rolled back")
+            plan.notes.append(WRITES_NOTE)
         if self.backend.live_evidence:
             self._evidence(plan, derive=derive, measure=measure)
         plan._report = None
