@@ -29,8 +29,8 @@ LOCK_TIMEOUT_MS = 2_000
 CAUTION = ("live review: EXPLAIN ANALYZE really ran this statement (its time, I/O and locks); "
            "run it on a replica or a copy. planview ran it in a transaction it rolled back")
 
-WRITES_NOTE = ("live review: writes were allowed; the statement changed data inside the transaction, "
-               "which was rolled back. What a transaction cannot undo stays: sequences it advanced "
+WRITES_NOTE = ("live review: writes were allowed; whatever the statement changed inside the transaction "
+               "was rolled back. What a transaction cannot undo stays: sequences it advanced "
                "(nextval is never rolled back), session locks, anything sent to another server")
 
 
@@ -143,7 +143,7 @@ class Session:
                      "allow_writes": self.allow_writes, "statement_timeout_ms": self.statement_timeout_ms,
                      "lock_timeout_ms": self.lock_timeout_ms}
         plan.notes.append(CAUTION)
-        if verdict.writes:
+        if self.allow_writes:  # a plain SELECT may write too, through a volatile function
             plan.notes.append(WRITES_NOTE)
         if self.backend.live_evidence:
             self._evidence(plan, derive=derive, measure=measure)
