@@ -122,9 +122,9 @@ def _parser(secrets: tuple[str, ...] = ()) -> argparse.ArgumentParser:
                        help="test each cause on a live PostgreSQL, read-only (a connection string; "
                             "a password file or PGPASSWORD keeps the password off the command line)")
     live = check.add_argument_group(
-        "live review", "run the statement on a live database and review its plan. Caution: EXPLAIN "
-        "ANALYZE really runs the statement; run it on a replica or a copy. It runs in a transaction "
-        "that is always rolled back, read-only unless --allow-writes")
+        "live review", "run the statement on a live database and review its plan.\n"
+        "Caution: EXPLAIN ANALYZE really runs the statement; run it on a replica or a copy.\n"
+        "It runs in a transaction that is always rolled back, read-only unless --allow-writes.")
     live.add_argument("--dsn", metavar="URL",
                       help=f"PostgreSQL connection string or duckdb:///path (default: ${DSN_VARIABLE}); "
                            "a password file or PGPASSWORD keeps the password off the command line")
@@ -140,7 +140,8 @@ def _parser(secrets: tuple[str, ...] = ()) -> argparse.ArgumentParser:
     live.add_argument("--lock-timeout", metavar="MS", type=int, default=2_000,
                       help="stop a wait for a lock after this many ms (default 2000)")
     live.add_argument("--allow-writes", action="store_true",
-                      help="run INSERT, UPDATE, DELETE, MERGE too (still rolled back: nothing is kept)")
+                      help="run INSERT, UPDATE, DELETE, MERGE too (rolled back; a sequence they advance "
+                           "stays advanced)")
     demo = sub.add_parser("demo", help="review every bundled plan (no server needed)")
     demo.add_argument("--out", default="planview-demo", help="folder for the HTML and Markdown")
     demo.add_argument("--plans", help="folder of plans (default: the bundled plans/)")

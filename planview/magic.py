@@ -3,8 +3,8 @@ becomes a review) and ``%planview PATH`` (a plan file becomes one).
 
 ``%%planview --dsn URL|VAR|ENVVAR`` reviews the SQL in the cell on a live database instead
 (`planview.live`): the DSN as written, a notebook variable holding a connection string, a
-connection or a `planview.live.Session`, or an environment variable holding the string.
-Caution: EXPLAIN ANALYZE really runs the statement; run it on a replica or a copy.
+connection or a `planview.live.Session`, or an environment variable holding the string (which
+keeps a password out of the notebook and its history). Caution: EXPLAIN ANALYZE really runs the statement; run it on a replica or a copy.
 
 Unreadable input prints the one-line `PlanParseError` message; it never raises into the
 notebook. IPython and the widget libraries are imported only when used, so ``import

@@ -11,6 +11,7 @@ statement a parser missed is refused by the server too.
 
 from __future__ import annotations
 
+import importlib.util
 from typing import Any
 
 from ..engines.postgresql import NAME, SQL_DIALECT
@@ -51,8 +52,8 @@ _READ_ONLY_TRANSACTION = "25006"
 
 def is_connection(obj: Any) -> bool:
     """A psycopg 3 connection (its ``info.transaction_status`` is libpq's)."""
-    return type(obj).__module__.startswith("psycopg") and hasattr(getattr(obj, "info", None),
-                                                                  "transaction_status")
+    return type(obj).__module__.split(".")[0] == "psycopg" and hasattr(getattr(obj, "info", None),
+                                                                       "transaction_status")
 
 
 class Backend:
@@ -69,6 +70,8 @@ class Backend:
 
     @classmethod
     def open(cls, dsn: str, budget: Budget) -> Backend:
+        if importlib.util.find_spec("psycopg") is None:
+            raise LiveError("a live review of PostgreSQL needs psycopg 3: pip install 'planview[live]'")
         return cls(_connect(dsn, budget), dsn=dsn)
 
     @property

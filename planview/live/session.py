@@ -66,6 +66,9 @@ def connect(target, *, statement_timeout_ms: int = STATEMENT_TIMEOUT_MS,
         return Session(duck.Backend(target), **options)
     if pg.is_connection(target):
         return Session(pg.Backend(target), **options)
+    if type(target).__module__.split(".")[0] == "psycopg2":
+        raise LiveError("a psycopg2 connection cannot be used: pass a psycopg 3 connection or the "
+                        "connection string")
     raise LiveError("connect() takes a PostgreSQL connection string, a psycopg 3 connection, a DuckDB "
                     f"connection or 'duckdb:///path', not {type(target).__name__}")
 
