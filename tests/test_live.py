@@ -470,3 +470,65 @@ def test_magic_reviews_the_cells_sql(duck, capsys):
     assert shell.run_cell_magic("planview", f"--dsn {bad}", "SELECT 1") is None
     out = capsys.readouterr().out
     assert SECRET not in out and out.count("planview:") == 2  # the caution and one line
+
+
+# ---- the hooks the evidence modules plug into ---------------------------------------------
+
+
+def _module(monkeypatch, name, **functions):
+    import importlib.machinery
+    import types
+
+    module = types.ModuleType(f"planview.live.{name}")
+    module.__spec__ = importlib.machinery.ModuleSpec(module.__name__, None)
+    for key, value in functions.items():
+        setattr(module, key, value)
+    monkeypatch.setitem(sys.modules, module.__name__, module)
+    return module
+
+
+@pytest.mark.pg
+def test_review_hands_the_plan_to_derive_and_measure(live_db, monkeypatch):
+    """The session calls derive_plan, measure_plan and apply with its connection and a budget,
+    puts each derivation on its node, and turns a failure of the evidence into a note (the
+    review stands). Stand-in modules record the calls; the real ones are tested with them."""
+    calls = []
+
+    def derive_plan(plan, conn, *, budget):
+        calls.append(("derive", conn.info.transaction_status, budget.statement_ms))
+        return {0: {"steps": ["stand-in"], "estimate": 1.0}}
+
+    def measure_plan(plan, conn, *, budget):
+        calls.append(("measure", conn.info.transaction_status, budget.statement_ms))
+        raise planview.ProbeError("stopped after 5 ms (statement_timeout)")
+
+    _module(monkeypatch, "derive", derive_plan=derive_plan)
+    _module(monkeypatch, "measure", measure_plan=measure_plan, apply=lambda plan, measured: None)
+    with planview.connect(live_db.dsn, statement_timeout_ms=5000) as session:
+        plan = session.review("SELECT count(*) FROM readings WHERE bench = 1")
+        bare = session.review("SELECT 1", derive=False, measure=False)
+    assert calls[:2] == [("derive", 0, 5000), ("measure", 0, 5000)] and len(calls) == 2
+    assert plan.report()["nodes"][0]["derivation"] == {"steps": ["stand-in"], "estimate": 1.0}
+    assert any(n.startswith("live review: no measured evidence: stopped after 5 ms") for n in plan.notes)
+    assert bare.nodes[0].derivation is None
+
+
+def test_prove_needs_a_reviewed_plan_and_passes_the_statement(duck, monkeypatch):
+    con, _ = duck
+    seen = {}
+
+    def prove_finding(plan, finding, conn, sql, params=None, *, budget, allow_writes=False):
+        seen.update(sql=sql, params=params, allow_writes=allow_writes, node=finding.node)
+        return {"fix": "stand-in", "est_before": 1, "est_after": 2, "actual": 2, "plan_changed": False,
+                "cost_before": 1.0, "cost_after": 1.0}
+
+    session = planview.connect(con)
+    with pytest.raises(LiveError, match="needs a plan"):
+        session.prove(0)
+    plan = session.review("SELECT count(*) FROM trips WHERE bike_id = ?", [7])
+    assert plan.findings  # the planted skew (tests/duckdb_scenario.py)
+    _module(monkeypatch, "proof", prove_finding=prove_finding)
+    result = session.prove(plan.findings[0])
+    assert seen == {"sql": "SELECT count(*) FROM trips WHERE bike_id = ?", "params": [7],
+                    "allow_writes": False, "node": plan.findings[0].node}
+    assert plan.report()["findings"][0]["proof"] == result
