@@ -255,38 +255,34 @@ def _live_review(args):
     return session, plan
 
 
-def _proof_line(finding, proof) -> str:
-    from .words import rows
-
-    if not isinstance(proof, dict):
-        return f"proof #{finding.node}: not proven"
-    said = proof.get("text") or proof.get("says")
-    if said:
-        return f"proof #{finding.node}: {said}"
-    if proof.get("est_after") is None:
-        return f"proof #{finding.node}: not proven" + (f": {proof['reason']}" if proof.get("reason") else "")
-    line = (f"proof #{finding.node}: with this fix the estimate would be {rows(proof['est_after'])} instead "
-            f"of {rows(proof.get('est_before'))}; {rows(proof.get('actual'))} were found")
-    if proof.get("plan_changed"):
-        line += "; the plan changes"
-    return line + " (tried in a transaction that was rolled back; nothing was kept)"
-
-
 def _prove_all(args, plan, session) -> list[str]:
     """Each origin's fix tried and rolled back (before the report is written, so the JSON holds
-    the proofs); what each will do and lock is said first, on stderr with --json."""
+    the proofs); what each will do and lock is said first, on stderr with --json. The proof's
+    words are the report's (`planview.words`); a proof that could not run says why."""
     secrets = tuple(getattr(args, "secrets", ())) + ((args.dsn,) if args.dsn else ())
     ahead = sys.stderr if args.json else sys.stdout
-    lines = []
+    failures: dict[int, str] = {}
     for finding in plan.findings:
         if finding.fix:
             ahead.write(redact(f"proof #{finding.node}: trying {' '.join(finding.fix.split())[:200]}"
                                + (f" ({finding.caution})" if finding.caution else ""), *secrets) + "\n")
             ahead.flush()
         try:
-            line = _proof_line(finding, session.prove(finding, plan))
+            session.prove(finding, plan)
         except PlanviewError as exc:
-            line = f"proof #{finding.node}: not proven: {exc}"
+            failures[finding.node] = str(exc)
+    said = {record["node"]: record["text"].get("proof") for record in plan.report()["findings"]}
+    lines = []
+    for finding in plan.findings:
+        if finding.node in failures:
+            line = f"proof #{finding.node}: not proven: {failures[finding.node]}"
+        elif said.get(finding.node):
+            line = f"proof #{finding.node}: {said[finding.node]}"
+        elif finding.proof is not None:
+            line = (f"proof #{finding.node}: tried in a transaction that was rolled back; the figures "
+                    "are the JSON report's proof")
+        else:
+            line = f"proof #{finding.node}: not proven"
         lines.append(redact(line, *secrets))
     return lines
 
