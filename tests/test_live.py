@@ -101,6 +101,8 @@ def test_reads_pass_the_classifier(sql):
     ("CALL refresh_all()", "CALL"),
     ("DO $$ BEGIN DELETE FROM t; END $$", "DO"),
     ("SELEC oops", "could not read"),
+    ("SELECT " + "(" * 3000 + "1" + ")" * 3000, "nested too deeply"),
+    ("-- a comment alone", "no statement"),
 ])
 def test_writes_and_the_unreadable_are_refused(sql, word):
     verdict = classify(sql, "postgres")
@@ -326,6 +328,8 @@ def test_cli_live_review_gives_the_file_report(live_db, tmp_path):
     text = _cli("check", "--dsn", live_db.dsn, "--sql-file", str(tmp_path / "q.sql"), "--params", "[5]")
     assert text.returncode in (0, 1), text.stderr
     assert "EXPLAIN ANALYZE really ran this statement" in text.stdout
+    deleted = _cli("check", "--dsn", live_db.dsn, "--sql", "DELETE FROM readings WHERE bench < 20", "--prove")
+    assert deleted.returncode == 2 and "refused, not run" in deleted.stderr
     from_env = _cli("check", "--sql", sql, "--json", "--prove", env_extra={"PLANVIEW_DSN": live_db.dsn})
     assert from_env.returncode in (0, 1), from_env.stderr
     assert json.loads(from_env.stdout)["notes"]  # the proof lines went to stderr, the JSON stays whole

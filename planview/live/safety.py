@@ -88,6 +88,8 @@ def classify(sql: str, dialect: str | None, *, allow_writes: bool = False) -> Ve
     except (sqlglot.errors.ParseError, sqlglot.errors.TokenError) as exc:
         first = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
         return _unreadable(first, allow_writes)
+    except RecursionError:
+        return _unreadable("nested too deeply to read", allow_writes)
     if len(statements) != 1:
         return Verdict(False, f"{len(statements)} statements in one string: give one statement"
                        if statements else "no statement given")
