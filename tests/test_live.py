@@ -536,3 +536,27 @@ def test_prove_needs_a_reviewed_plan_and_passes_the_statement(duck, monkeypatch)
     assert seen == {"sql": "SELECT count(*) FROM trips WHERE bike_id = ?", "params": [7],
                     "allow_writes": False, "node": plan.findings[0].node}
     assert plan.report()["findings"][0]["proof"] == result
+
+
+@pytest.mark.pg
+def test_settings_that_differ_are_in_the_plan(live_db):
+    """EXPLAIN's SETTINGS option (PostgreSQL 12 and later; manual, EXPLAIN) lists the planner
+    settings that differ from their defaults: the session's own work_mem reaches the plan."""
+    with live_db.connect(autocommit=True) as conn:
+        conn.execute("SET work_mem = '7MB'")
+        plan = planview.connect(conn).review("SELECT * FROM readings ORDER BY celsius")
+    assert '"work_mem": "7MB"' in plan.source
+
+
+def test_settings_is_left_out_before_postgresql_12():
+    from planview.live.postgresql import Backend
+
+    class Info:
+        server_version = 110022
+
+    class Conn:
+        info = Info()
+
+    assert Backend(Conn()).explain_options() == "ANALYZE, BUFFERS, VERBOSE, FORMAT JSON"
+    Info.server_version = 120000
+    assert "SETTINGS" in Backend(Conn()).explain_options()
