@@ -517,8 +517,12 @@ def test_review_hands_the_plan_to_derive_and_measure(live_db, monkeypatch):
     assert bare.nodes[0].derivation is None
 
 
-def test_prove_needs_a_reviewed_plan_and_passes_the_statement(duck, monkeypatch):
+@pytest.mark.pg
+def test_prove_needs_a_reviewed_plan_and_passes_the_statement(live_db, duck, monkeypatch):
     con, _ = duck
+    with pytest.raises(LiveError, match="needs PostgreSQL"):
+        duck_session = planview.connect(con)
+        duck_session.prove(duck_session.review("SELECT count(*) FROM trips WHERE bike_id = 7").findings[0])
     seen = {}
 
     def prove_finding(plan, finding, conn, sql, params=None, *, budget, allow_writes=False):
@@ -526,15 +530,16 @@ def test_prove_needs_a_reviewed_plan_and_passes_the_statement(duck, monkeypatch)
         return {"fix": "stand-in", "est_before": 1, "est_after": 2, "actual": 2, "plan_changed": False,
                 "cost_before": 1.0, "cost_after": 1.0}
 
-    session = planview.connect(con)
+    session = planview.connect(live_db.dsn)
     with pytest.raises(LiveError, match="needs a plan"):
         session.prove(0)
-    plan = session.review("SELECT count(*) FROM trips WHERE bike_id = ?", [7])
-    assert plan.findings  # the planted skew (tests/duckdb_scenario.py)
+    sql = "SELECT * FROM readings WHERE bench = %s AND sensor = %s"
+    plan = session.review(sql, [5, 5], measure=False)
+    assert plan.findings  # bench and sensor are one column twice (SETUP)
     _module(monkeypatch, "proof", prove_finding=prove_finding)
     result = session.prove(plan.findings[0])
-    assert seen == {"sql": "SELECT count(*) FROM trips WHERE bike_id = ?", "params": [7],
-                    "allow_writes": False, "node": plan.findings[0].node}
+    session.close()
+    assert seen == {"sql": sql, "params": [5, 5], "allow_writes": False, "node": plan.findings[0].node}
     assert plan.report()["findings"][0]["proof"] == result
 
 

@@ -79,7 +79,10 @@ class Backend:
         return int(self.conn.info.server_version)
 
     def describe(self) -> str:
-        version = self.version_num
+        try:
+            version = self.version_num
+        except Exception:  # a closed connection
+            return "PostgreSQL"
         return f"PostgreSQL {version // 10000}.{version % 10000}" if version >= 100000 else \
             f"PostgreSQL {version // 10000}.{version // 100 % 100}"
 

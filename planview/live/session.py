@@ -192,6 +192,9 @@ class Session:
             if found is None:
                 raise LiveError(f"node #{finding} is not an origin of this plan")
             finding = found
+        if not self.backend.live_evidence:
+            raise LiveError(f"proving a fix needs PostgreSQL: {self.backend.describe()} keeps no "
+                            "statistics a fix could change")
         prove_finding = _hook("proof", "prove_finding")
         if prove_finding is None:
             raise LiveError("proving a fix is not available in this version of planview "
