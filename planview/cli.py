@@ -3,8 +3,13 @@
 Exit codes of ``check``: 0 no origin at or above ``--fail-at``; 1 at least one (for CI
 gating); 2 unreadable input, with a one-line message on stderr and no traceback; 3 an
 internal error (a bug): one line, and its traceback when ``PLANVIEW_DEBUG`` is set. Every line on stderr, and every probe
-line, has the passwords of the ``--probe`` connection string (and anything shaped like a
-credential) masked.
+line, has the passwords of the ``--probe`` and ``--dsn`` connection strings (and of
+``PLANVIEW_DSN``, and anything shaped like a credential) masked.
+
+``planview check --dsn URL --sql "SELECT ..."`` reviews a statement on a live database (the
+DSN may come from ``PLANVIEW_DSN``). Caution: EXPLAIN ANALYZE really runs the statement; run
+it on a replica or a copy. A statement that may change data is refused unless
+``--allow-writes``, and every run is rolled back.
 """
 
 from __future__ import annotations
@@ -29,13 +34,17 @@ class _Parser(argparse.ArgumentParser):
         self.exit(2, f"{self.prog}: error: {redact(message, *self.secrets)}\n")
 
 
+DSN_VARIABLE = "PLANVIEW_DSN"
+
+
 def _probe_arguments(argv: list[str]) -> tuple[str, ...]:
-    """The connection strings given to --probe (or an abbreviation argparse accepts), found
-    before argparse, which may fail, runs."""
-    found = []
+    """The connection strings given to --probe or --dsn (or an abbreviation argparse accepts),
+    and PLANVIEW_DSN's, found before argparse, which may fail, runs."""
+    found = [os.environ[DSN_VARIABLE]] if os.environ.get(DSN_VARIABLE) else []
     for i, arg in enumerate(argv):
         option, equals, value = arg.partition("=")
-        if len(option) < 4 or not "--probe".startswith(option):
+        if not ((len(option) >= 4 and "--probe".startswith(option))
+                or (len(option) >= 3 and "--dsn".startswith(option))):
             continue
         if equals:
             found.append(value)
@@ -97,8 +106,9 @@ def _parser(secrets: tuple[str, ...] = ()) -> argparse.ArgumentParser:
     sub = parser.add_subparsers(dest="command", required=True)
     check = sub.add_parser("check", help="check one plan (a path, or - for standard input) or a folder of plans",
                            epilog=EXIT_CODES, formatter_class=argparse.RawDescriptionHelpFormatter)
-    check.add_argument("path", help="a plan file, - to read standard input, or a folder: every plan in it "
-                                    "gets a review page and one line here, and --out gets index.html")
+    check.add_argument("path", nargs="?",
+                       help="a plan file, - to read standard input, or a folder: every plan in it gets a "
+                            "review page and one line here, and --out gets index.html (leave out with --dsn)")
     check.add_argument("--engine", type=_engine_name,
                        help=f"force the engine: {', '.join(_engine_names())} (default: detected)")
     check.add_argument("--format", dest="fmt", type=_format_name,
@@ -119,6 +129,27 @@ def _parser(secrets: tuple[str, ...] = ()) -> argparse.ArgumentParser:
     check.add_argument("--probe", metavar="DSN",
                        help="test each cause on a live PostgreSQL, read-only (a connection string; "
                             "a password file or PGPASSWORD keeps the password off the command line)")
+    live = check.add_argument_group(
+        "live review", "run the statement on a live database and review its plan.\n"
+        "Caution: EXPLAIN ANALYZE really runs the statement; run it on a replica or a copy.\n"
+        "It runs in a transaction that is always rolled back, read-only unless --allow-writes.")
+    live.add_argument("--dsn", metavar="URL",
+                      help=f"PostgreSQL connection string or duckdb:///path (default: ${DSN_VARIABLE}); "
+                           "a password file or PGPASSWORD keeps the password off the command line")
+    live.add_argument("--sql", help="the statement to review")
+    live.add_argument("--sql-file", metavar="FILE", help="read the statement from this file")
+    live.add_argument("--params", metavar="JSON",
+                      help="the statement's parameters: a JSON list for %%s, an object for %%(name)s")
+    live.add_argument("--prove", action="store_true",
+                      help="try each origin's fix in a transaction that is rolled back and plan again "
+                           "(plain EXPLAIN); the fix takes locks while it runs")
+    live.add_argument("--statement-timeout", metavar="MS", type=int, default=60_000,
+                      help="stop the statement after this many ms (default 60000)")
+    live.add_argument("--lock-timeout", metavar="MS", type=int, default=2_000,
+                      help="stop a wait for a lock after this many ms (default 2000)")
+    live.add_argument("--allow-writes", action="store_true",
+                      help="run INSERT, UPDATE, DELETE, MERGE too (rolled back; a sequence they advance "
+                           "stays advanced)")
     demo = sub.add_parser("demo", help="review every bundled plan (no server needed)")
     demo.add_argument("--out", default="planview-demo", help="folder for the HTML and Markdown")
     demo.add_argument("--plans", help="folder of plans (default: the bundled plans/)")
@@ -135,6 +166,7 @@ def main(argv: list[str] | None = None) -> int:
     argv = sys.argv[1:] if argv is None else list(argv)
     secrets = _probe_arguments(argv)
     args = _parser(secrets).parse_args(argv)
+    args.secrets = secrets
     try:
         if args.command == "check":
             return _check(args)
@@ -167,11 +199,108 @@ def _check(args) -> int:
         raise PlanviewError(f"--format {args.fmt} is not a {args.engine} format; valid values with "
                             f"--engine {args.engine}: {', '.join(engines.get(args.engine).FORMATS)}")
 
-    if str(args.path) != "-" and Path(args.path).is_dir():
-        return _check_folder(args)
-    if getattr(args, "out", None):
-        raise PlanviewError("--out is for a folder of plans; for one plan use --html OUT or --markdown OUT")
-    plan = load(Path(args.path), engine=args.engine, fmt=args.fmt, threshold=args.threshold)
+    session = None
+    try:
+        if _live_wanted(args):
+            session, plan = _live_review(args)
+        else:
+            if args.prove:
+                raise PlanviewError("--prove needs a live review: give --dsn (or PLANVIEW_DSN) and --sql")
+            if not args.path:
+                raise PlanviewError("give a plan file (or - for standard input), or --dsn and --sql for "
+                                    "a live review")
+            if str(args.path) != "-" and Path(args.path).is_dir():
+                return _check_folder(args)
+            if getattr(args, "out", None):
+                raise PlanviewError("--out is for a folder of plans; for one plan use --html OUT or --markdown OUT")
+            plan = load(Path(args.path), engine=args.engine, fmt=args.fmt, threshold=args.threshold)
+        return _report(args, plan, session)
+    finally:
+        if session is not None:
+            session.close()
+
+
+def _live_wanted(args) -> bool:
+    live_options = (args.sql, args.sql_file, args.params, args.allow_writes)
+    if args.dsn or (any(live_options) and os.environ.get(DSN_VARIABLE)):
+        return True
+    if any(live_options):
+        raise PlanviewError(f"--sql, --sql-file, --params and --allow-writes need --dsn (or {DSN_VARIABLE})")
+    return False
+
+
+def _live_review(args):
+    import json
+
+    from .live import connect
+
+    if args.path:
+        raise PlanviewError("give a plan file or --dsn, not both")
+    if bool(args.sql) == bool(args.sql_file):
+        raise PlanviewError("a live review needs the statement: --sql TEXT or --sql-file FILE (one of them)")
+    if args.sql_file:
+        try:
+            sql = Path(args.sql_file).read_text(encoding="utf-8", errors="replace")[:1_000_000]
+        except OSError as exc:
+            raise PlanviewError(f"--sql-file: cannot read {args.sql_file}: {exc.strerror}") from None
+    else:
+        sql = args.sql
+    params = None
+    if args.params:
+        try:
+            params = json.loads(args.params)
+        except ValueError as exc:
+            raise PlanviewError(f"--params: not JSON ({exc.msg} at character {exc.pos})") from None
+        if not isinstance(params, (list, dict)):
+            raise PlanviewError("--params: give a JSON list (for %s) or object (for %(name)s)")
+        params = tuple(params) if isinstance(params, list) else params
+    for option, value in (("--statement-timeout", args.statement_timeout), ("--lock-timeout", args.lock_timeout)):
+        if value < 1:
+            raise PlanviewError(f"{option}: give a number of milliseconds of at least 1, got {value}")
+    session = connect(args.dsn or os.environ[DSN_VARIABLE], statement_timeout_ms=args.statement_timeout,
+                      lock_timeout_ms=args.lock_timeout, allow_writes=args.allow_writes)
+    try:
+        plan = session.review(sql, params, threshold=args.threshold)
+    except BaseException:
+        session.close()
+        raise
+    return session, plan
+
+
+def _prove_all(args, plan, session) -> list[str]:
+    """Each origin's fix tried and rolled back (before the report is written, so the JSON holds
+    the proofs); what each will do and lock is said first, on stderr with --json. The proof's
+    words are the report's (`planview.words`); a proof that could not run says why."""
+    secrets = tuple(getattr(args, "secrets", ())) + ((args.dsn,) if args.dsn else ())
+    ahead = sys.stderr if args.json else sys.stdout
+    failures: dict[int, str] = {}
+    for finding in plan.findings:
+        if finding.fix:
+            ahead.write(redact(f"proof #{finding.node}: trying {' '.join(finding.fix.split())[:200]}"
+                               + (f" ({finding.caution})" if finding.caution else ""), *secrets) + "\n")
+            ahead.flush()
+        try:
+            session.prove(finding, plan)
+        except PlanviewError as exc:
+            failures[finding.node] = str(exc)
+    said = {record["node"]: record["text"].get("proof") for record in plan.report()["findings"]}
+    lines = []
+    for finding in plan.findings:
+        if finding.node in failures:
+            line = f"proof #{finding.node}: not proven: {failures[finding.node]}"
+        elif said.get(finding.node):
+            line = f"proof #{finding.node}: {said[finding.node]}"
+        elif finding.proof is not None:
+            line = (f"proof #{finding.node}: tried in a transaction that was rolled back; the figures "
+                    "are the JSON report's proof")
+        else:
+            line = f"proof #{finding.node}: not proven"
+        lines.append(redact(line, *secrets))
+    return lines
+
+
+def _report(args, plan, session) -> int:
+    proofs = _prove_all(args, plan, session) if args.prove else []
     if getattr(args, "query", None):
         try:
             query = Path(args.query).read_text(encoding="utf-8", errors="replace")[:1_000_000]
@@ -182,6 +311,8 @@ def _check(args) -> int:
         sys.stdout.write(plan.to_json() + "\n")
     else:
         sys.stdout.write(plan.to_text(width=args.width, color=sys.stdout.isatty()))
+    for line in proofs:
+        (sys.stderr if args.json else sys.stdout).write(line + "\n")
     if args.probe:
         from .probe import probe
 
