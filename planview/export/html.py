@@ -67,15 +67,16 @@ def compact_report(report: dict[str, Any]) -> dict[str, Any]:
 
 
 def _json_for_script(value: Any) -> str:
-    """JSON that cannot end its <script> element or open a comment inside it."""
+    """JSON that cannot end its <script> element or open a comment inside it; "/" as "\\/"
+    (a JSON escape), so an address in the pasted plan's text reads as data, not as a link."""
     text = json.dumps(value, ensure_ascii=False, allow_nan=False, separators=(",", ":"))
-    return text.replace("<", "\\u003c").replace(">", "\\u003e").replace("&", "\\u0026") \
+    return text.replace("/", "\\/").replace("<", "\\u003c").replace(">", "\\u003e").replace("&", "\\u0026") \
         .replace("\u2028", "\\u2028").replace("\u2029", "\\u2029")
 
 
 _BOOT = """
 const planviewData = JSON.parse(document.getElementById("planview-data").textContent);
-const planviewState = { report: planviewData.report, selected: null, chart_mode: "svg", can_save: false };
+const planviewState = { report: planviewData.report, selected: topOrigin(planviewData.report), chart_mode: "svg", can_save: false };
 const planviewAsked = /^#node-(\\d+)$/.exec(window.location.hash || "");
 if (planviewAsked) planviewState.selected = Number(planviewAsked[1]);
 const planviewModel = localModel(planviewState);
