@@ -9,6 +9,7 @@ example_notebooks/screenshots/.
 from __future__ import annotations
 
 import json
+import math
 import os
 import re
 import shutil
@@ -223,8 +224,7 @@ def test_export_page_walks_origins_by_rank_with_buttons_and_keys(browser, tmp_pa
     assert len(ranked) >= 2
     with exported_page(browser, plan, tmp_path / "multi.html") as (page, _, _, _):
         selected = lambda: page.locator(".pv-row.pv-selected").get_attribute("data-id")  # noqa: E731
-        page.locator(".pv-next").click()
-        assert selected() == str(ranked[0])
+        assert selected() == str(ranked[0])  # the page opens on the rank-1 origin
         page.locator(".pv-next").click()
         assert selected() == str(ranked[1])
         page.locator(".pv-prev").click()
@@ -248,9 +248,8 @@ def test_export_page_walks_origins_by_rank_with_buttons_and_keys(browser, tmp_pa
         assert page.locator(".pv-tree .pv-row[data-id]").count() == len(by_id)
 
 
-def test_large_export_opens_with_only_the_paths_to_origins(browser, tmp_path):
-    """All captured PG 16 JSON plans in one paste (one statement each): a plan too big to
-    open whole, so it opens folded to the origins."""
+def _all_pg16_plans():
+    """All captured PG 16 JSON plans in one paste (one statement each)."""
     statements = []
     decoder = json.JSONDecoder()
     for path in sorted(filter(is_capture, PLANS.glob("*.json"))):
@@ -258,7 +257,13 @@ def test_large_export_opens_with_only_the_paths_to_origins(browser, tmp_path):
         while text[at:].strip():  # a file may hold one JSON document per statement
             value, at = decoder.raw_decode(text, len(text) - len(text[at:].lstrip()))
             statements.extend(value)
-    plan = planview.load(json.dumps(statements))
+    return planview.load(json.dumps(statements))
+
+
+def test_large_export_opens_with_only_the_paths_to_origins(browser, tmp_path):
+    """All captured PG 16 JSON plans in one paste: a plan too big to open whole, so it opens
+    folded to the origins."""
+    plan = _all_pg16_plans()
     report = plan.report()
     assert len(report["nodes"]) > 80 and report["findings"]
     with exported_page(browser, plan, tmp_path / "all.html") as (page, _, _, _):
@@ -273,6 +278,287 @@ def test_large_export_opens_with_only_the_paths_to_origins(browser, tmp_path):
         for node_id in shown - roots:
             assert by_id[node_id]["parent"] in on_path
         assert page.locator(".pv-folded").count() > 0
+
+
+# -- the origins list, search, the detail panel, time, contrast (exported page) ------------------
+
+TPCH = REPO / "plans" / "tpch" / "pg16"
+Q22 = TPCH / "q22.serial.txt"  # TPC-H Q22 on PostgreSQL 16 (plans/capture_tpch.py): 2 origins
+
+
+def test_export_page_opens_on_the_top_origin_and_the_origins_list_selects(browser, tmp_path):
+    """Source: plans/tpch/pg16/q22.serial.txt. The list has one button per origin in rank
+    order, each with its rank, node id, cause words and error as the report says them."""
+    plan = planview.load(Q22)
+    report = plan.report()
+    ranked = sorted(report["findings"], key=lambda f: f["rank"])
+    assert len(ranked) >= 2
+    with exported_page(browser, plan, tmp_path / "q22.html") as (page, _, _, errors):
+        items = page.locator(".pv-origins button.pv-origin-item")
+        assert items.count() == len(ranked)
+        assert page.locator(".pv-row.pv-selected").get_attribute("data-id") == str(ranked[0]["node"])
+        assert items.first.get_attribute("aria-pressed") == "true"
+        assert page.evaluate("location.hash") == f"#node-{ranked[0]['node']}"
+        for i, finding in enumerate(ranked):
+            item = items.nth(i)
+            node = report["nodes"][finding["node"]]
+            assert item.get_attribute("data-node") == str(finding["node"])
+            assert item.locator(".pv-o-rank").inner_text() == str(finding["rank"])
+            assert item.locator(".pv-o-id").inner_text() == node["text"]["id"]
+            assert item.locator(".pv-o-cause").inner_text() == finding["text"]["cause"]
+            assert item.locator(".pv-o-added").inner_text() == node["text"]["added"]
+            assert "ms" in item.locator(".pv-o-impact").inner_text()
+        items.nth(1).click()
+        assert page.locator(".pv-row.pv-selected").get_attribute("data-id") == str(ranked[1]["node"])
+        assert items.nth(1).get_attribute("aria-pressed") == "true"
+        assert items.first.get_attribute("aria-pressed") == "false"
+        assert page.locator(".pv-detail-title").inner_text().startswith(f"#{ranked[1]['node']} ")
+        assert "origin 2 of 2" in page.locator(".pv-position").inner_text()
+        assert not errors
+
+
+def _search_fields(node):
+    """The fields the find box reads (review.js searchText), from the report's node."""
+    fields = [node.get(k) for k in ("label", "operator", "relation", "alias", "schema", "index", "cte_name",
+                                    "subplan_name", "function_name")]
+    fields += [c.get("text") for c in node.get("conditions") or []]
+    return " ".join(str(f) for f in fields if f).lower()
+
+
+def test_export_page_finds_as_you_type_with_a_count(browser, tmp_path):
+    """Source: plans/tpch/pg16/q22.serial.txt. Each keystroke updates the count and the
+    highlighted rows; Enter and Shift+Enter step through the matches in tree order; "#5"
+    finds node 5 only."""
+    plan = planview.load(Q22)
+    report = plan.report()
+    word = "customer"
+    with exported_page(browser, plan, tmp_path / "find.html") as (page, _, _, errors):
+        box = page.locator(".pv-find")
+        box.click()
+        counts = []
+        for i in range(1, len(word) + 1):
+            page.keyboard.type(word[i - 1])
+            expected = [n["id"] for n in report["nodes"] if word[:i] in _search_fields(n)]
+            shown = page.locator(".pv-find-count").inner_text()
+            counts.append(shown)
+            assert shown == (f"{len(expected)} match" + ("" if len(expected) == 1 else "es") if expected else "no match")
+            assert _ids(page, ".pv-tree .pv-row.pv-match") == set(expected)
+        expected = [n["id"] for n in report["nodes"] if word in _search_fields(n)]
+        assert len(expected) >= 2, counts
+        order = [int(x) for x in page.locator(".pv-tree .pv-row[data-id]").evaluate_all(
+            "rows => rows.map(r => r.getAttribute('data-id'))")]
+        in_order = [i for i in order if i in expected]
+        selected = lambda: int(page.locator(".pv-row.pv-selected").get_attribute("data-id"))  # noqa: E731
+        start = order.index(selected())
+        following = [i for i in in_order if order.index(i) > start] + in_order
+        page.keyboard.press("Enter")
+        assert selected() == following[0]
+        page.keyboard.press("Enter")
+        assert selected() == following[1]
+        page.keyboard.press("Shift+Enter")
+        assert selected() == following[0]
+        box.fill("#5")
+        assert page.locator(".pv-find-count").inner_text() == "1 match"
+        assert _ids(page, ".pv-tree .pv-row.pv-match") == {5}
+        box.fill("no such operator anywhere")
+        assert page.locator(".pv-find-count").inner_text() == "no match"
+        assert page.locator(".pv-tree .pv-row.pv-match").count() == 0
+        assert not errors
+
+
+def _ids(page, selector):
+    return {int(x) for x in page.locator(selector).evaluate_all("rows => rows.map(r => r.getAttribute('data-id'))")}
+
+
+NUMBER_KEYS = {"est rows", "actual rows", "starts", "est rows per start", "actual rows per start", "q error",
+               "est total", "actual total"}
+
+
+def _check_detail_has_no_repeats(page, finding):
+    detail = page.locator(".pv-detail")
+    text = detail.inner_text()
+    # the summary once (the cause line says the cause; the summary the rest of it)
+    body = finding["summary"].split(": ", 1)[-1].strip().rstrip(".")
+    assert text.lower().count(body.lower()) == 1, body
+    # no evidence row repeats the numbers table, none is empty
+    keys = detail.locator(".pv-evidence th").all_inner_texts()
+    values = detail.locator(".pv-evidence td").all_inner_texts()
+    assert not (set(keys) & NUMBER_KEYS), keys
+    assert all(v.strip() for v in values), list(zip(keys, values))
+    for table in (".pv-numbers", ".pv-evidence"):
+        for value in detail.locator(f"{table} td").all_inner_texts():
+            assert value.strip() not in ("", "–", "None", "null", "[]"), (table, value)
+    assert not re.search(r"(?m)^\s*\w[\w ]*:\s*$", text), "a field with nothing after it"
+    # each sentence of the status line, the cause and the evidence is said once (the fix's SQL
+    # may repeat a line of its own)
+    if detail.locator(".pv-fix").count():
+        text = text.replace(detail.locator(".pv-fix").inner_text(), "")
+    sentences = [s.strip() for s in re.split(r"(?<=[.!?])\s+|\n", text) if len(s.strip()) > 30]
+    repeated = {s for s in sentences if sentences.count(s) > 1}
+    assert not repeated, repeated
+
+
+def test_export_page_detail_reads_in_order_without_repeats_and_shows_the_fix(browser, tmp_path):
+    """Source: plans/tpch/pg16/q22.serial.txt (the origin with a fix) and
+    plans/postgresql/pg16/join_correlated.json (an origin at a two-table join): status, then
+    cause, fix and caution, in the window with no scrolling; then the numbers, conditions and
+    evidence, none of it repeated or empty; a join names no single table."""
+    plan = planview.load(Q22)
+    report = plan.report()
+    finding = next(f for f in report["findings"] if f["fix"])
+    with exported_page(browser, plan, tmp_path / "detail.html") as (page, _, _, errors):
+        page.locator(f'.pv-origin-item[data-node="{finding["node"]}"]').click()
+        detail = page.locator(".pv-detail")
+        _check_detail_has_no_repeats(page, finding)
+        order = detail.evaluate("""d => [...d.querySelectorAll(
+            '.pv-status, .pv-cause, .pv-fix, .pv-caution, .pv-numbers, .pv-conditions, .pv-evidence-lines, .pv-evidence, .pv-derived')]
+            .map(e => e.className.split(' ')[0])""")
+        wanted = ["pv-status", "pv-cause", "pv-fix", "pv-caution", "pv-numbers", "pv-conditions", "pv-evidence-lines",
+                  "pv-evidence", "pv-derived"]
+        assert [c for c in wanted if c in order] == [c for c in order if c in wanted]
+        assert order[:4] == ["pv-status", "pv-cause", "pv-fix", "pv-caution"], order
+        # the fix and the top of its caution are in the window and in the panel's view, unscrolled
+        page.evaluate("window.scrollTo(0, 0)")
+        assert detail.evaluate("d => d.scrollTop") == 0
+        height = page.viewport_size["height"]
+        pane = detail.bounding_box()
+        fix = detail.locator(".pv-fix").bounding_box()
+        caution = detail.locator(".pv-caution").bounding_box()
+        assert fix["y"] + fix["height"] <= min(height, pane["y"] + pane["height"]), (fix, pane, height)
+        assert caution["y"] + 20 <= min(height, pane["y"] + pane["height"]), (caution, pane, height)
+        assert not errors
+    join_plan = planview.load(PLANS / "join_correlated.json")
+    join_report = join_plan.report()
+    join = next(f for f in join_report["findings"] if join_report["nodes"][f["node"]]["own_rule"] == "join")
+    assert join["evidence"].get("table"), "the captured join's evidence names one table: the case to hide"
+    with exported_page(browser, join_plan, tmp_path / "join.html") as (page, _, _, errors):
+        page.locator(f'.pv-origin-item[data-node="{join["node"]}"]').click()
+        _check_detail_has_no_repeats(page, join)
+        keys = page.locator(".pv-detail .pv-evidence th").all_inner_texts()
+        assert "table" not in keys, keys
+        assert not errors
+
+
+def test_export_page_shows_statements_one_by_one_and_the_plan_as_pasted(browser, tmp_path):
+    """Source: plans/postgresql/pg16/multi.json (two statements captured from PostgreSQL 16):
+    a header row per statement with its own execution time; the header's time is their sum;
+    the "as pasted" block holds the file's text exactly."""
+    from planview import words
+
+    path = PLANS / "multi.json"
+    plan = planview.load(path)
+    statements = plan.report()["statements"]
+    assert len(statements) == 2
+    with exported_page(browser, plan, tmp_path / "multi.html") as (page, _, _, errors):
+        heads = page.locator(".pv-tree .pv-statement-row")
+        assert heads.count() == 2
+        for i, st in enumerate(statements):
+            assert f"ran {words.ms(st['execution_ms'])}" in heads.nth(i).inner_text()
+            # the header row sits right above its statement's root row
+            after = heads.nth(i).evaluate("h => h.nextElementSibling.getAttribute('data-id')")
+            assert after == str(st["root"])
+        total = sum(st["execution_ms"] for st in statements)
+        assert f"ran {words.ms(total)}" in page.locator(".pv-head").inner_text()
+        block = page.locator(".pv-source")
+        block.locator("summary").click()
+        assert block.locator("pre").evaluate("p => p.textContent") == path.read_text(encoding="utf-8")
+        assert not errors
+
+
+def test_export_page_own_time_column_has_the_reports_figures(browser, tmp_path):
+    """Source: plans/tpch/pg16/q05.serial.txt (TPC-H Q5, PostgreSQL 16, EXPLAIN ANALYZE): the
+    tree has an own-time column and every executed node's cell shows its own time."""
+    plan = planview.load(TPCH / "q05.serial.txt")
+    report = plan.report()
+    with exported_page(browser, plan, tmp_path / "q05.html") as (page, _, _, errors):
+        assert page.locator(".pv-tree .pv-row-head .pv-own-ms").inner_text() == "own ms"
+        cells = dict(zip(
+            [int(x) for x in page.locator(".pv-tree .pv-row[data-id]").evaluate_all("r => r.map(e => e.dataset.id)")],
+            page.locator(".pv-tree .pv-row[data-id] .pv-own-ms").all_inner_texts()))
+        assert set(cells) == {n["id"] for n in report["nodes"]}
+        timed = [n for n in report["nodes"] if n["self_ms"] is not None]
+        assert len(timed) == len(report["nodes"])
+        for node in timed:
+            shown = cells[node["id"]]
+            value = float(shown[:-1]) * 1000 if shown.endswith("s") else float(shown)
+            assert abs(value - node["self_ms"]) <= max(0.006, 0.051 * node["self_ms"]), (node["id"], shown, node["self_ms"])
+        assert not errors
+
+
+def _luminance(rgb):
+    # WCAG 2.1, "relative luminance" (https://www.w3.org/TR/WCAG21/#dfn-relative-luminance)
+    def channel(c):
+        c = c / 255
+        return c / 12.92 if c <= 0.03928 else ((c + 0.055) / 1.055) ** 2.4
+    r, g, b = (channel(c) for c in rgb)
+    return 0.2126 * r + 0.7152 * g + 0.0722 * b
+
+
+def _contrast(a, b):
+    # WCAG 2.1, "contrast ratio" (https://www.w3.org/TR/WCAG21/#dfn-contrast-ratio): (L1 + 0.05) / (L2 + 0.05)
+    high, low = sorted((_luminance(a), _luminance(b)), reverse=True)
+    return (high + 0.05) / (low + 0.05)
+
+
+def test_error_cells_meet_wcag_aa_contrast_as_rendered(browser, tmp_path):
+    """WCAG 2.1 success criterion 1.4.3 (AA): text at least 4.5:1 against its background. The
+    colours are read from the rendered page (getComputedStyle), on every error cell of all the
+    PG 16 captures in one review, in both colour modes."""
+    plan = _all_pg16_plans()
+    with exported_page(browser, plan, tmp_path / "all.html") as (page, _, _, errors):
+        page.locator(".pv-open-all").click()
+        measured = 0
+        for mode in ("whole", "own"):
+            page.locator(".pv-colour-by").select_option(mode)
+            cells = page.locator(".pv-tree .pv-row[data-id] .pv-err").evaluate_all("""cells => cells.map(c => {
+                const s = getComputedStyle(c);
+                return [s.backgroundColor, s.color, c.textContent];
+            })""")
+            coloured = [c for c in cells if c[0] not in ("rgba(0, 0, 0, 0)", "transparent")]
+            assert len({c[0] for c in coloured}) >= 5, "the captures should cover a range of colours"
+            for background, ink, text in coloured:
+                bg = tuple(int(v) for v in re.findall(r"\d+", background)[:3])
+                fg = tuple(int(v) for v in re.findall(r"\d+", ink)[:3])
+                ratio = _contrast(bg, fg)
+                assert ratio >= 4.5, (text, background, ink, round(ratio, 2))
+                measured += 1
+        assert measured > 50
+        assert not errors
+
+
+def test_error_cells_never_cut_and_chart_text_is_readable(browser, tmp_path):
+    """Source: plans/postgresql/pg16/join_correlated.json (a ×58,824 error captured on PG 16).
+    No error cell overflows, not even with the widest text planview's formatter writes; chart
+    ticks, axis labels and legends are at least 11 px as drawn; each chart labels both axes."""
+    from planview import words
+
+    plan = planview.load(PLANS / "join_correlated.json")
+    report = plan.report()
+    widest = max((words.error(s * math.log10(q), q) for q in (9.4e5, 9.99e5, 1.2e6, 9.9e8, 3.4e9, 1e15)
+                  for s in (1, -1)), key=len)
+    with exported_page(browser, plan, tmp_path / "wide.html") as (page, _, _, errors):
+        assert any("58,824" in n["text"]["error"] for n in report["nodes"])
+        overflow = """cells => cells.filter(c => c.scrollWidth > c.clientWidth + 1 || c.scrollHeight > c.clientHeight + 1)
+                                   .map(c => c.textContent)"""
+        cells = page.locator(".pv-tree .pv-row[data-id] .pv-err")
+        assert cells.evaluate_all(overflow) == []
+        shown = cells.all_inner_texts()
+        assert {n["text"]["error"] for n in report["nodes"] if n["judged"]} <= set(shown)
+        cells.first.evaluate("(c, t) => { c.textContent = t; }", widest)
+        assert cells.evaluate_all(overflow) == [], widest
+        # chart text as drawn: font size times the SVG's scale on screen
+        sizes = page.evaluate("""() => [...document.querySelectorAll('.pv-chart text, .pv-chart-legend, .pv-ticks')]
+            .filter(e => e.textContent.trim())
+            .map(e => {
+                const svg = e.ownerSVGElement;
+                const scale = svg ? svg.getBoundingClientRect().width / svg.viewBox.baseVal.width : 1;
+                return [e.textContent, parseFloat(getComputedStyle(e).fontSize) * scale];
+            })""")
+        assert sizes and all(size >= 11 for _, size in sizes), [s for s in sizes if s[1] < 11]
+        labels = page.locator(".pv-chart").evaluate_all(
+            "charts => charts.map(c => c.querySelectorAll('.pv-axis-label').length)")
+        assert labels == [2, 2]
+        assert not errors
 
 
 # -- inside JupyterLab -------------------------------------------------------------------------

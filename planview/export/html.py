@@ -80,13 +80,15 @@ const planviewState = { report: planviewData.report, selected: topOrigin(planvie
 const planviewAsked = /^#node-(\\d+)$/.exec(window.location.hash || "");
 if (planviewAsked) planviewState.selected = Number(planviewAsked[1]);
 const planviewModel = localModel(planviewState);
-planviewModel.on("change:selected", () => {
+function planviewAddress() {
   const id = planviewModel.get("selected");
   try {
     window.history.replaceState(null, "", id === null ? window.location.pathname : `#node-${id}`);
   } catch (error) { /* a viewer that forbids it loses nothing but the address */ }
-});
+}
+planviewModel.on("change:selected", planviewAddress);
 render({ model: planviewModel, el: document.getElementById("planview-root") });
+if (planviewModel.get("selected") !== null) planviewAddress();  // the origin it opens on has an address too
 """
 
 

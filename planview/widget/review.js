@@ -237,7 +237,8 @@ export function evidencePairs(evidence, { isJoin = false, inputRelations = [], l
     if (key === "checked" && saysChecked) continue;
     if (typeof value === "object" && !(Array.isArray(value) && value.every((x) => x === null || typeof x !== "object"))) continue;
     if ((key === "table" || key === "relation") && isJoin) {
-      if (inputRelations.length >= 2) out.push(["relations of its inputs", inputRelations.join(", ")]);
+      // a join reads two inputs: name both (unless the evidence lists its tables already)
+      if (inputRelations.length >= 2 && isEmptyValue(evidence.tables)) out.push(["relations of its inputs", inputRelations.join(", ")]);
       continue;
     }
     out.push([key.replace(/_/g, " "), Array.isArray(value) ? value.filter((x) => !isEmptyValue(x)).map(evidenceValue).join(", ") : evidenceValue(value)]);
@@ -979,7 +980,8 @@ class Review {
       append(status, [el("strong", {}, `Origin${finding ? ` ${finding.rank} of ${this.plan.findings.length}` : ""}: `),
         "the error starts here. ",
         added ? el("span", { class: "pv-added" }, `Here: ${added}`) : "",
-        added ? " · " : "", el("span", { class: "pv-in-all" }, `with its inputs: ${inAll}`)]);
+        // the error with its inputs, when its inputs bring some of it (else it is the same figure)
+        added && added.endsWith(inAll) ? "" : [added ? " · " : "", el("span", { class: "pv-in-all" }, `with its inputs: ${inAll}`)]]);
     } else if (node.inherits_from && node.inherits_from.length) {
       append(status, [el("strong", {}, "Carried error: "),
         `${inAll} here, but the error comes from below. Go to `,
@@ -1034,7 +1036,10 @@ class Review {
         impact.origin_share !== null && impact.origin_share !== undefined
           ? `, ${Math.round(impact.origin_share * 100)}% of the query` : ""));
     }
-    if (impact.text) parts.push(el("p", { class: "pv-impact" }, el("strong", {}, "Where the error ends up: "), impact.text));
+    // where the error ends up, when that is above the origin (at the origin it is the line above)
+    if (impact.text && (impact.node !== finding.node || impact.origin_ms === null || impact.origin_ms === undefined)) {
+      parts.push(el("p", { class: "pv-impact" }, el("strong", {}, "Where the error ends up: "), impact.text));
+    }
     if (finding.fix) {
       parts.push(el("h4", {}, "Suggested fix"));
       const code = el("pre", { class: "pv-fix" }, el("code", {}, textBlock(finding.fix)));
@@ -1055,12 +1060,16 @@ class Review {
   // The evidence, after the numbers: what the numbers table and the status line do not say.
   evidenceParts(finding, node) {
     const evidence = finding.evidence && typeof finding.evidence === "object" ? finding.evidence : {};
-    const lines = evidenceLines(evidence.lines);
+    const derived = (node.derived || []).map((d) => String(d).toLowerCase());
+    const lines = evidenceLines(evidence.lines).filter((line) => !derived.some((d) => d && line.toLowerCase().includes(d)));
     const isJoin = node.own_rule === "join" || Boolean(node.join_type);
     const pairs = evidencePairs(evidence, { isJoin, inputRelations: isJoin ? this.inputRelations(node) : [], lines: evidence.lines || [] });
     const parts = [];
-    if (lines.length || pairs.length || finding.confidence_reason) parts.push(el("h4", {}, "Evidence"));
-    if (finding.confidence_reason) parts.push(el("p", { class: "pv-confidence-reason" }, finding.confidence_reason));
+    const summary = summaryText(finding).toLowerCase();
+    const reason = finding.confidence_reason && !summary.includes(String(finding.confidence_reason).trim().toLowerCase())
+      ? finding.confidence_reason : null;
+    if (lines.length || pairs.length || reason) parts.push(el("h4", {}, "Evidence"));
+    if (reason) parts.push(el("p", { class: "pv-confidence-reason" }, reason));
     if (lines.length) parts.push(el("ul", { class: "pv-evidence-lines" }, lines.map((line) => el("li", {}, line))));
     if (pairs.length) {
       parts.push(el("table", { class: "pv-evidence" }, el("tbody", {}, pairs.map(([k, v]) => el("tr", {},
