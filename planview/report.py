@@ -169,6 +169,8 @@ def build_report(plan) -> dict[str, Any]:
              **_statement_times(plan, s)}
             for s in plan.statements
         ],
+        "execution_ms": _summed(plan.statements, "execution_ms"),
+        "planning_ms": _summed(plan.statements, "planning_ms"),
         "nodes": [node_record(n, plan.times) for n in plan.nodes],
         "findings": [finding_record(f) for f in plan.findings],
         "slowest": slowest_records(plan),
@@ -176,6 +178,12 @@ def build_report(plan) -> dict[str, Any]:
         "time_rules": [list(rule) for rule in plan.engine_spec.TIME_RULES],
         "source": source_record(getattr(plan, "source", "") or ""),
     }
+
+
+def _summed(statements, key: str) -> float | None:
+    """A paste's time: the sum over its statements of those that print it (None if none does)."""
+    values = [getattr(s, key) for s in statements if getattr(s, key) is not None]
+    return _clean(sum(values)) if values else None
 
 
 def source_record(text: str) -> dict[str, Any]:

@@ -273,3 +273,22 @@ def test_every_cause_has_words_in_python_and_in_the_page():
     for cause in (*CAUSES, "not_diagnosed"):
         assert cause in CAUSE_WORDS, cause
         assert re.search(rf'\n  {cause}: "{re.escape(CAUSE_WORDS[cause])}",', script), cause
+
+
+def test_a_multi_statement_paste_says_the_sum_of_its_statements_times():
+    """Source: plans/postgresql/pg16/multi.json, two statements as PostgreSQL 16 printed them;
+    the expected total is the sum of the "Execution Time" values in the file itself."""
+    from planview import words
+
+    text = (PG16 / "multi.json").read_text()
+    decoder, at, printed = json.JSONDecoder(), 0, []
+    while text[at:].strip():
+        value, at = decoder.raw_decode(text, len(text) - len(text[at:].lstrip()))
+        printed += [doc["Execution Time"] for doc in value]
+    assert len(printed) == 2
+    plan = planview.load(PG16 / "multi.json")
+    total = words.ms(sum(printed))
+    assert plan.report()["execution_ms"] == pytest.approx(sum(printed))
+    assert f"ran {total}" in render_static_tree(plan)
+    assert f"execution time: {total}" in plan.to_markdown()
+    assert "2 statements" in render_static_tree(plan)

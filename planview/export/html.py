@@ -180,12 +180,14 @@ def render_static_tree(plan) -> str:
 
     out = [_STATIC_CSS, '<div class="pvs">']
     findings = report["findings"]
-    statement = (report["statements"] or [{}])[0]
+    statements = report["statements"]
     facts = [f"{report['engine']}" + (f" {report['engine_version']}" if report["engine_version"] else ""),
              f"{report['format']} format", _words.plural(len(nodes), "operator"),
              f"{_words.plural(len(findings), 'origin')} at {factor(report['threshold'])} or worse"]
-    if statement.get("execution_ms") is not None:
-        facts.append(f"ran {ms(statement['execution_ms'])}")
+    if len(statements) > 1:
+        facts.insert(0, _words.plural(len(statements), "statement"))
+    if report.get("execution_ms") is not None:
+        facts.append(f"ran {ms(report['execution_ms'])}")
     out.append(f"<p><strong>Plan review</strong> · {esc(' · '.join(facts))}</p>")
     for n in report["notes"]:
         out.append(f"<p><em>{esc(n)}</em></p>")

@@ -66,10 +66,13 @@ def render_markdown(plan) -> str:
     facts = [f"engine: {md_text(engine)} ({md_text(report['format'])})",
              _words.plural(len(nodes), "operator"),
              f"origins at {md_text(factor(report['threshold']))} or worse: {len(findings)}"]
-    if statement.get("execution_ms") is not None:
-        facts.append(f"execution time: {md_text(ms(statement['execution_ms']))}")
-    if statement.get("planning_ms") is not None:
-        facts.append(f"planning time: {md_text(ms(statement['planning_ms']))}")
+    if len(report["statements"]) > 1:
+        facts.insert(0, _words.plural(len(report["statements"]), "statement"))
+    # a paste of several statements: their times summed (the report adds them up once)
+    if report.get("execution_ms") is not None:
+        facts.append(f"execution time: {md_text(ms(report['execution_ms']))}")
+    if report.get("planning_ms") is not None:
+        facts.append(f"planning time: {md_text(ms(report['planning_ms']))}")
     judged = [n for n in nodes if n.get("judged")]
     worst = max(judged, key=lambda n: n.get("q_error") or 1.0, default=None)
     if worst and worst.get("q_error"):

@@ -460,11 +460,12 @@ class Review {
   buildHeader() {
     const r = this.plan.report;
     const statements = r.statements || [];
-    const statement = statements.length === 1 ? statements[0] : {
-      execution_ms: statements.some((s) => s.execution_ms !== null && s.execution_ms !== undefined)
-        ? statements.reduce((sum, s) => sum + (s.execution_ms || 0), 0) : null,
-      planning_ms: statements.some((s) => s.planning_ms !== null && s.planning_ms !== undefined)
-        ? statements.reduce((sum, s) => sum + (s.planning_ms || 0), 0) : null,
+    // the paste's times: the report sums its statements once (report.execution_ms)
+    const summed = (key) => (r[key] !== undefined ? r[key]
+      : statements.some((s) => s[key] !== null && s[key] !== undefined) ? statements.reduce((sum, s) => sum + (s[key] || 0), 0) : null);
+    const statement = {
+      execution_ms: summed("execution_ms"),
+      planning_ms: summed("planning_ms"),
       query_text: statements.map((s) => s.query_text).filter(Boolean).join("\n\n") || null,
     };
     const facts = [
