@@ -297,6 +297,13 @@ def test_export_page_opens_on_the_top_origin_and_the_origins_list_selects(browse
         items = page.locator(".pv-origins button.pv-origin-item")
         assert items.count() == len(ranked)
         assert page.locator(".pv-row.pv-selected").get_attribute("data-id") == str(ranked[0]["node"])
+        # every row shows its node id; an origin's rank sits apart from it, in its badge
+        rows = page.locator(".pv-tree .pv-row[data-id]")
+        assert rows.evaluate_all("rs => rs.map(r => [r.dataset.id, r.querySelector('.pv-id').textContent])") == [
+            [str(n["id"]), n["text"]["id"]] for n in report["nodes"]]
+        for finding in ranked:
+            badge = page.locator(f'.pv-row[data-id="{finding["node"]}"] .pv-badge-origin').inner_text()
+            assert badge == f"◆{finding['rank']}"
         assert items.first.get_attribute("aria-pressed") == "true"
         assert page.evaluate("location.hash") == f"#node-{ranked[0]['node']}"
         for i, finding in enumerate(ranked):
@@ -647,9 +654,15 @@ def test_review_in_jupyterlab(lab, browser):
         # the charts are the exported page's SVG charts
         charts = first.locator(".pv-charts")
         charts.locator("svg.pv-chart").nth(1).wait_for(timeout=30_000)
+        # the README's picture: the whole review of this real capture, charts included, in a
+        # window tall enough to hold it
+        size = page.viewport_size
+        page.set_viewport_size({"width": size["width"], "height": 1800})
+        first.evaluate("el => el.scrollIntoView({block: 'start'})")
         page.wait_for_timeout(300)
         first.screenshot(path=str(SHOTS / "jupyterlab-review.png"))
         charts.screenshot(path=str(SHOTS / "jupyterlab-charts.png"))
+        page.set_viewport_size(size)
         # the kernel sees the selection: run the last cell again, it prints w.selected
         last = page.locator(".jp-Notebook .jp-Cell").last
         last.locator(".jp-InputArea-editor").click()

@@ -759,6 +759,7 @@ class Review {
     } else if (node.cte_name && !node.relation && node.parent_relationship === "InitPlan") {
       op.appendChild(el("span", { class: "pv-sub" }, `CTE ${node.cte_name}`));
     }
+    op.appendChild(el("span", { class: "pv-id" }, (node.text && node.text.id) || `#${node.id}`));
     op.appendChild(el("span", { class: "pv-label", title: node.label || node.operator || "" }, node.label || node.operator || "?"));
     if (hasKids && !isOpen && !this.onlyOrigins) {
       const hidden = this.plan.subtreeSize.get(node.id);
@@ -783,7 +784,7 @@ class Review {
       op.insertBefore(el("span", {
         class: "pv-badge pv-badge-origin",
         title: `origin ${finding ? finding.rank : ""}${finding && finding.cause ? ": " + causeWords(finding.cause) : ""}`,
-      }, `◆${finding ? finding.rank : ""}`), op.querySelector(".pv-label"));
+      }, `◆${finding ? finding.rank : ""}`), op.querySelector(".pv-id"));
     } else if (state === "inherited") {
       op.appendChild(el("span", { class: "pv-badge pv-badge-inherited", title: "carries the error of these origins" },
         `↳ #${node.inherits_from.slice(0, 3).join(", #")}`));
