@@ -197,6 +197,28 @@ def test_exported_page_shows_control_and_direction_characters_as_escapes(browser
         assert dialogs == [] and errors == [] and blocked == []
 
 
+def test_the_plan_as_pasted_shows_direction_characters_as_escapes(browser, tmp_path):
+    """The "as pasted" block of a captured PG 16 plan whose table name carries U+202E and
+    U+2028 raw in the file (Unicode Standard Annex #9; JSON leaves them unescaped): shown as
+    escapes, never as markup, the rest of the text as it is."""
+    path = tmp_path / "raw.json"
+    path.write_text(json.dumps(with_payloads(PLANS / "nested_loop_inherited.json",
+                                            {"Relation Name": "owners\u202egnp\u2028<b>x</b>"}), ensure_ascii=False),
+                    encoding="utf-8")
+    assert "\u202e" in path.read_text(encoding="utf-8")
+    plan = planview.load(path)
+    with exported_page(browser, plan, tmp_path / "raw.html") as (page, blocked, dialogs, errors):
+        page.locator(".pv-source summary").click()
+        pre = page.locator(".pv-source pre[data-filled]")
+        pre.wait_for(timeout=10_000)
+        shown = pre.evaluate("p => p.textContent")
+        assert "owners\\u202egnp\\u2028<b>x</b>" in shown
+        assert shown == path.read_text(encoding="utf-8").replace("\u202e", "\\u202e").replace("\u2028", "\\u2028")
+        assert pre.locator("b").count() == 0
+        assert not RAW.search(page.locator("body").inner_text())
+        assert dialogs == [] and errors == [] and blocked == []
+
+
 def test_export_page_shows_own_time_per_row_and_the_slowest_operators(browser, tmp_path):
     """Source: plans/tpch/pg16/q22.serial.txt (TPC-H Q22, PostgreSQL 16): the tree's own-time
     cells and the slowest list show the report's figures; selecting a row shows its times."""
@@ -468,6 +490,7 @@ def test_export_page_shows_statements_one_by_one_and_the_plan_as_pasted(browser,
         assert f"ran {words.ms(total)}" in page.locator(".pv-head").inner_text()
         block = page.locator(".pv-source")
         block.locator("summary").click()
+        block.locator("pre[data-filled]").wait_for(timeout=10_000)
         assert block.locator("pre").evaluate("p => p.textContent") == path.read_text(encoding="utf-8")
         assert not errors
 

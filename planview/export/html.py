@@ -11,6 +11,7 @@ report's data keeps the real strings.
 from __future__ import annotations
 
 import base64
+import gzip
 import hashlib
 import html
 import json
@@ -63,7 +64,20 @@ def compact_report(report: dict[str, Any]) -> dict[str, Any]:
     rows = [[None if _is_empty(v := node.get(key)) else v for key in columns] for node in nodes]
     packed = {k: v for k, v in report.items() if k != "nodes"}
     packed["nodes_packed"] = {"columns": columns, "rows": rows}
+    source = report.get("source")
+    if isinstance(source, dict) and source.get("text"):
+        packed["source"] = pack_source(source)
     return packed
+
+
+def pack_source(source: dict[str, Any]) -> dict[str, Any]:
+    """The plan as pasted, gzipped and in base64 (the ES module unpacks it with the browser's
+    DecompressionStream when the block is opened): a plan's text is mostly repeated keys and
+    indentation, so a 5,000-operator JSON plan's 2 MB become about a tenth of that."""
+    text = source["text"]
+    data = gzip.compress(text.encode("utf-8", "surrogatepass"), compresslevel=9, mtime=0)
+    return {"gzip_base64": base64.b64encode(data).decode("ascii"), "chars": source.get("chars", len(text)),
+            "cut": bool(source.get("cut")), "shown_chars": len(text), "lines": text.count("\n") + 1}
 
 
 def _json_for_script(value: Any) -> str:
@@ -255,4 +269,4 @@ def render_static_tree(plan) -> str:
     return "".join(out)
 
 
-__all__ = ["LARGE_PLAN", "compact_report", "render_html", "render_static_tree", "widget_css", "widget_module"]
+__all__ = ["LARGE_PLAN", "compact_report", "pack_source", "render_html", "render_static_tree", "widget_css", "widget_module"]

@@ -260,6 +260,14 @@ export function summaryText(finding) {
   return text ? text.charAt(0).toUpperCase() + text.slice(1) : "";
 }
 
+// The pasted text from the report's `source`: as it is, or unpacked from gzip and base64.
+export async function sourceText(source) {
+  if (typeof source.text === "string") return source.text;
+  const bytes = Uint8Array.from(atob(source.gzip_base64), (c) => c.charCodeAt(0));
+  const stream = new Blob([bytes]).stream().pipeThrough(new DecompressionStream("gzip"));
+  return new Response(stream).text();
+}
+
 // The rank-1 origin's node id, or null: what the review selects when it opens.
 export function topOrigin(report) {
   const findings = (report && Array.isArray(report.findings) ? report.findings : []).filter((f) => Number.isInteger(f.node));
@@ -490,21 +498,28 @@ class Review {
     return el("div", {}, header, extra);
   }
 
-  // The plan exactly as pasted (the report's `source`), filled when first opened.
+  // The plan exactly as pasted (the report's `source`: its text, or gzipped in base64 as the
+  // page and the widget carry it), filled when first opened.
   sourceBlock() {
     const source = this.plan.report.source;
-    if (!source || typeof source.text !== "string" || !source.text) return null;
-    const lines = source.text.split("\n").length;
+    if (!source || typeof source !== "object" || !(source.text || source.gzip_base64)) return null;
+    const lines = source.lines ?? String(source.text).split("\n").length;
+    const shown = source.shown_chars ?? String(source.text).length;
     const pre = el("pre", { class: "pv-source-text" });
     const box = el("details", { class: "pv-source" },
-      el("summary", {}, `Plan as pasted (${lines.toLocaleString("en-US")} line${lines === 1 ? "" : "s"})`));
+      el("summary", {}, `Plan as pasted (${Number(lines).toLocaleString("en-US")} line${lines === 1 ? "" : "s"})`));
     if (source.cut) {
       box.appendChild(el("div", { class: "pv-note" },
-        `Shown: the first ${source.text.length.toLocaleString("en-US")} of ${Number(source.chars).toLocaleString("en-US")} characters.`));
+        `Shown: the first ${Number(shown).toLocaleString("en-US")} of ${Number(source.chars).toLocaleString("en-US")} characters.`));
     }
     box.appendChild(pre);
+    let asked = false;
     box.addEventListener("toggle", () => {
-      if (box.open && !pre.firstChild) pre.appendChild(textBlock(source.text));
+      if (!box.open || asked) return;
+      asked = true;
+      sourceText(source).then(
+        (text) => { pre.replaceChildren(textBlock(text)); pre.setAttribute("data-filled", "true"); },
+        () => { pre.replaceChildren(document.createTextNode("This browser cannot unpack the text (it needs DecompressionStream).")); });
     });
     return box;
   }
