@@ -626,8 +626,7 @@ class Review {
     this.findCount = el("span", { class: "pv-find-count", "aria-live": "polite" });
     find.addEventListener("input", () => {
       this.setQuery(find.value);
-      this.drawTree();
-      this.markSelected(false);
+      this.markMatches();
     });
     find.addEventListener("keydown", (event) => {
       if (event.key === "Enter") {
@@ -637,8 +636,7 @@ class Review {
         event.preventDefault();
         find.value = "";
         this.setQuery("");
-        this.drawTree();
-        this.markSelected(false);
+        this.markMatches();
       }
       event.stopPropagation();
     });
@@ -665,10 +663,11 @@ class Review {
     }
     const ticks = el("span", { class: "pv-ticks", "aria-hidden": "true" },
       ["×10⁴", "×1000", "×100", "×10", "1", "×10", "×100", "×1000", "×10⁴"].map((t) => el("span", {}, t)));
+    const said = this.plan.report.words || {};
     return el("div", { class: "pv-legend", role: "note" },
-      el("span", { class: "pv-legend-end" }, "estimate too high"),
+      el("span", { class: "pv-legend-end" }, said.scale_low || "estimate too high"),
       el("span", { class: "pv-scale" }, strip, ticks),
-      el("span", { class: "pv-legend-end" }, "estimate too low"),
+      el("span", { class: "pv-legend-end" }, said.scale_high || "estimate too low"),
       el("span", { class: "pv-key" }, el("span", { class: "pv-badge pv-badge-origin" }, "◆ origin"), " error starts here"),
       el("span", { class: "pv-key" }, el("span", { class: "pv-badge pv-badge-inherited" }, "↳ carried"), " error from below"),
       el("span", { class: "pv-key" }, el("span", { class: "pv-chip pv-chip-neutral" }), " not judged"),
@@ -894,6 +893,11 @@ class Review {
       this.findCount.textContent = this.query.trim() ? matchCount(this.matches.length) : "";
       this.findCount.classList.toggle("pv-find-none", Boolean(this.query.trim()) && !this.matches.length);
     }
+  }
+
+  // The rows on screen take or lose the match mark (no redraw: typing stays quick on a big tree).
+  markMatches() {
+    for (const [id, row] of this.rowsById) row.classList.toggle("pv-match", this.matchSet.has(id));
   }
 
   // Enter / Shift+Enter: the next / previous match after the selected node, in tree order.
