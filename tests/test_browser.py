@@ -346,6 +346,27 @@ def test_export_page_opens_on_the_top_origin_and_the_origins_list_selects(browse
         assert not errors
 
 
+def test_the_origins_list_keeps_the_selected_origin_in_view(browser, tmp_path):
+    """All PG 16 captures in one review: more origins than the list shows at once; stepping to
+    the last one scrolls the list (only the list) to it."""
+    plan = _all_pg16_plans()
+    ranked = sorted(plan.report()["findings"], key=lambda f: f["rank"])
+    with exported_page(browser, plan, tmp_path / "many.html") as (page, _, _, errors):
+        box = page.locator(".pv-origin-list")
+        assert box.evaluate("b => b.scrollHeight > b.clientHeight"), "the list should need scrolling here"
+        page.evaluate("window.scrollTo(0, 0)")
+        page.locator(".pv-prev").click()  # from origin 1 back to the last
+        last = page.locator(f'.pv-origin-item[data-node="{ranked[-1]["node"]}"]')
+        assert last.get_attribute("aria-pressed") == "true"
+        inside = box.evaluate("""(b, id) => {
+            const item = b.querySelector(`.pv-origin-item[data-node="${id}"]`);
+            const a = b.getBoundingClientRect(), r = item.getBoundingClientRect();
+            return r.top >= a.top - 1 && r.bottom <= a.bottom + 1;
+        }""", ranked[-1]["node"])
+        assert inside
+        assert not errors
+
+
 def _search_fields(node):
     """The fields the find box reads (review.js searchText), from the report's node."""
     fields = [node.get(k) for k in ("label", "operator", "relation", "alias", "schema", "index", "cte_name",

@@ -845,6 +845,7 @@ class Review {
       const on = id === this.selected;
       item.classList.toggle("pv-origin-item-selected", on);
       item.setAttribute("aria-pressed", String(on));
+      if (on && scroll) keepInView(item);
     }
     const row = this.rowsById.get(this.selected);
     if (row) {
@@ -1133,6 +1134,16 @@ class Review {
     this.chartPane.replaceChildren(...this.charts.elements);
     this.charts.highlight(this.selected);
   }
+}
+
+// Scroll an origins-list row into its list's view, moving nothing else on the page.
+function keepInView(item) {
+  const list = item.parentElement;
+  if (!list || !list.clientHeight) return;
+  const top = item.offsetTop;  // the list is the rows' offset parent (position: relative)
+  const head = list.firstElementChild && list.firstElementChild !== item ? list.firstElementChild.offsetHeight : 0;
+  if (top - head < list.scrollTop) list.scrollTop = Math.max(0, top - head);
+  else if (top + item.offsetHeight > list.scrollTop + list.clientHeight) list.scrollTop = top + item.offsetHeight - list.clientHeight;
 }
 
 function evidenceValue(value) {
