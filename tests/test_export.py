@@ -292,3 +292,17 @@ def test_a_multi_statement_paste_says_the_sum_of_its_statements_times():
     assert f"ran {total}" in render_static_tree(plan)
     assert f"execution time: {total}" in plan.to_markdown()
     assert "2 statements" in render_static_tree(plan)
+
+
+def test_the_static_tree_has_an_own_time_column():
+    """Source: plans/tpch/pg16/q05.serial.txt (TPC-H Q5 on PostgreSQL 16, EXPLAIN ANALYZE) and
+    plans/postgresql/pg16/estimates_only.json (plain EXPLAIN)."""
+    from planview import words
+
+    plan = planview.load(REPO / "plans" / "tpch" / "pg16" / "q05.serial.txt")
+    page = render_static_tree(plan)
+    assert "<th class=\"n\">own time</th>" in page
+    for node in plan.report()["nodes"]:
+        assert f'<td class="n">{words.ms(node["self_ms"])}</td>' in page
+    # plain EXPLAIN prints no time: no column of dashes
+    assert "own time" not in render_static_tree(planview.load(PG16 / "estimates_only.json"))

@@ -209,8 +209,10 @@ def render_static_tree(plan) -> str:
     out.append(f'<p class="legend">estimate too high {legend} estimate too low · '
                "◆ origin: error starts here · ↳ carried from below · dashed: not judged</p>")
     out.append(note)
+    timed = any(n.get("self_ms") is not None for n in nodes)
     out.append("<table><thead><tr><th>operator</th><th class=\"n\">estimated</th>"
-               "<th class=\"n\">actual</th><th class=\"n\">starts</th><th>error</th><th></th>"
+               "<th class=\"n\">actual</th><th class=\"n\">starts</th>"
+               + ("<th class=\"n\">own time</th>" if timed else "") + "<th>error</th><th></th>"
                "</tr></thead><tbody>")
     findings_by_node = {f["node"]: f for f in findings}
     for node in shown:
@@ -235,7 +237,8 @@ def render_static_tree(plan) -> str:
             f'<tr class="{state}"><td>{indent}#{node["id"]} {esc(node["label"] or node["operator"] or "")}</td>'
             f'<td class="n">{esc(rows(node["est_total"] if node["est_total"] is not None else node["est_rows"]))}</td>'
             f'<td class="n">{esc(rows(node["actual_total"]))}</td><td class="n">{esc(rows(node["starts"]))}</td>'
-            f"{err}<td>{esc(mark)}</td></tr>")
+            + (f'<td class="n">{esc(ms(node.get("self_ms")))}</td>' if timed else "")
+            + f"{err}<td>{esc(mark)}</td></tr>")
     out.append("</tbody></table>")
     if findings:
         out.append("<h4>Origins, most impact first</h4>")
