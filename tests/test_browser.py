@@ -561,10 +561,15 @@ def test_export_page_own_time_column_has_the_reports_figures(browser, tmp_path):
         assert set(cells) == {n["id"] for n in report["nodes"]}
         timed = [n for n in report["nodes"] if n["self_ms"] is not None]
         assert len(timed) == len(report["nodes"])
+        assert page.locator(".pv-tree .pv-row-head .pv-own-ms").is_visible()
         for node in timed:
             shown = cells[node["id"]]
             value = float(shown[:-1]) * 1000 if shown.endswith("s") else float(shown)
             assert abs(value - node["self_ms"]) <= max(0.006, 0.051 * node["self_ms"]), (node["id"], shown, node["self_ms"])
+        assert not errors
+    # plain EXPLAIN (plans/postgresql/pg16/estimates_only.json) prints no time: no such column
+    with exported_page(browser, planview.load(PLANS / "estimates_only.json"), tmp_path / "plain.html") as (page, _, _, errors):
+        assert not page.locator(".pv-tree .pv-row-head .pv-own-ms").is_visible()
         assert not errors
 
 

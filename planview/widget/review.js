@@ -436,6 +436,8 @@ class Review {
     const report = this.model.get("report") || {};
     this.plan = indexPlan(report);
     this.open = openingSet(this.plan);
+    // plain EXPLAIN prints no time: no column of dashes
+    this.root.classList.toggle("pv-untimed", !this.plan.nodes.some((n) => n.self_ms !== null && n.self_ms !== undefined));
     this.root.replaceChildren();
     this.root.appendChild(this.buildHeader());
     this.root.appendChild(this.buildToolbar());
