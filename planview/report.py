@@ -8,6 +8,8 @@ from typing import Any
 from . import words
 
 REPORT_VERSION = 1
+SOURCE_LIMIT = 2_000_000
+"""The report carries the plan as pasted up to this many characters (a view says when it is cut)."""
 
 
 def _clean(value: Any) -> Any:
@@ -195,4 +197,11 @@ def build_report(plan) -> dict[str, Any]:
         "slowest": slowest_records(plan),
         "operator_ms": _ms(plan.times.operator_ms()),
         "time_rules": [list(rule) for rule in plan.engine_spec.TIME_RULES],
+        "source": source_record(getattr(plan, "source", "") or ""),
     }
+
+
+def source_record(text: str) -> dict[str, Any]:
+    """The plan exactly as pasted, for the views' "as pasted" block: the first SOURCE_LIMIT
+    characters, with the full length and whether it was cut."""
+    return {"text": text[:SOURCE_LIMIT], "chars": len(text), "cut": len(text) > SOURCE_LIMIT}

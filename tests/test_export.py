@@ -340,7 +340,7 @@ def test_static_tree_heads_each_statement_of_a_paste_with_its_time():
     page = render_static_tree(planview.load(PG16 / "multi.json"))
     execution = [s["Execution Time"] for s in raw]
     assert f"2 statements, {words.ms(sum(execution))} in all" in page
-    headings = re.findall(r'<tr class="statement"><th colspan="6">(.*?)</th></tr>', page)
+    headings = re.findall(r'<tr class="statement"><th colspan="\d">(.*?)</th></tr>', page)
     assert headings == [f"statement {i} of 2 · ran {words.ms(t)}" for i, t in enumerate(execution, 1)]
 
 
@@ -349,3 +349,35 @@ def test_the_ticket_has_no_empty_evidence_field():
     ticket lists no "expressions:" with nothing after it."""
     text = planview.load(PG16 / "multi.json").to_markdown()
     assert not re.search(r"^- [\w ]+:\s*$", text, re.M)
+
+def test_a_multi_statement_paste_says_the_sum_of_its_statements_times():
+    """Source: plans/postgresql/pg16/multi.json, two statements as PostgreSQL 16 printed them;
+    the expected total is the sum of the "Execution Time" values in the file itself."""
+    from planview import words
+
+    text = (PG16 / "multi.json").read_text()
+    decoder, at, printed = json.JSONDecoder(), 0, []
+    while text[at:].strip():
+        value, at = decoder.raw_decode(text, len(text) - len(text[at:].lstrip()))
+        printed += [doc["Execution Time"] for doc in value]
+    assert len(printed) == 2
+    plan = planview.load(PG16 / "multi.json")
+    total = words.ms(sum(printed))
+    assert plan.report()["execution_ms"] == pytest.approx(sum(printed))
+    assert f"ran {total}" in render_static_tree(plan)
+    assert f"execution time: {total}" in plan.to_markdown()
+    assert "2 statements" in render_static_tree(plan)
+
+
+def test_the_static_tree_has_an_own_time_column():
+    """Source: plans/tpch/pg16/q05.serial.txt (TPC-H Q5 on PostgreSQL 16, EXPLAIN ANALYZE) and
+    plans/postgresql/pg16/estimates_only.json (plain EXPLAIN)."""
+    from planview import words
+
+    plan = planview.load(REPO / "plans" / "tpch" / "pg16" / "q05.serial.txt")
+    page = render_static_tree(plan)
+    assert "<th class=\"n\">own time</th>" in page
+    for node in plan.report()["nodes"]:
+        assert f'<td class="n">{words.ms(node["self_ms"])}</td>' in page
+    # plain EXPLAIN prints no time: no column of dashes
+    assert "own time" not in render_static_tree(planview.load(PG16 / "estimates_only.json"))

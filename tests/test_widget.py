@@ -27,7 +27,11 @@ def test_widget_syncs_the_report_and_the_selection(multi):
     assert w.tree.report == json.loads(json.dumps(compact_report(multi.report())))
     assert w.report is multi.report()
     assert w.tree.trait_metadata("report", "sync") and w.tree.trait_metadata("selected", "sync")
-    assert w.selected is None
+    # the review opens on the rank-1 origin
+    top = min(multi.report()["findings"], key=lambda f: f["rank"])["node"]
+    assert w.selected == top and w.tree.selected == top
+    w.selected = None
+    assert w.tree.selected is None
     origin = multi.report()["findings"][0]["node"]
     w.selected = origin
     assert w.tree.selected == origin
@@ -41,9 +45,12 @@ def test_widget_syncs_the_report_and_the_selection(multi):
 def test_next_origin_walks_in_rank_order_and_wraps(multi):
     w = PlanWidget(multi)
     ranked = [f["node"] for f in sorted(multi.report()["findings"], key=lambda f: f["rank"])]
-    seen = [w.next_origin() for _ in range(len(ranked) + 1)]
-    assert seen == ranked + ranked[:1]
+    assert w.selected == ranked[0]  # opened on the rank-1 origin
+    seen = [w.next_origin() for _ in range(len(ranked))]
+    assert seen == ranked[1:] + ranked[:1]
     assert w.next_origin(-1) == ranked[-1]
+    w.selected = None
+    assert w.next_origin() == ranked[0]
 
 
 def test_mime_bundle_carries_widget_view_and_static_fallback(multi):
@@ -54,43 +61,54 @@ def test_mime_bundle_carries_widget_view_and_static_fallback(multi):
     assert not hasattr(multi, "_repr_mimebundle_")  # the core carries no notebook hook
 
 
-def test_charts_come_once_the_tree_is_drawn_and_clicks_select(multi):
+def test_the_notebook_draws_the_same_svg_charts_as_the_exported_page(multi):
+    """One chart implementation for the review: the widget asks the ES module for its SVG
+    charts, as the exported page does (planview/export/html.py boots it with chart_mode svg)."""
+    from planview.export.html import render_html
+
     w = PlanWidget(multi)
-    assert w.charts is None and w.children == (w.tree,)
-    w._on_front_message(w.tree, {"kind": "drawn"}, [])
-    assert w.charts is not None and w.children == (w.tree, w.charts.figure)
-    w._on_front_message(w.tree, {"kind": "drawn"}, [])  # a second view of the same widget
-    assert len(w.children) == 2
-    scatter = w.charts.figure.data[3]
-    ids = [int(c[0]) for c in scatter.customdata]
+    assert w.tree.chart_mode == "svg" and w.children == (w.tree,)
+    assert 'chart_mode: "svg"' in render_html(multi)
+    assert PlanWidget(multi, charts=False).tree.chart_mode == "none"
+
+
+def test_the_plotly_figure_kept_for_notebook_use_selects_on_click(multi):
+    from planview.widget.charts import PlanCharts
+
     report = multi.report()
+    picked = []
+    charts = PlanCharts(report, pick=picked.append)
+    scatter = charts.figure.data[3]
+    ids = [int(c[0]) for c in scatter.customdata]
     assert ids == [n["id"] for n in report["nodes"] if n["judged"] and n["est_total"] is not None
                    and n["actual_total"] is not None]
 
     class Points:
         point_inds = [ids.index(report["findings"][0]["node"])]
 
-    w.charts._clicked(scatter, Points(), None)
-    assert w.selected == report["findings"][0]["node"]
-    ring = w.charts.figure.data[5]
-    node = report["nodes"][w.selected]
+    charts._clicked(scatter, Points(), None)
+    assert picked == [report["findings"][0]["node"]]
+    charts.highlight(picked[0])
+    node = report["nodes"][picked[0]]
+    ring = charts.figure.data[5]
     assert list(ring.x) == [max(node["est_total"], 1.0)] and list(ring.y) == [max(node["actual_total"], 1.0)]
-    w.selected = None
-    assert list(w.charts.figure.data[5].x) == []
+    charts.highlight(None)
+    assert list(charts.figure.data[5].x) == []
 
 
 def test_chart_hover_labels_show_direction_and_control_characters_as_escapes():
     # U+202E (Unicode Standard Annex #9), ESC (ECMA-48), U+2028: each shown as an escape
     from plan_files import with_payloads
 
+    from planview.widget.charts import PlanCharts
+
     name = "owners\u202egnp\x1b[2J\u2028x"
     plan = planview.load(json.dumps(with_payloads(PG16 / "nested_loop_inherited.json", {"Relation Name": name})))
-    w = PlanWidget(plan)
-    w._on_front_message(w.tree, {"kind": "drawn"}, [])
-    labels = [str(c[1]) for trace in w.charts.figure.data[3:5] for c in trace.customdata]
+    charts = PlanCharts(plan.report(), pick=lambda _id: None)
+    labels = [str(c[1]) for trace in charts.figure.data[3:5] for c in trace.customdata]
     assert any("owners\\u202egnp\\x1b[2J\\u2028x" in label for label in labels), labels
     assert not any(ch in label for label in labels for ch in "\u202e\x1b\u2028")
-    assert w.report["nodes"] == plan.report()["nodes"] and name in {n["relation"] for n in w.report["nodes"]}
+    assert name in {n["relation"] for n in plan.report()["nodes"]}
 
 
 def test_save_writes_page_and_ticket_and_answers_the_front_end(multi, tmp_path):

@@ -99,3 +99,102 @@ def test_the_widget_picks_the_same_ink_and_colour(tmp_path):
                       "console.log(JSON.stringify(grid.map((t) => [ratioColour(t), inkFor(t)])));\n", encoding="utf-8")
     out = subprocess.run(["node", str(script)], capture_output=True, text=True, timeout=60, check=True).stdout
     assert json.loads(out) == [[ratio_colour(t), ink_for(t)] for t in GRID]
+
+
+# -- the review's pure helpers, run in node on real reports --------------------------------------
+
+NODE = pytest.mark.skipif(shutil.which("node") is None, reason="Node.js is needed to run the ES module")
+PG16 = ROOT / "plans" / "postgresql" / "pg16"
+Q22 = ROOT / "plans" / "tpch" / "pg16" / "q22.serial.txt"  # TPC-H Q22 on PostgreSQL 16
+
+
+def _run_module(tmp_path, body: str, data) -> object:
+    script = tmp_path / "helpers.mjs"
+    script.write_text(f"import * as pv from {json.dumps(JS.as_uri())};\n"
+                      f"const data = JSON.parse({json.dumps(json.dumps(data))});\n{body}\n", encoding="utf-8")
+    out = subprocess.run(["node", str(script)], capture_output=True, text=True, timeout=60, check=True).stdout
+    return json.loads(out)
+
+
+def _fields(node) -> str:
+    """What the find box is documented to read (review.js searchText), joined and lower-cased."""
+    keys = ("label", "operator", "relation", "alias", "schema", "index", "cte_name", "subplan_name", "function_name")
+    parts = [node[k] for k in keys if node.get(k)] + [c["text"] for c in node["conditions"] if c.get("text")]
+    return "\n".join(parts).lower()
+
+
+@NODE
+def test_search_matches_the_documented_fields_and_ids(tmp_path):
+    """Source: the report of plans/tpch/pg16/q22.serial.txt; each query's matches are worked out
+    here from the nodes' fields, apart from the module."""
+    nodes = planview.load(Q22).report()["nodes"]
+    queries = ["customer", "CUSTOMER", "c_acctbal", "seq scan", "#5", "#99", "  orders ", "", "zzz", "$0"]
+    got = _run_module(tmp_path, "console.log(JSON.stringify(data.queries.map((q) => pv.matchNodes(data.nodes, q))));",
+                      {"nodes": nodes, "queries": queries})
+    for query, ids in zip(queries, got):
+        needle = query.strip().lower()
+        if not needle:
+            expected = []
+        elif re.fullmatch(r"#\d+", needle):
+            expected = [n["id"] for n in nodes if n["id"] == int(needle[1:])]
+        else:
+            expected = [n["id"] for n in nodes if needle in _fields(n)]
+        assert ids == expected, query
+    assert got[0] and got[4] == [5] and got[5] == [] and got[8] == []
+    counts = _run_module(tmp_path, "console.log(JSON.stringify([0, 1, 2, 1234].map(pv.matchCount)));", {})
+    assert counts == ["no match", "1 match", "2 matches", "1,234 matches"]
+
+
+@NODE
+def test_the_detail_helpers_drop_repeats_and_empty_fields(tmp_path):
+    """On every finding of the PG 16 captures: the evidence table keeps no figure the numbers
+    table shows, no empty value, no nested record; a join's single table is dropped; the line
+    restating the numbers goes; the summary loses the cause key in front."""
+    findings, joins = [], []
+    for path in sorted(PG16.glob("*.json")):
+        if path.name.endswith(".expected.json"):
+            continue
+        try:
+            report = planview.load(path).report()
+        except planview.PlanviewError:
+            continue
+        for f in report["findings"]:
+            node = report["nodes"][f["node"]]
+            is_join = node["own_rule"] == "join" or bool(node["join_type"])
+            findings.append({"finding": f, "isJoin": is_join})
+            joins.append(is_join)
+    assert any(joins) and not all(joins)
+    got = _run_module(tmp_path, """console.log(JSON.stringify(data.map(({ finding, isJoin }) => ({
+        pairs: pv.evidencePairs(finding.evidence, { isJoin, lines: finding.evidence.lines || [] }),
+        lines: pv.evidenceLines(finding.evidence.lines),
+        summary: pv.summaryText(finding)}))));""", findings)
+    numbers = {"est rows", "actual rows", "starts", "est rows per start", "actual rows per start", "q error"}
+    for item, out in zip(findings, got):
+        finding = item["finding"]
+        keys = [k for k, _ in out["pairs"]]
+        assert not set(keys) & numbers, keys
+        assert all(str(v).strip() for _, v in out["pairs"]), out["pairs"]
+        assert "clauses" not in keys and "default" not in keys  # nested records stay out of the table
+        if item["isJoin"]:
+            assert "table" not in keys
+        for key, value in finding["evidence"].items():
+            if value in ([], None, "", {}):
+                assert key.replace("_", " ") not in keys, key
+        said = finding["evidence"].get("lines") or []
+        # the one line saying "Estimated N rows, found M: the estimate is ×F ..." (the status
+        # line and the numbers table say it) goes; "Estimated selectivity ..." and the rest stay
+        restated = [line for line in said if re.match(r"Estimated [\d,.]+ rows?, found [\d,.]+", line)]
+        assert len(restated) <= 1
+        assert out["lines"] == [line for line in said if line not in restated], said
+        cause_key = (finding["cause"] or "").replace("_", " ")
+        assert not out["summary"].lower().startswith(f"{cause_key}:"), out["summary"]
+        assert out["summary"].lower() in finding["summary"].lower()
+
+
+@NODE
+def test_the_review_opens_on_the_rank_one_origin(tmp_path):
+    reports = [planview.load(p).report() for p in (Q22, PG16 / "multi.json", PG16 / "well_estimated.json")]
+    data = [{"findings": r["findings"]} for r in reports]
+    got = _run_module(tmp_path, "console.log(JSON.stringify(data.map(pv.topOrigin)));", data)
+    assert got == [min(r["findings"], key=lambda f: f["rank"])["node"] if r["findings"] else None for r in reports]
+    assert got[-1] is None

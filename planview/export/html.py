@@ -11,6 +11,7 @@ report's data keeps the real strings.
 from __future__ import annotations
 
 import base64
+import gzip
 import hashlib
 import html
 import json
@@ -63,29 +64,45 @@ def compact_report(report: dict[str, Any]) -> dict[str, Any]:
     rows = [[None if _is_empty(v := node.get(key)) else v for key in columns] for node in nodes]
     packed = {k: v for k, v in report.items() if k != "nodes"}
     packed["nodes_packed"] = {"columns": columns, "rows": rows}
+    source = report.get("source")
+    if isinstance(source, dict) and source.get("text"):
+        packed["source"] = pack_source(source)
     return packed
 
 
+def pack_source(source: dict[str, Any]) -> dict[str, Any]:
+    """The plan as pasted, gzipped and in base64 (the ES module unpacks it with the browser's
+    DecompressionStream when the block is opened): a plan's text is mostly repeated keys and
+    indentation, so a 5,000-operator JSON plan's 2 MB become about a tenth of that."""
+    text = source["text"]
+    data = gzip.compress(text.encode("utf-8", "surrogatepass"), compresslevel=9, mtime=0)
+    return {"gzip_base64": base64.b64encode(data).decode("ascii"), "chars": source.get("chars", len(text)),
+            "cut": bool(source.get("cut")), "shown_chars": len(text), "lines": text.count("\n") + 1}
+
+
 def _json_for_script(value: Any) -> str:
-    """JSON that cannot end its <script> element or open a comment inside it."""
+    """JSON that cannot end its <script> element or open a comment inside it; "/" as "\\/"
+    (a JSON escape), so an address in the pasted plan's text reads as data, not as a link."""
     text = json.dumps(value, ensure_ascii=False, allow_nan=False, separators=(",", ":"))
-    return text.replace("<", "\\u003c").replace(">", "\\u003e").replace("&", "\\u0026") \
+    return text.replace("/", "\\/").replace("<", "\\u003c").replace(">", "\\u003e").replace("&", "\\u0026") \
         .replace("\u2028", "\\u2028").replace("\u2029", "\\u2029")
 
 
 _BOOT = """
 const planviewData = JSON.parse(document.getElementById("planview-data").textContent);
-const planviewState = { report: planviewData.report, selected: null, chart_mode: "svg", can_save: false };
+const planviewState = { report: planviewData.report, selected: topOrigin(planviewData.report), chart_mode: "svg", can_save: false };
 const planviewAsked = /^#node-(\\d+)$/.exec(window.location.hash || "");
 if (planviewAsked) planviewState.selected = Number(planviewAsked[1]);
 const planviewModel = localModel(planviewState);
-planviewModel.on("change:selected", () => {
+function planviewAddress() {
   const id = planviewModel.get("selected");
   try {
     window.history.replaceState(null, "", id === null ? window.location.pathname : `#node-${id}`);
   } catch (error) { /* a viewer that forbids it loses nothing but the address */ }
-});
+}
+planviewModel.on("change:selected", planviewAddress);
 render({ model: planviewModel, el: document.getElementById("planview-root") });
+if (planviewModel.get("selected") !== null) planviewAddress();  // the origin it opens on has an address too
 """
 
 
@@ -177,7 +194,7 @@ def render_static_tree(plan) -> str:
 
     out = [_STATIC_CSS, '<div class="pvs">']
     findings = report["findings"]
-    statement = (report["statements"] or [{}])[0]
+    statements = report["statements"]
     facts = [f"{report['engine']}" + (f" {report['engine_version']}" if report["engine_version"] else ""),
              f"{report['format']} format", _words.plural(len(nodes), "operator"),
              f"{_words.plural(len(findings), 'origin')} at {factor(report['threshold'])} or worse"]
@@ -185,8 +202,8 @@ def render_static_tree(plan) -> str:
     if len(statements) > 1 and report.get("total_ms") is not None:
         facts.append(f"{len(statements)} statements, {ms(report['total_ms'])} in all ("
                      + " + ".join(ms(s.get("time_ms")) for s in statements) + ")")
-    elif statement.get("execution_ms") is not None:
-        facts.append(f"ran {ms(statement['execution_ms'])}")
+    elif report.get("execution_ms") is not None:
+        facts.append(f"ran {ms(report['execution_ms'])}")
     out.append(f"<p><strong>Plan review</strong> · {esc(' · '.join(facts))}</p>")
     for n in report["notes"]:
         out.append(f"<p><em>{esc(n)}</em></p>")
@@ -194,8 +211,10 @@ def render_static_tree(plan) -> str:
     out.append(f'<p class="legend">estimate too high {legend} estimate too low · '
                "◆ origin: error starts here · ↳ carried from below · dashed: not judged</p>")
     out.append(note)
+    timed = any(n.get("self_ms") is not None for n in nodes)
     out.append("<table><thead><tr><th>operator</th><th class=\"n\">estimated</th>"
-               "<th class=\"n\">actual</th><th class=\"n\">starts</th><th>error</th><th></th>"
+               "<th class=\"n\">actual</th><th class=\"n\">starts</th>"
+               + ("<th class=\"n\">own time</th>" if timed else "") + "<th>error</th><th></th>"
                "</tr></thead><tbody>")
     findings_by_node = {f["node"]: f for f in findings}
     current = None
@@ -205,7 +224,7 @@ def render_static_tree(plan) -> str:
             said = statements[current]
             time = (f"ran {ms(said['execution_ms'])}" if said.get("execution_ms") is not None
                     else f"operators {ms(said['total_ms'])}" if said.get("total_ms") is not None else "")
-            out.append(f'<tr class="statement"><th colspan="6">statement {current + 1} of {len(statements)}'
+            out.append(f'<tr class="statement"><th colspan="{7 if timed else 6}">statement {current + 1} of {len(statements)}'
                        + (f" · {esc(time)}" if time else "") + "</th></tr>")
         state = node_state(node)
         ratio = node["log10_ratio"] if node.get("judged") else None
@@ -228,7 +247,8 @@ def render_static_tree(plan) -> str:
             f'<tr class="{state}"><td>{indent}#{node["id"]} {esc(node["label"] or node["operator"] or "")}</td>'
             f'<td class="n">{esc(rows(node["est_total"] if node["est_total"] is not None else node["est_rows"]))}</td>'
             f'<td class="n">{esc(rows(node["actual_total"]))}</td><td class="n">{esc(rows(node["starts"]))}</td>'
-            f"{err}<td>{esc(mark)}</td></tr>")
+            + (f'<td class="n">{esc(ms(node.get("self_ms")))}</td>' if timed else "")
+            + f"{err}<td>{esc(mark)}</td></tr>")
     out.append("</tbody></table>")
     if findings:
         out.append("<h4>Origins, most impact first</h4>")
@@ -262,4 +282,4 @@ def render_static_tree(plan) -> str:
     return "".join(out)
 
 
-__all__ = ["LARGE_PLAN", "compact_report", "render_html", "render_static_tree", "widget_css", "widget_module"]
+__all__ = ["LARGE_PLAN", "compact_report", "pack_source", "render_html", "render_static_tree", "widget_css", "widget_module"]

@@ -1,9 +1,9 @@
-"""The notebook review: the operator tree and its detail (one anywidget ES module), with
-plotly charts of the same plan in the same output.
+"""The notebook review: the operator tree, its origins and its detail, and the charts (one
+anywidget ES module, the same one the exported page runs, so both show the same charts).
 
 State is two synced traits on `PlanTree`: `report` (the plan's report as JSON, its nodes
 packed as columns and rows, which makes a 5,000-operator plan a quarter of the size on the
-wire) and `selected` (a node id or None). `PlanWidget` puts the tree and the charts together and mirrors
+wire) and `selected` (a node id or None). `PlanWidget` holds the tree and mirrors
 `selected`, so ``w.selected`` reads and moves the selection from Python.
 """
 
@@ -32,12 +32,13 @@ class PlanTree(anywidget.AnyWidget):
     report = traitlets.Dict().tag(sync=True)
     selected = traitlets.Int(None, allow_none=True).tag(sync=True)
     chart_mode = traitlets.Unicode("none").tag(sync=True)
-    """``svg``: the ES module draws its own charts (when plotly's widget is not there)."""
+    """``svg``: the ES module draws its charts under the tree (as in the exported page)."""
     can_save = traitlets.Bool(True).tag(sync=True)
 
 
 class PlanWidget(ipywidgets.VBox):
-    """The review of one plan: ``PlanWidget(plan)``; ``w.selected`` is the selected node id."""
+    """The review of one plan: ``PlanWidget(plan)``; ``w.selected`` is the selected node id,
+    the rank-1 origin when the review opens (None for a plan with no origin)."""
 
     selected = traitlets.Int(None, allow_none=True)
 
@@ -46,30 +47,13 @@ class PlanWidget(ipywidgets.VBox):
         self.save_dir = Path(save_dir) if save_dir is not None else None
         report = plan.report()
         self._node_ids = {n["id"] for n in report["nodes"]}
-        self.tree = PlanTree(report=compact_report(report))
-        self.charts = None
-        self._charts_wanted = bool(charts and report["nodes"])
+        top = min(report["findings"], key=lambda f: f["rank"])["node"] if report["findings"] else None
+        self.tree = PlanTree(report=compact_report(report), selected=top,
+                             chart_mode="svg" if charts and report["nodes"] else "none")
         super().__init__(children=[self.tree], **kwargs)
         self.add_class("planview-review")
         traitlets.link((self.tree, "selected"), (self, "selected"))
         self.tree.on_msg(self._on_front_message)
-
-    def show_charts(self):
-        """Build the plotly charts and put them under the tree (done by itself once the tree
-        is on screen, so a large plan's tree never waits for its charts)."""
-        if self.charts is not None or not self._charts_wanted:
-            return self.charts
-        try:
-            from .charts import PlanCharts
-
-            self.charts = PlanCharts(self.report, pick=self._pick)
-        except ImportError:
-            self.tree.chart_mode = "svg"
-            self._charts_wanted = False
-            return None
-        self.charts.highlight(self.selected)
-        self.children = (self.tree, self.charts.figure)
-        return self.charts
 
     @traitlets.validate("selected")
     def _check_selected(self, proposal):
@@ -77,11 +61,6 @@ class PlanWidget(ipywidgets.VBox):
         if value is not None and value not in self._node_ids:
             raise traitlets.TraitError(f"no node {value!r} in this plan (ids 0..{len(self._node_ids) - 1})")
         return value
-
-    @traitlets.observe("selected")
-    def _selected_moved(self, change):
-        if self.charts is not None:
-            self.charts.highlight(change["new"])
 
     @property
     def report(self) -> dict[str, Any]:
@@ -94,9 +73,6 @@ class PlanWidget(ipywidgets.VBox):
         if self.selected is None:
             return None
         return self.report["nodes"][self.selected]
-
-    def _pick(self, node_id: int) -> None:
-        self.selected = node_id
 
     def next_origin(self, step: int = 1) -> int | None:
         """Select the next origin in impact order (``step=-1``: the previous one)."""
@@ -125,9 +101,6 @@ class PlanWidget(ipywidgets.VBox):
 
     def _on_front_message(self, _widget, content, _buffers):
         if not isinstance(content, dict):
-            return
-        if content.get("kind") == "drawn":
-            self.show_charts()
             return
         if content.get("kind") != "save":
             return

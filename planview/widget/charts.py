@@ -1,5 +1,7 @@
-"""The plotly charts of a review: estimated against actual rows on log-log axes with the
-tenfold band, and the signed error by tree depth. A click on a point selects its node."""
+"""The review's two charts as a plotly figure, for building on in a notebook: estimated
+against actual rows on log-log axes with the tenfold band, and the signed error by tree depth.
+A click on a point calls ``pick`` with its node id. The review itself (widget and exported
+page) draws the same two charts as SVG in review.js, so both surfaces show one chart set."""
 
 from __future__ import annotations
 

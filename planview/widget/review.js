@@ -179,6 +179,102 @@ function causeWords(cause) {
   return CAUSE_WORDS[cause] || String(cause).replace(/_/g, " ");
 }
 
+// The report's words for a finding's cause (report.findings[i].text.cause), with this
+// module's table only for a report that has none.
+function findingCause(finding) {
+  return (finding && finding.text && finding.text.cause) || causeWords(finding && finding.cause);
+}
+
+// What the find box matches: a node's label, operator, relation, alias, index and condition
+// texts, lower-cased once per plan. "#12" matches node 12 only.
+export function searchText(node) {
+  return [node.label, node.operator, node.relation, node.alias, node.schema, node.index, node.cte_name,
+    node.subplan_name, node.function_name, ...(node.conditions || []).map((c) => c && c.text)]
+    .filter((t) => t !== null && t !== undefined && t !== "").map((t) => visible(t)).join("\n").toLowerCase();
+}
+
+// The ids of the nodes (in the order given) that the query matches; [] for an empty query.
+// `texts` (optional) is a Map from id to searchText, so typing does not rebuild the strings.
+export function matchNodes(nodes, query, texts) {
+  const needle = String(query ?? "").trim().toLowerCase();
+  if (!needle) return [];
+  const byId = /^#(\d+)$/.exec(needle);
+  if (byId) return nodes.filter((n) => n.id === Number(byId[1])).map((n) => n.id);
+  const out = [];
+  for (const node of nodes) {
+    const hay = texts ? texts.get(node.id) : searchText(node);
+    if (hay !== undefined && hay.includes(needle)) out.push(node.id);
+  }
+  return out;
+}
+
+export function matchCount(count) {
+  if (!count) return "no match";
+  return `${count.toLocaleString("en-US")} ${count === 1 ? "match" : "matches"}`;
+}
+
+// The evidence a finding carries, less what the detail panel shows already: the numbers
+// table's figures (rows, starts, q-error), empty values, nested records, the list of rules
+// checked when a line says it, and a single table name for a join (its inputs' relations go
+// in its place when the caller knows them). Returns [key, shown value] pairs.
+const NUMBERS_TABLE_KEYS = new Set([
+  "est_rows", "actual_rows", "starts", "est_rows_per_start", "actual_rows_per_start", "est_total",
+  "actual_total", "q_error", "own_q_error", "log10_ratio", "own_log10_ratio", "loops",
+]);
+
+function isEmptyValue(value) {
+  return value === null || value === undefined || value === ""
+    || (Array.isArray(value) && value.every((x) => x === null || x === undefined || x === ""))
+    || (typeof value === "object" && !Array.isArray(value) && Object.keys(value).length === 0);
+}
+
+export function evidencePairs(evidence, { isJoin = false, inputRelations = [], lines = [] } = {}) {
+  const out = [];
+  if (!evidence || typeof evidence !== "object") return out;
+  const saysChecked = lines.some((line) => /^Checked\b/.test(String(line)));
+  for (const [key, value] of Object.entries(evidence)) {
+    if (key === "lines" || NUMBERS_TABLE_KEYS.has(key) || isEmptyValue(value)) continue;
+    if (key === "checked" && saysChecked) continue;
+    if (typeof value === "object" && !(Array.isArray(value) && value.every((x) => x === null || typeof x !== "object"))) continue;
+    if ((key === "table" || key === "relation") && isJoin) {
+      // a join reads two inputs: name both (unless the evidence lists its tables already)
+      if (inputRelations.length >= 2 && isEmptyValue(evidence.tables)) out.push(["relations of its inputs", inputRelations.join(", ")]);
+      continue;
+    }
+    out.push([key.replace(/_/g, " "), Array.isArray(value) ? value.filter((x) => !isEmptyValue(x)).map(evidenceValue).join(", ") : evidenceValue(value)]);
+  }
+  return out;
+}
+
+// Evidence lines, less the one that restates the status line and the numbers table
+// ("Estimated 1,000 rows, found 50,104: the estimate is ×50 too low here.").
+export function evidenceLines(lines) {
+  return (Array.isArray(lines) ? lines : []).map(String).filter((line) => line.trim() && !/^Estimated [^:]*\bfound\b[^:]*: the estimate is\b/.test(line));
+}
+
+// A finding's summary without the cause's key in front of it (the cause line says it in words).
+export function summaryText(finding) {
+  let text = String(finding.summary || "").trim();
+  const key = finding.cause ? String(finding.cause).replace(/_/g, " ") : "";
+  if (key && text.toLowerCase().startsWith(`${key.toLowerCase()}:`)) text = text.slice(key.length + 1).trim();
+  return text ? text.charAt(0).toUpperCase() + text.slice(1) : "";
+}
+
+// The pasted text from the report's `source`: as it is, or unpacked from gzip and base64.
+export async function sourceText(source) {
+  if (typeof source.text === "string") return source.text;
+  const bytes = Uint8Array.from(atob(source.gzip_base64), (c) => c.charCodeAt(0));
+  const stream = new Blob([bytes]).stream().pipeThrough(new DecompressionStream("gzip"));
+  return new Response(stream).text();
+}
+
+// The rank-1 origin's node id, or null: what the review selects when it opens.
+export function topOrigin(report) {
+  const findings = (report && Array.isArray(report.findings) ? report.findings : []).filter((f) => Number.isInteger(f.node));
+  if (!findings.length) return null;
+  return findings.reduce((best, f) => ((f.rank ?? Infinity) < (best.rank ?? Infinity) ? f : best)).node;
+}
+
 const GENERIC_CAUTION =
   "Run fixes on a replica or in a quiet hour first: ANALYZE reads a sample of the table, " +
   "CREATE STATISTICS and index builds take locks, and re-checking with EXPLAIN ANALYZE runs the statement.";
@@ -290,6 +386,10 @@ class Review {
     this.onlyOrigins = false;
     this.colourBy = "whole";
     this.rowsById = new Map();
+    this.originItems = new Map();
+    this.query = "";
+    this.matches = [];
+    this.matchSet = new Set();
     this.listeners = [];
     this.root = el("div", {
       class: "pv-review", tabindex: "0", "data-lm-suppress-shortcuts": "true",
@@ -336,10 +436,14 @@ class Review {
     const report = this.model.get("report") || {};
     this.plan = indexPlan(report);
     this.open = openingSet(this.plan);
+    // plain EXPLAIN prints no time: no column of dashes
+    this.root.classList.toggle("pv-untimed", !this.plan.nodes.some((n) => n.self_ms !== null && n.self_ms !== undefined));
     this.root.replaceChildren();
     this.root.appendChild(this.buildHeader());
     this.root.appendChild(this.buildToolbar());
     this.root.appendChild(this.buildLegend());
+    const lists = this.buildLists();
+    if (lists) this.root.appendChild(lists);
     this.treePane = el("div", { class: "pv-tree", role: "tree", "aria-label": "operators" });
     this.detailPane = el("aside", { class: "pv-detail", "aria-live": "polite" });
     this.root.appendChild(el("div", { class: "pv-body" }, this.treePane, this.detailPane));
@@ -348,14 +452,12 @@ class Review {
       this.chartPane = el("div", { class: "pv-charts" });
       this.root.appendChild(this.chartPane);
     }
+    this.searchTexts = null;
+    this.setQuery(this.query);
     this.drawTree();
     this.root.setAttribute("data-drawn", String(this.plan.nodes.length));
     if (typeof requestAnimationFrame === "function" && typeof performance !== "undefined") {
       requestAnimationFrame(() => this.root.setAttribute("data-painted-ms", performance.now().toFixed(1)));
-    }
-    if (!this.announced) {
-      this.announced = true;
-      this.model.send({ kind: "drawn" });  // the kernel adds the charts once the tree is up
     }
     this.showSelection();
     if (this.chartPane) {
@@ -368,11 +470,12 @@ class Review {
   buildHeader() {
     const r = this.plan.report;
     const statements = r.statements || [];
-    const statement = statements.length === 1 ? statements[0] : {
-      execution_ms: statements.some((s) => s.execution_ms !== null && s.execution_ms !== undefined)
-        ? statements.reduce((sum, s) => sum + (s.execution_ms || 0), 0) : null,
-      planning_ms: statements.some((s) => s.planning_ms !== null && s.planning_ms !== undefined)
-        ? statements.reduce((sum, s) => sum + (s.planning_ms || 0), 0) : null,
+    // the paste's times: the report sums its statements once (report.execution_ms)
+    const summed = (key) => (r[key] !== undefined ? r[key]
+      : statements.some((s) => s[key] !== null && s[key] !== undefined) ? statements.reduce((sum, s) => sum + (s[key] || 0), 0) : null);
+    const statement = {
+      execution_ms: summed("execution_ms"),
+      planning_ms: summed("planning_ms"),
       query_text: statements.map((s) => s.query_text).filter(Boolean).join("\n\n") || null,
     };
     const facts = [
@@ -392,23 +495,91 @@ class Review {
       extra.push(el("details", { class: "pv-query" }, el("summary", {}, "Query text"),
         el("pre", {}, textBlock(statement.query_text))));
     }
-    const slowest = this.slowestList();
-    if (slowest) extra.push(slowest);
+    const pasted = this.sourceBlock();
+    if (pasted) extra.push(pasted);
     return el("div", {}, header, extra);
+  }
+
+  // The plan exactly as pasted (the report's `source`: its text, or gzipped in base64 as the
+  // page and the widget carry it), filled when first opened.
+  sourceBlock() {
+    const source = this.plan.report.source;
+    if (!source || typeof source !== "object" || !(source.text || source.gzip_base64)) return null;
+    const lines = source.lines ?? String(source.text).split("\n").length;
+    const shown = source.shown_chars ?? String(source.text).length;
+    const pre = el("pre", { class: "pv-source-text" });
+    const box = el("details", { class: "pv-source" },
+      el("summary", {}, `Plan as pasted (${Number(lines).toLocaleString("en-US")} line${lines === 1 ? "" : "s"})`));
+    if (source.cut) {
+      box.appendChild(el("div", { class: "pv-note" },
+        `Shown: the first ${Number(shown).toLocaleString("en-US")} of ${Number(source.chars).toLocaleString("en-US")} characters.`));
+    }
+    box.appendChild(pre);
+    let asked = false;
+    box.addEventListener("toggle", () => {
+      if (!box.open || asked) return;
+      asked = true;
+      sourceText(source).then(
+        (text) => { pre.replaceChildren(textBlock(text)); pre.setAttribute("data-filled", "true"); },
+        () => { pre.replaceChildren(document.createTextNode("This browser cannot unpack the text (it needs DecompressionStream).")); });
+    });
+    return box;
+  }
+
+  // The origins (rank, node, cause, impact, the error it adds) and the slowest operators,
+  // side by side above the tree; each origin is a button that selects it.
+  buildLists() {
+    const origins = this.originsList();
+    const slowest = this.slowestList();
+    if (!origins && !slowest) return null;
+    return el("div", { class: "pv-lists" }, origins, slowest);
+  }
+
+  originsList() {
+    this.originItems = new Map();
+    const findings = this.plan.findings;
+    if (!findings.length) return null;
+    const head = el("div", { class: "pv-origin-item pv-origin-head", "aria-hidden": "true" },
+      el("span", { class: "pv-o-rank" }, "rank"), el("span", { class: "pv-o-node" }, "operator"),
+      el("span", { class: "pv-o-cause" }, "cause"), el("span", { class: "pv-o-impact" }, "time under it"),
+      el("span", { class: "pv-o-added" }, "error it adds"));
+    const items = findings.map((f) => {
+      const node = this.plan.byId.get(f.node);
+      const impact = f.impact && typeof f.impact === "object" ? f.impact : {};
+      const ms = impact.origin_ms ?? impact.ms;
+      const share = impact.origin_ms !== null && impact.origin_ms !== undefined ? impact.origin_share : impact.share;
+      const timeText = ms === null || ms === undefined ? "–"
+        : `${formatMs(ms)}${share !== null && share !== undefined ? ` · ${Math.round(share * 100)}%` : ""}`;
+      const added = (node && node.text && node.text.added) || (f.text && f.text.added) || "–";
+      const button = el("button", {
+        type: "button", class: "pv-origin-item", "data-node": String(f.node), "aria-pressed": "false",
+        title: `${(f.text && f.text.rank) || `origin ${f.rank}`}: select #${f.node}`,
+      },
+      el("span", { class: "pv-o-rank" }, String(f.rank ?? "")),
+      el("span", { class: "pv-o-node" }, el("span", { class: "pv-o-id" }, `#${f.node}`), " ", node ? node.label || node.operator || "" : ""),
+      el("span", { class: "pv-o-cause" }, findingCause(f) || "not diagnosed yet"),
+      el("span", { class: "pv-o-impact" }, timeText),
+      el("span", { class: "pv-o-added" }, added));
+      button.addEventListener("click", () => this.select(f.node));
+      this.originItems.set(f.node, button);
+      return button;
+    });
+    return el("section", { class: "pv-origins", "aria-label": "origins, most impact first" },
+      el("h4", {}, `Where the error starts: ${findings.length} origin${findings.length === 1 ? "" : "s"}, most impact first`),
+      el("div", { class: "pv-origin-list" }, head, items));
   }
 
   slowestList() {
     const items = this.plan.report.slowest || [];
     if (!items.length) return null;
-    const box = el("details", { class: "pv-slowest" },
-      el("summary", {}, "Slowest operators, by own time"),
+    const box = el("section", { class: "pv-slowest", "aria-label": "slowest operators" },
+      el("h4", {}, "Slowest operators, by own time"),
       el("ol", {}, items.map((item) => el("li", { "data-node": String(item.node) },
         this.nodeLink(item.node, "pv-slowest-link"), " ",
         `${formatMs(item.self_ms)} own`,
         item.share !== null && item.share !== undefined ? ` (${(item.share * 100).toFixed(1)}%)` : "",
         `, ${formatMs(item.total_ms)} with its inputs`,
         item.origin ? el("span", { class: "pv-slowest-origin" }, " · origin") : ""))));
-    box.open = true;
     return box;
   }
 
@@ -449,15 +620,30 @@ class Review {
       this.drawTree();
       this.showSelection();
     });
-    const find = el("input", { type: "search", class: "pv-find", placeholder: "find operator, table, filter…", "aria-label": "find", spellcheck: "false" });
+    const find = el("input", {
+      type: "search", class: "pv-find", placeholder: "find operator, table, filter, #id…", "aria-label": "find",
+      spellcheck: "false", title: "Matches as you type; Enter: next match, Shift+Enter: previous",
+    });
+    find.value = this.query;
+    this.findCount = el("span", { class: "pv-find-count", "aria-live": "polite" });
+    find.addEventListener("input", () => {
+      this.setQuery(find.value);
+      this.markMatches();
+    });
     find.addEventListener("keydown", (event) => {
       if (event.key === "Enter") {
         event.preventDefault();
-        this.findNext(find.value, event.shiftKey ? -1 : 1);
+        this.findNext(event.shiftKey ? -1 : 1);
+      } else if (event.key === "Escape" && find.value) {
+        event.preventDefault();
+        find.value = "";
+        this.setQuery("");
+        this.markMatches();
       }
       event.stopPropagation();
     });
-    append(bar, [onlyLabel, prev, this.position, next, openAll, fold, colour, find]);
+    append(bar, [onlyLabel, prev, this.position, next, openAll, fold, colour,
+      el("span", { class: "pv-find-box" }, find, this.findCount)]);
     if (this.model.get("can_save")) {
       const save = el("button", { type: "button", class: "pv-save", title: "Write the review page and the ticket text next to the notebook" }, "Save for ticket");
       save.addEventListener("click", () => {
@@ -479,10 +665,11 @@ class Review {
     }
     const ticks = el("span", { class: "pv-ticks", "aria-hidden": "true" },
       ["×10⁴", "×1000", "×100", "×10", "1", "×10", "×100", "×1000", "×10⁴"].map((t) => el("span", {}, t)));
+    const said = this.plan.report.words || {};
     return el("div", { class: "pv-legend", role: "note" },
-      el("span", { class: "pv-legend-end" }, "estimate too high"),
+      el("span", { class: "pv-legend-end" }, said.scale_low || "estimate too high"),
       el("span", { class: "pv-scale" }, strip, ticks),
-      el("span", { class: "pv-legend-end" }, "estimate too low"),
+      el("span", { class: "pv-legend-end" }, said.scale_high || "estimate too low"),
       el("span", { class: "pv-key" }, el("span", { class: "pv-badge pv-badge-origin" }, "◆ origin"), " error starts here"),
       el("span", { class: "pv-key" }, el("span", { class: "pv-badge pv-badge-inherited" }, "↳ carried"), " error from below"),
       el("span", { class: "pv-key" }, el("span", { class: "pv-chip pv-chip-neutral" }), " not judged"),
@@ -527,7 +714,10 @@ class Review {
       el("span", { class: "pv-num" }, "starts"),
       el("span", { class: "pv-num pv-own-ms", title: "own time, in all starts (its inputs' taken out)" }, "own ms"),
       el("span", { class: "pv-err" }, "error")));
+    const statements = this.plan.report.statements || [];
+    const statementAt = new Map(statements.length > 1 ? statements.map((st, i) => [st.root, i]) : []);
     for (const node of rows) {
+      if (statementAt.has(node.id)) fragment.appendChild(this.statementRow(statements, statementAt.get(node.id)));
       const row = this.buildRow(node);
       this.rowsById.set(node.id, row);
       fragment.appendChild(row);
@@ -537,6 +727,20 @@ class Review {
     this.position.textContent = this.positionText();
   }
 
+  // A header row over each statement's operators, with the statement's own times.
+  statementRow(statements, index) {
+    const st = statements[index];
+    const facts = [];
+    if (st.execution_ms !== null && st.execution_ms !== undefined) facts.push(`ran ${formatMs(st.execution_ms)}`);
+    else if (st.total_ms !== null && st.total_ms !== undefined) facts.push(`operators ${formatMs(st.total_ms)}`);
+    if (st.planning_ms !== null && st.planning_ms !== undefined) facts.push(`planned ${formatMs(st.planning_ms)}`);
+    const query = st.query_text ? String(st.query_text).replace(/\s+/g, " ").trim() : "";
+    return el("div", { class: "pv-statement-row", "data-statement": String(index), role: "presentation" },
+      el("strong", {}, `Statement ${index + 1} of ${statements.length}`),
+      facts.length ? el("span", { class: "pv-statement-time" }, ` · ${facts.join(" · ")}`) : "",
+      query ? el("span", { class: "pv-statement-query", title: query }, ` · ${query}`) : "");
+  }
+
   buildRow(node) {
     const state = nodeState(node);
     const ratio = ratioOf(node, this.colourBy);
@@ -544,7 +748,7 @@ class Review {
     const isOpen = this.open.has(node.id);
     const context = this.onlyOrigins && !node.origin;
     const row = el("div", {
-      class: `pv-row pv-${state}${context ? " pv-context" : ""}`, role: "treeitem",
+      class: `pv-row pv-${state}${context ? " pv-context" : ""}${this.matchSet.has(node.id) ? " pv-match" : ""}`, role: "treeitem",
       "aria-level": String((node.depth ?? 0) + 1), "aria-selected": "false",
       "aria-expanded": hasKids && !this.onlyOrigins ? String(isOpen) : null, "data-id": String(node.id),
     });
@@ -571,6 +775,7 @@ class Review {
     } else if (node.cte_name && !node.relation && node.parent_relationship === "InitPlan") {
       op.appendChild(el("span", { class: "pv-sub" }, `CTE ${node.cte_name}`));
     }
+    op.appendChild(el("span", { class: "pv-id" }, (node.text && node.text.id) || `#${node.id}`));
     op.appendChild(el("span", { class: "pv-label", title: node.label || node.operator || "" }, node.label || node.operator || "?"));
     if (hasKids && !isOpen && !this.onlyOrigins) {
       const hidden = this.plan.subtreeSize.get(node.id);
@@ -584,8 +789,9 @@ class Review {
       if (!node.judged && node.not_judged_reason) err.setAttribute("title", visible(`not judged: ${node.not_judged_reason}`));
     } else {
       const q = this.colourBy === "own" ? Math.pow(10, Math.abs(ratio)) : node.q_error;
-      err.textContent = shortError(ratio, q);
-      err.setAttribute("title", errorWords(ratio, q));
+      const said = this.colourBy === "own" ? null : node.text && node.text.error;
+      err.textContent = said || shortError(ratio, q);
+      err.setAttribute("title", said || errorWords(ratio, q));
       err.style.background = ratioColour(ratio);
       err.style.color = inkFor(ratio);
     }
@@ -594,7 +800,7 @@ class Review {
       op.insertBefore(el("span", {
         class: "pv-badge pv-badge-origin",
         title: `origin ${finding ? finding.rank : ""}${finding && finding.cause ? ": " + causeWords(finding.cause) : ""}`,
-      }, `◆${finding ? finding.rank : ""}`), op.querySelector(".pv-label"));
+      }, `◆${finding ? finding.rank : ""}`), op.querySelector(".pv-id"));
     } else if (state === "inherited") {
       op.appendChild(el("span", { class: "pv-badge pv-badge-inherited", title: "carries the error of these origins" },
         `↳ #${node.inherits_from.slice(0, 3).join(", #")}`));
@@ -637,6 +843,12 @@ class Review {
       row.classList.remove("pv-selected");
       row.setAttribute("aria-selected", "false");
     }
+    for (const [id, item] of this.originItems) {
+      const on = id === this.selected;
+      item.classList.toggle("pv-origin-item-selected", on);
+      item.setAttribute("aria-pressed", String(on));
+      if (on && scroll) keepInView(item);
+    }
     const row = this.rowsById.get(this.selected);
     if (row) {
       row.classList.add("pv-selected");
@@ -671,19 +883,38 @@ class Review {
     this.select(list[next].node);
   }
 
-  findNext(text, direction) {
-    const needle = text.trim().toLowerCase();
-    if (!needle) return;
-    const order = this.plan.order;
-    const hay = (n) => [n.label, n.relation, n.alias, n.index, ...(n.conditions || []).map((c) => c.text)]
-      .filter(Boolean).map((t) => visible(t)).join(" ").toLowerCase();
-    const start = Math.max(0, order.findIndex((n) => n.id === this.selected));
-    for (let k = 1; k <= order.length; k++) {
-      const node = order[(start + direction * k + order.length * k) % order.length];
-      if (hay(node).includes(needle)) {
-        this.select(node.id);
-        return;
-      }
+  // The find box: every node that matches, in tree order; rows shown get `pv-match`.
+  setQuery(text) {
+    this.query = String(text ?? "");
+    if (this.query.trim() && !this.searchTexts) {
+      this.searchTexts = new Map(this.plan.order.map((n) => [n.id, searchText(n)]));
+      this.orderIndex = new Map(this.plan.order.map((n, i) => [n.id, i]));
+    }
+    this.matches = matchNodes(this.plan.order, this.query, this.searchTexts);
+    this.matchSet = new Set(this.matches);
+    if (this.findCount) {
+      this.findCount.textContent = this.query.trim() ? matchCount(this.matches.length) : "";
+      this.findCount.classList.toggle("pv-find-none", Boolean(this.query.trim()) && !this.matches.length);
+    }
+  }
+
+  // The rows on screen take or lose the match mark (no redraw: typing stays quick on a big tree).
+  markMatches() {
+    for (const [id, row] of this.rowsById) row.classList.toggle("pv-match", this.matchSet.has(id));
+  }
+
+  // Enter / Shift+Enter: the next / previous match after the selected node, in tree order.
+  findNext(direction) {
+    const list = this.matches;
+    if (!list.length) return;
+    const here = this.orderIndex.get(this.selected);
+    let next;
+    if (here === undefined) next = direction > 0 ? list[0] : list[list.length - 1];
+    else if (direction > 0) next = list.find((id) => this.orderIndex.get(id) > here) ?? list[0];
+    else next = [...list].reverse().find((id) => this.orderIndex.get(id) < here) ?? list[list.length - 1];
+    this.select(next);
+    if (this.findCount) {
+      this.findCount.textContent = `${list.indexOf(next) + 1} of ${matchCount(list.length)}`;
     }
   }
 
@@ -735,15 +966,19 @@ class Review {
       return;
     }
     const finding = this.plan.findingOf.get(node.id);
+    // status, then cause, fix and caution (seen without scrolling), then the figures
     const parts = [el("h3", { class: "pv-detail-title" }, `#${node.id} `, node.label || node.operator || "")];
     parts.push(this.statusLine(node, finding));
-    parts.push(this.numbersTable(node));
-    if ((node.conditions || []).length) {
-      parts.push(el("h4", {}, "Conditions"));
-      parts.push(el("dl", { class: "pv-conditions" }, node.conditions.map((c) => [
-        el("dt", {}, c.key || c.kind || ""), el("dd", {}, el("code", {}, c.text ?? ""))])));
-    }
     if (finding) parts.push(...this.findingParts(finding));
+    parts.push(el("h4", {}, "Numbers"));
+    parts.push(this.numbersTable(node));
+    const conditions = (node.conditions || []).filter((c) => c && c.text !== null && c.text !== undefined && String(c.text).trim());
+    if (conditions.length) {
+      parts.push(el("h4", {}, "Conditions"));
+      parts.push(el("dl", { class: "pv-conditions" }, conditions.map((c) => [
+        el("dt", {}, c.key || c.kind || "condition"), el("dd", {}, el("code", {}, c.text))])));
+    }
+    if (finding) parts.push(...this.evidenceParts(finding, node));
     if ((node.derived || []).length) {
       parts.push(el("h4", {}, "How the numbers were read"));
       parts.push(el("ul", { class: "pv-derived" }, node.derived.map((d) => el("li", {}, d))));
@@ -761,21 +996,24 @@ class Review {
 
   statusLine(node, finding) {
     const status = el("div", { class: `pv-status pv-status-${nodeState(node)}` });
+    const text = node.text || {};
+    const inAll = text.error || errorWords(node.log10_ratio, node.q_error);
     if (node.origin) {
       const own = node.own_log10_ratio;
+      const added = text.added || (own === null || own === undefined ? null : `adds ${shortError(own)}`);
       append(status, [el("strong", {}, `Origin${finding ? ` ${finding.rank} of ${this.plan.findings.length}` : ""}: `),
-        own === null || own === undefined ? "the error starts here" :
-          `the estimate goes ${formatFactor(Math.pow(10, Math.abs(own)))} ${own > 0 ? "too low" : "too high"} at this operator`,
-        finding && finding.q_error && finding.own_q_error && Math.abs(finding.q_error - finding.own_q_error) > 0.01
-          ? ` (${formatFactor(finding.q_error)} in all, with its inputs)` : ""]);
+        "the error starts here. ",
+        added ? el("span", { class: "pv-added" }, `Here: ${added}`) : "",
+        // the error with its inputs, when its inputs bring some of it (else it is the same figure)
+        added && added.endsWith(inAll) ? "" : [added ? " · " : "", el("span", { class: "pv-in-all" }, `with its inputs: ${inAll}`)]]);
     } else if (node.inherits_from && node.inherits_from.length) {
       append(status, [el("strong", {}, "Carried error: "),
-        `off by ${formatFactor(node.q_error)} here, but the error comes from below. Go to `,
+        `${inAll} here, but the error comes from below. Go to `,
         node.inherits_from.map((id, i) => [i ? ", " : "", this.nodeLink(id, "pv-origin-link")])]);
     } else if (!node.judged) {
       append(status, [el("strong", {}, "Not judged: "), node.not_judged_reason || "no comparable numbers"]);
     } else {
-      append(status, [el("strong", {}, "Within the threshold: "), errorWords(node.log10_ratio, node.q_error)]);
+      append(status, [el("strong", {}, "Within the threshold: "), inAll]);
     }
     return status;
   }
@@ -801,40 +1039,30 @@ class Review {
     for (const [key, value] of Object.entries(node.rows_removed || {})) rows.push([`removed by ${key.toLowerCase()}, per start`, formatRows(value)]);
     for (const [key, value] of Object.entries(node.buffers || {})) rows.push([`buffers: ${key}`, formatRows(value)]);
     if (node.workers_planned !== null && node.workers_planned !== undefined) rows.push(["workers planned / launched", `${node.workers_planned} / ${node.workers_launched ?? "–"}`]);
-    return el("table", { class: "pv-numbers" }, el("tbody", {}, rows.map(([k, v]) => el("tr", {}, el("th", {}, k), el("td", {}, v)))));
+    return el("table", { class: "pv-numbers" }, el("tbody", {}, rows.filter(([, v]) => v !== "–" && v !== "– / –").map(([k, v]) => el("tr", {}, el("th", {}, k), el("td", {}, v)))));
   }
 
   findingParts(finding) {
     const parts = [el("h4", {}, "What the statistics probably missed")];
-    const cause = causeWords(finding.cause);
+    const cause = findingCause(finding);
     const causeLine = el("div", { class: "pv-cause" });
     causeLine.setAttribute("data-cause", finding.cause || "");
     append(causeLine, [el("strong", {}, cause ? cause.charAt(0).toUpperCase() + cause.slice(1) : "Not diagnosed yet"),
       finding.confidence !== null && finding.confidence !== undefined ? el("span", { class: "pv-confidence" }, ` confidence ${Math.round(finding.confidence * 100)}%`) : "",
-      (finding.also || []).length ? el("span", { class: "pv-also" }, `; also possible: ${finding.also.map(causeWords).join(", ")}`) : ""]);
+      (finding.also || []).length ? el("span", { class: "pv-also" }, `; also possible: ${((finding.text && finding.text.also) || finding.also.map(causeWords)).join(", ")}`) : ""]);
     parts.push(causeLine);
-    if (finding.summary) parts.push(el("p", { class: "pv-summary" }, finding.summary));
-    if (finding.confidence_reason) parts.push(el("p", { class: "pv-confidence-reason" }, finding.confidence_reason));
-    const evidence = finding.evidence && typeof finding.evidence === "object" ? finding.evidence : {};
-    if (Array.isArray(evidence.lines) && evidence.lines.length) {
-      parts.push(el("ul", { class: "pv-evidence-lines" }, evidence.lines.map((line) => el("li", {}, String(line)))));
-    }
-    const pairs = Object.entries(evidence).filter(([k, v]) => k !== "lines" && v !== null && v !== undefined
-      && (typeof v !== "object" || (Array.isArray(v) && v.every((x) => x === null || typeof x !== "object"))));
-    if (pairs.length) {
-      parts.push(el("table", { class: "pv-evidence" }, el("tbody", {}, pairs.map(([k, v]) => el("tr", {},
-        el("th", {}, k.replace(/_/g, " ")), el("td", {}, Array.isArray(v) ? v.map(evidenceValue).join(", ") : evidenceValue(v)))))));
-    }
+    const summary = summaryText(finding);
+    if (summary) parts.push(el("p", { class: "pv-summary" }, summary));
     const impact = finding.impact && typeof finding.impact === "object" ? finding.impact : {};
-    if (impact.text || (impact.ms !== null && impact.ms !== undefined)) {
-      parts.push(el("p", { class: "pv-impact" }, el("strong", {}, "Impact: "),
-        impact.ms !== null && impact.ms !== undefined ? `${formatMs(impact.ms)}. ` : "", impact.text || ""));
-    }
     if (impact.origin_ms !== null && impact.origin_ms !== undefined) {
       parts.push(el("p", { class: "pv-impact-time" }, el("strong", {}, "Time under it: "),
         `${formatMs(impact.origin_ms)} with its inputs`,
         impact.origin_share !== null && impact.origin_share !== undefined
           ? `, ${Math.round(impact.origin_share * 100)}% of the query` : ""));
+    }
+    // where the error ends up, when that is above the origin (at the origin it is the line above)
+    if (impact.text && (impact.node !== finding.node || impact.origin_ms === null || impact.origin_ms === undefined)) {
+      parts.push(el("p", { class: "pv-impact" }, el("strong", {}, "Where the error ends up: "), impact.text));
     }
     if (finding.fix) {
       parts.push(el("h4", {}, "Suggested fix"));
@@ -853,6 +1081,48 @@ class Review {
     return parts;
   }
 
+  // The evidence, after the numbers: what the numbers table and the status line do not say.
+  evidenceParts(finding, node) {
+    const evidence = finding.evidence && typeof finding.evidence === "object" ? finding.evidence : {};
+    const derived = (node.derived || []).map((d) => String(d).toLowerCase());
+    const lines = evidenceLines(evidence.lines).filter((line) => !derived.some((d) => d && line.toLowerCase().includes(d)));
+    const isJoin = node.own_rule === "join" || Boolean(node.join_type);
+    const pairs = evidencePairs(evidence, { isJoin, inputRelations: isJoin ? this.inputRelations(node) : [], lines: evidence.lines || [] });
+    const parts = [];
+    const summary = summaryText(finding).toLowerCase();
+    const reason = finding.confidence_reason && !summary.includes(String(finding.confidence_reason).trim().toLowerCase())
+      ? finding.confidence_reason : null;
+    if (lines.length || pairs.length || reason) parts.push(el("h4", {}, "Evidence"));
+    if (reason) parts.push(el("p", { class: "pv-confidence-reason" }, reason));
+    if (lines.length) parts.push(el("ul", { class: "pv-evidence-lines" }, lines.map((line) => el("li", {}, line))));
+    if (pairs.length) {
+      parts.push(el("table", { class: "pv-evidence" }, el("tbody", {}, pairs.map(([k, v]) => el("tr", {},
+        el("th", {}, k), el("td", {}, v))))));
+    }
+    return parts;
+  }
+
+  // For a join: the first relation read under each of its inputs (a walk of its subtree,
+  // done for the one selected node).
+  inputRelations(node) {
+    const out = [];
+    for (const childId of node.children || []) {
+      const queue = [childId];
+      const seen = new Set();
+      for (let head = 0; head < queue.length; head++) {
+        const n = this.plan.byId.get(queue[head]);
+        if (!n || seen.has(n.id)) continue;
+        seen.add(n.id);
+        if (n.relation) {
+          out.push(n.alias && n.alias !== n.relation ? `${n.relation} ${n.alias}` : n.relation);
+          break;
+        }
+        for (const c of n.children || []) queue.push(c);
+      }
+    }
+    return out;
+  }
+
   onMessage(msg) {
     if (!msg || typeof msg !== "object" || !this.saveStatus) return;
     if (msg.kind === "saved") this.saveStatus.textContent = visible(`saved ${(msg.paths || []).join(" and ")}`);
@@ -866,6 +1136,16 @@ class Review {
     this.chartPane.replaceChildren(...this.charts.elements);
     this.charts.highlight(this.selected);
   }
+}
+
+// Scroll an origins-list row into its list's view, moving nothing else on the page.
+function keepInView(item) {
+  const list = item.parentElement;
+  if (!list || !list.clientHeight) return;
+  const top = item.offsetTop;  // the list is the rows' offset parent (position: relative)
+  const head = list.firstElementChild && list.firstElementChild !== item ? list.firstElementChild.offsetHeight : 0;
+  if (top - head < list.scrollTop) list.scrollTop = Math.max(0, top - head);
+  else if (top + item.offsetHeight > list.scrollTop + list.clientHeight) list.scrollTop = top + item.offsetHeight - list.clientHeight;
 }
 
 function evidenceValue(value) {
@@ -908,9 +1188,20 @@ class SvgCharts {
     const points = plan.nodes.filter((n) => n.judged && n.est_total !== null && n.est_total !== undefined
       && n.actual_total !== null && n.actual_total !== undefined);
     this.elements = [
-      this.scatter(points),
-      this.byDepth(points),
+      this.figure(this.scatter(points), [
+        ["pv-key-band", "grey band: actual within ×10 of the estimate"], ["pv-key-diagonal", "dashed: estimate exact"],
+        ["pv-key-origin", "ringed dot: origin"], [null, "dot colour: the error scale above"]]),
+      this.figure(this.byDepth(points), [
+        ["pv-key-band", "grey band: within ×10"], ["pv-key-diagonal", "dashed: on target"],
+        ["pv-key-origin", "ringed dot: origin"], [null, "above the line: estimate too low"]]),
     ];
+  }
+
+  // A chart with its legend under it (HTML text, the page's font size).
+  figure(chart, keys) {
+    return el("figure", { class: "pv-chart-box" }, chart,
+      el("figcaption", { class: "pv-chart-legend" }, keys.map(([cls, text]) =>
+        el("span", { class: "pv-chart-key" }, cls ? el("span", { class: `pv-key-mark ${cls}`, "aria-hidden": "true" }) : "", text))));
   }
 
   frame(title, width, height) {
@@ -924,7 +1215,7 @@ class SvgCharts {
   }
 
   scatter(points) {
-    const W = 380, H = 300, L = 52, R = 12, T = 24, B = 40;
+    const W = 380, H = 300, L = 58, R = 12, T = 24, B = 40;
     const box = this.frame("Estimated against actual rows (log-log); the band is within tenfold", W, H);
     const maxValue = Math.max(10, ...points.map((n) => Math.max(n.est_total, n.actual_total)));
     const top = Math.ceil(Math.log10(maxValue));
@@ -947,9 +1238,9 @@ class SvgCharts {
     for (let k = 0; k <= top; k++) {
       const label = k === 0 ? "1" : k <= 3 ? String(Math.pow(10, k)) : `1e${k}`;
       box.appendChild(svg("line", { x1: x(Math.pow(10, k)), y1: H - B, x2: x(Math.pow(10, k)), y2: H - B + 4, class: "pv-axis" }));
-      box.appendChild(svg("text", { x: x(Math.pow(10, k)), y: H - B + 15, class: "pv-tick", "text-anchor": "middle" }, label));
+      box.appendChild(svg("text", { x: x(Math.pow(10, k)), y: H - B + 16, class: "pv-tick", "text-anchor": "middle" }, label));
       box.appendChild(svg("line", { x1: L - 4, y1: y(Math.pow(10, k)), x2: L, y2: y(Math.pow(10, k)), class: "pv-axis" }));
-      box.appendChild(svg("text", { x: L - 6, y: y(Math.pow(10, k)) + 3, class: "pv-tick", "text-anchor": "end" }, label));
+      box.appendChild(svg("text", { x: L - 6, y: y(Math.pow(10, k)) + 4, class: "pv-tick", "text-anchor": "end" }, label));
     }
     box.appendChild(svg("line", { x1: L, y1: H - B, x2: W - R, y2: H - B, class: "pv-axis" }));
     box.appendChild(svg("line", { x1: L, y1: T, x2: L, y2: H - B, class: "pv-axis" }));
@@ -960,7 +1251,7 @@ class SvgCharts {
   }
 
   byDepth(points) {
-    const W = 380, H = 300, L = 62, R = 12, T = 24, B = 40;
+    const W = 400, H = 300, L = 86, R = 12, T = 24, B = 40;
     const box = this.frame("Signed error by tree depth; the band is within tenfold", W, H);
     const maxDepth = Math.max(1, ...points.map((n) => n.depth ?? 0));
     const span = Math.max(2, Math.ceil(Math.max(...points.map((n) => Math.abs(n.log10_ratio)), 1)));
@@ -969,17 +1260,21 @@ class SvgCharts {
     box.appendChild(svg("text", { x: L, y: 15, class: "pv-chart-title" }, "error by depth"));
     box.appendChild(svg("rect", { x: L, y: y(1), width: W - L - R, height: y(-1) - y(1), class: "pv-band" }));
     box.appendChild(svg("line", { x1: L, y1: y(0), x2: W - R, y2: y(0), class: "pv-diagonal" }));
+    const labelEvery = span <= 5 ? 1 : Math.ceil(span / 5);  // at least 19 px between 11 px labels
     for (let k = -span; k <= span; k++) {
-      const label = k === 0 ? "1" : `×10${k === 1 || k === -1 ? "" : superscript(Math.abs(k))} ${k > 0 ? "low" : "high"}`;
-      box.appendChild(svg("text", { x: L - 4, y: y(k) + 3, class: "pv-tick", "text-anchor": "end" }, Math.abs(k) <= 4 || k % 2 === 0 ? label : ""));
+      if (k % labelEvery !== 0) continue;
+      const label = k === 0 ? "on target" : `×10${k === 1 || k === -1 ? "" : superscript(Math.abs(k))} ${k > 0 ? "low" : "high"}`;
+      box.appendChild(svg("line", { x1: L - 3, y1: y(k), x2: L, y2: y(k), class: "pv-axis" }));
+      box.appendChild(svg("text", { x: L - 5, y: y(k) + 4, class: "pv-tick", "text-anchor": "end" }, label));
     }
     const tickEvery = Math.max(1, Math.ceil(maxDepth / 10));
     for (let d = 0; d <= maxDepth; d += tickEvery) {
-      box.appendChild(svg("text", { x: x(d), y: H - B + 15, class: "pv-tick", "text-anchor": "middle" }, String(d)));
+      box.appendChild(svg("text", { x: x(d), y: H - B + 16, class: "pv-tick", "text-anchor": "middle" }, String(d)));
     }
     box.appendChild(svg("line", { x1: L, y1: H - B, x2: W - R, y2: H - B, class: "pv-axis" }));
     box.appendChild(svg("line", { x1: L, y1: T, x2: L, y2: H - B, class: "pv-axis" }));
     box.appendChild(svg("text", { x: (L + W - R) / 2, y: H - 6, class: "pv-axis-label", "text-anchor": "middle" }, "depth in the tree (0 = top)"));
+    box.appendChild(svg("text", { x: 12, y: (T + H - B) / 2, class: "pv-axis-label", "text-anchor": "middle", transform: `rotate(-90 12 ${(T + H - B) / 2})` }, "error: actual / estimated"));
     this.plotPoints(box, points, (n) => x(n.depth ?? 0), (n) => y(n.log10_ratio));
     return box;
   }
