@@ -4,25 +4,34 @@ Opt-in (``session.prove(finding)``, ``--prove``). Before anything runs, `plan_of
 what will run and what it locks: ANALYZE and CREATE STATISTICS take a SHARE UPDATE EXCLUSIVE
 lock (reads and writes go on; VACUUM, other ANALYZEs and DDL on the table wait), ANALYZE reads
 a sample of the table (I/O on a large one), ALTER TABLE ... SET STATISTICS takes the same lock
-briefly; nothing is kept. Then, in one transaction of its own (not read-only: the fix writes
+briefly. The fix runs on a temporary copy of the table (`WHY_A_COPY`): ANALYZE updates the row and
+page counts in pg_class and the activity counters of the table it reads in place, which no
+ROLLBACK undoes, and a copy made in the transaction takes them away with it. So the user's
+table is only read (ACCESS SHARE), and the data, pg_class, pg_statistic, pg_statistic_ext and
+its data, pg_attribute and the activity counters are as before. Then, in one transaction of its own (not read-only: the fix writes
 the catalogue) with ``SET LOCAL statement_timeout`` and ``lock_timeout``:
 
 1. plain ``EXPLAIN (FORMAT JSON)`` of the user's statement, the estimate before;
-2. the fix's statements, each one of three kinds only (``CREATE STATISTICS``, ``ALTER TABLE
+2. a temporary copy of the origin's table (same name, ``LIKE ... INCLUDING ALL``, its rows,
+   its columns' statistics targets), and the fix's statements on it, each one of three kinds only (``CREATE STATISTICS``, ``ALTER TABLE
    ... ALTER COLUMN ... SET STATISTICS``, ``ANALYZE``), every name double-quoted as planview's
    fix generator wrote it, every table the origin's own (never VACUUM, which cannot run in a
    transaction block and is not needed);
-3. plain ``EXPLAIN (FORMAT JSON)`` again, the estimate after, at the node matching the origin
+3. ``EXPLAIN (VERBOSE, FORMAT JSON)`` again with ``pg_temp`` first in the search path (a
+   statement naming the table with its schema cannot be proved this way, and says so), the
+   estimate after, at the node matching the origin
    (`planview.fleet.compare`'s node matching: place, operator, relation);
-4. ROLLBACK, always, in a ``finally``: the statistics, the catalogue and the data are as before.
+4. ROLLBACK, always, in a ``finally``.
 
 The user's statement is planned, never run (no EXPLAIN ANALYZE here), and is first checked:
 a statement that writes is refused unless `allow_writes`, and even then only planned and
 rolled back. It is sent with the extended query protocol, which the server refuses for more
 than one statement.
 
->>> fix_statements('ANALYZE "public"."t";\\n-- a comment\\nALTER TABLE "t" SET (x = 1);')[0]
+>>> fix_statements('ANALYZE "public"."t";\\n-- a comment')[0]
 [('analyze', 'ANALYZE "public"."t"')]
+>>> fix_statements('ANALYZE "t"; DROP TABLE "t"')[2][:40]
+'the fix holds a statement that is not CR'
 """
 
 from __future__ import annotations
@@ -73,6 +82,16 @@ LOCKS = {
     "set_statistics": "ALTER TABLE ... SET STATISTICS takes a SHARE UPDATE EXCLUSIVE lock briefly",
     "create_statistics": "CREATE STATISTICS takes a SHARE UPDATE EXCLUSIVE lock on the table",
 }
+
+
+WHY_A_COPY = (
+    "the fix runs on a temporary copy of the table made inside the proof's transaction: ANALYZE "
+    "writes a table's row and page counts into pg_class in place (vac_update_relstats, as VACUUM "
+    "does) and updates its activity counters (pg_stat_user_tables), and no ROLLBACK undoes that; "
+    "on a copy created in the same transaction both vanish with it")
+PROOF_LOCKS = ("the proof itself reads the table as a SELECT does (ACCESS SHARE) to copy it into a "
+               "temporary table: I/O and temporary space the size of the table; the fix's locks "
+               "below are taken on the copy only")
 
 
 def _split(text: str) -> list[str]:
@@ -153,12 +172,15 @@ def plan_of_action(plan, finding) -> dict:
     steps = ["BEGIN (a transaction of its own; it will be rolled back)",
              "SET LOCAL statement_timeout and lock_timeout",
              "EXPLAIN (FORMAT JSON) of the statement: plans it, does not run it",
-             *(statement + ";" for _, statement in run),
-             "EXPLAIN (FORMAT JSON) of the statement again",
-             "ROLLBACK: nothing is kept (statistics, catalogue and data as before)"]
-    locks = list(dict.fromkeys(LOCKS[kind] for kind, _ in run))
+             "CREATE TEMPORARY TABLE of the same name (LIKE the table INCLUDING ALL), filled with its rows",
+             *(statement + ";  -- on the copy" for _, statement in run),
+             "EXPLAIN (VERBOSE, FORMAT JSON) of the statement again, the copy first in the search path",
+             "ROLLBACK: the data, the column and extended statistics and the catalogue are as before"]
+    locks = [PROOF_LOCKS, *dict.fromkeys("when run for real: " + LOCKS[kind] for kind, _ in run)]
+    kept: list[str] = []
     return {"provable": True, "fix": "\n".join(s + ";" for _, s in run), "statements": run,
-            "left_out": left_out, "locks": locks, "steps": steps, "table": evidence.get("table")}
+            "left_out": left_out, "locks": locks, "steps": steps, "kept": kept,
+            "table": evidence.get("table")}
 
 
 # ---- the user's statement --------------------------------------------------------------
@@ -199,12 +221,12 @@ def prove_finding(plan, finding, conn, sql: str, params=None, *, budget: Budget,
                   allow_writes: bool = False) -> dict:
     """Prove `finding`'s fix on `conn` for the statement `sql`; see the module's docstring.
 
-    Returns {"fix", "est_before", "est_after", "actual", "plan_changed", "cost_before",
+    Sets ``finding.proof`` and returns {"fix", "est_before", "est_after", "actual", "plan_changed", "cost_before",
     "cost_after", "locks", "steps", ...} or {"provable": False, "why": ...}. Raises ProbeError
     with one line when the statement is refused or the server fails."""
     action = plan_of_action(plan, finding)
     if not action.get("provable"):
-        return action
+        return _attach(plan, finding, action)
     refusal = write_check(sql)
     if refusal and not allow_writes:
         raise ProbeError(f"not proved: {refusal}; planview plans only reading statements unless "
@@ -248,6 +270,13 @@ def prove_finding(plan, finding, conn, sql: str, params=None, *, budget: Budget,
     failure = failure or ended
     if failure:
         raise ProbeError(failure)
+    return _attach(plan, finding, result)
+
+
+def _attach(plan, finding, result: dict) -> dict:
+    """The proof goes on the finding (``proof`` in the report, a line in every view)."""
+    finding.proof = {k: v for k, v in result.items() if k != "statements"}
+    plan._report = None
     return result
 
 
@@ -281,37 +310,64 @@ def _run(cur, plan, finding, action, sql, params, budget, user_path) -> dict:
             raise ProbeError(f"not proved: the fix names {printable(table, 120)}, not the origin's "
                              f"table {relation.label}")
     before = _explain(session, sql, params, user_path)
-    cur.execute("SET LOCAL search_path = pg_catalog, " + _quoted(relation.schema) + ", pg_temp")
+    copy = _copy(session, relation)
+    cur.execute("SET LOCAL search_path = pg_catalog, pg_temp")
     for kind, statement in action["statements"]:
-        session.run(_in_schema(kind, statement, relation.schema))
-    after = _explain(session, sql, params, user_path)
+        session.run(_on_copy(kind, statement, copy))
+    # the copy, a temporary table of the same name, comes first for the statement's names
+    after = _explain(session, sql, params, "pg_temp, " + user_path, verbose=True)
     return _compare(plan, finding, action, before, after)
 
 
-def _in_schema(kind: str, statement: str, schema: str) -> str:
-    """A new statistics object goes into its table's schema (the search path is pinned to
-    pg_catalog first, so an unqualified name would land there)."""
-    if kind != "create_statistics":
-        return statement
-    match = re.match(rf"CREATE STATISTICS IF NOT EXISTS ({_IDENT})(?=[ \s])", statement)
-    if match is None:
-        return statement
-    return (f"CREATE STATISTICS IF NOT EXISTS {_quoted(schema)}.{match.group(1)}"
-            + statement[match.end():])
+def _copy(session: _Session, relation) -> str:
+    """A temporary copy of the origin's table, made in the proof's transaction, so that the
+    fix's ANALYZE writes nothing that outlives the ROLLBACK: ANALYZE updates pg_class and the
+    activity counters of the table it reads in place, and those of a table created in this
+    transaction vanish with it."""
+    rows = session.run("""SELECT a.attname::pg_catalog.text FROM pg_catalog.pg_attribute a
+        WHERE a.attrelid = %s::pg_catalog.oid AND a.attnum > 0 AND NOT a.attisdropped
+          AND a.attgenerated = '' ORDER BY a.attnum""", (relation.oid,)).fetchall()
+    columns = ", ".join(_quoted(r[0]) for r in rows)
+    original = f"{_quoted(relation.schema)}.{_quoted(relation.name)}"
+    copy = f"pg_temp.{_quoted(relation.name)}"
+    session.run(f"CREATE TEMPORARY TABLE {_quoted(relation.name)} (LIKE {original} INCLUDING ALL)")
+    session.run(f"INSERT INTO {copy} ({columns}) OVERRIDING SYSTEM VALUE SELECT {columns} FROM {original}")
+    # the columns' statistics targets, as the original has them (LIKE does not copy them)
+    targets = session.run("""SELECT a.attname::pg_catalog.text, a.attstattarget::pg_catalog.int4
+        FROM pg_catalog.pg_attribute a WHERE a.attrelid = %s::pg_catalog.oid AND a.attnum > 0
+          AND NOT a.attisdropped AND a.attstattarget IS NOT NULL AND a.attstattarget >= 0""",
+                          (relation.oid,)).fetchall()
+    for name, target in targets:
+        session.run(f"ALTER TABLE {copy} ALTER COLUMN {_quoted(name)} SET STATISTICS {int(target)}")
+    return copy
+
+
+def _on_copy(kind: str, statement: str, copy: str) -> str:
+    """The fix's statement aimed at the copy; a new statistics object goes with it into the
+    session's temporary schema."""
+    match = _STATEMENTS[kind].fullmatch(statement)
+    start, end = match.span("table")
+    statement = statement[:start] + copy + statement[end:]
+    if kind == "create_statistics":
+        head = re.match(rf"CREATE STATISTICS IF NOT EXISTS (?:{_IDENT}\.)?({_IDENT})(?=\s)", statement)
+        if head is not None:
+            statement = f"CREATE STATISTICS IF NOT EXISTS pg_temp.{head.group(1)}" + statement[head.end():]
+    return statement
 
 
 def _quoted(name: str) -> str:
     return '"' + name.replace('"', '""') + '"'
 
 
-def _explain(session: _Session, sql: str, params, user_path: str) -> str:
+def _explain(session: _Session, sql: str, params, user_path: str, verbose: bool = False) -> str:
     # the user's statement resolves its names as the user's own session would
     session.cur.execute("SELECT pg_catalog.set_config('search_path', %s, true)", (user_path,))
     limit = session.budget.next_statement_ms()
     session.cur.execute(f"SET LOCAL statement_timeout = {int(limit)}")
     session.timeout_ms = limit
     # binary=True sends it with the extended query protocol: one statement, never two
-    session.cur.execute("EXPLAIN (FORMAT JSON) " + sql.strip().rstrip(";"), params, binary=True)
+    options = "VERBOSE, FORMAT JSON" if verbose else "FORMAT JSON"
+    session.cur.execute(f"EXPLAIN ({options}) " + sql.strip().rstrip(";"), params, binary=True)
     doc = session.cur.fetchone()[0]
     if isinstance(doc, (bytes, bytearray, memoryview)):
         doc = bytes(doc).decode("utf-8")
@@ -337,6 +393,9 @@ def _compare(plan, finding, action, before_text: str, after_text: str) -> dict:
     def cost(p):
         return p.nodes[p.statements[0].root].total_cost if p.statements else None
 
+    if at_after is not None and not str(after_plan.nodes[at_after].schema or "pg_temp").startswith("pg_temp"):
+        return {"provable": False, "why": "the statement names the table with its schema, so it cannot be "
+                                           "planned against the proof's temporary copy"}
     est_before, est_after = estimate(before_plan, at_before), estimate(after_plan, at_after)
     actual = node.actual_total
     result = {"provable": True, "fix": action["fix"], "est_in_plan": node.est_total,
@@ -344,6 +403,7 @@ def _compare(plan, finding, action, before_text: str, after_text: str) -> dict:
               "plan_changed": _shape(before_plan) != _shape(after_plan),
               "cost_before": cost(before_plan), "cost_after": cost(after_plan),
               "locks": action["locks"], "steps": action["steps"], "left_out": action["left_out"],
+              "kept": action["kept"],
               "node_found": at_after is not None}
     if actual is not None and est_after is not None:
         result["q_error_after"] = max(est_after, 1.0) / max(actual, 1.0) if est_after >= actual else \
