@@ -237,3 +237,42 @@ def test_write_check_classifies():
                 "WITH d AS (DELETE FROM t RETURNING *) SELECT * FROM d", "SELECT * FROM t FOR UPDATE",
                 "SELECT 1; SELECT 2", "DROP TABLE t", "SELECT * INTO t2 FROM t"):
         assert write_check(sql), sql
+
+
+def test_only_the_three_statement_kinds_run():
+    """The proof runs planview's own fix, and of it only CREATE STATISTICS, ALTER TABLE ...
+    SET STATISTICS and ANALYZE with every name double-quoted (PostgreSQL manual, "Lexical
+    Structure": a quoted identifier, a double quote written twice); anything else refuses the
+    whole proof, and VACUUM never runs (it cannot run inside a transaction block, manual VACUUM)."""
+    from planview.engines.postgresql import suggest_fix
+    from planview.live.proof import fix_statements
+
+    hostile = 'we"ird; DROP TABLE t; --'
+    for cause, columns in (("skew", [hostile]), ("correlation", ["a", hostile]), ("stale_statistics", [])):
+        fix, _caution = suggest_fix(cause, hostile, columns, table_parts=("public", hostile))
+        run, left_out, refusal = fix_statements(fix)
+        assert refusal is None and run, (cause, fix)
+        assert all('"we""ird; DROP TABLE t; --"' in statement for _, statement in run)
+        assert {kind for kind, _ in run} <= {"analyze", "set_statistics", "create_statistics"}
+        assert all("autovacuum" in x["statement"] for x in left_out)
+    for bad in ('VACUUM "t"', 'ANALYZE t', 'DROP TABLE "t"', 'ANALYZE "t"; COMMIT',
+                'CREATE STATISTICS IF NOT EXISTS "s" ON (pg_sleep(1)) FROM "t"',
+                'ALTER TABLE "t" ALTER COLUMN "c" SET STATISTICS 100 CASCADE'):
+        assert fix_statements(bad)[2], bad
+    expression_fix, _ = suggest_fix("default_selectivity", "invoices", ["issued_at"],
+                                    expressions=["date_part('year'::text, issued_at)"],
+                                    table_parts=("public", "invoices"))
+    run, _, refusal = fix_statements(expression_fix)
+    assert refusal is None and [k for k, _ in run] == ["create_statistics", "analyze"]
+
+
+def test_what_cannot_be_proven_says_why():
+    """A fix that is a rewrite (comments only) or a cause no statistic changes."""
+    from types import SimpleNamespace
+
+    from planview.live.proof import plan_of_action
+
+    for cause, fix in (("join_selectivity", "-- rewrite"), ("correlation", "-- across tables"),
+                       ("skew", None), ("default_selectivity", "-- rewrite the condition")):
+        action = plan_of_action(None, SimpleNamespace(cause=cause, fix=fix, evidence={}))
+        assert action["provable"] is False and action["why"], cause

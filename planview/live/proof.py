@@ -193,8 +193,15 @@ _WRITES = ("Insert", "Update", "Delete", "Merge", "Create", "Drop", "Alter", "Co
 def write_check(sql: str) -> str | None:
     """Why the statement may write (or cannot be vouched for), or None for a plain query.
 
-    TODO: swap in planview/live/safety.py (the live session's classification) once merged;
-    this is the minimal sqlglot classification the proof needs meanwhile."""
+    The live session's classification (planview/live/safety.py) decides where it is present;
+    the minimal sqlglot classification below stands in where it is not."""
+    try:
+        from .safety import classify
+    except ImportError:
+        classify = None
+    if classify is not None:
+        verdict = classify(sql, "postgres")
+        return None if verdict.allowed and not verdict.writes else (verdict.reason or "it writes")
     import sqlglot
     from sqlglot import exp
 
@@ -376,6 +383,7 @@ def _explain(session: _Session, sql: str, params, user_path: str, verbose: bool 
 
 def _compare(plan, finding, action, before_text: str, after_text: str) -> dict:
     import planview
+
     from ..fleet.compare import compare
 
     before_plan, after_plan = planview.load(before_text), planview.load(after_text)
