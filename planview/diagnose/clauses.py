@@ -64,6 +64,8 @@ class Clause:
     parse_error: str | None = None
     column_side: str | None = None
     """The SQL of the side holding the column(s), table qualifiers removed (``lower(code)``)."""
+    column_left: bool = True
+    """A comparison's column stands on the left (``x < 5``, not ``5 > x``)."""
 
     @property
     def is_join(self) -> bool:
@@ -349,6 +351,8 @@ def _classify(node: exp.Expression, source: str, dialect: str | None) -> Clause:
     right = getattr(core, "expression", None)
     clause.operator = type(core).__name__
     if isinstance(core, exp.Is):
+        if core.args.get("negate"):  # sqlglot reads "x IS NOT NULL" as Is(negate=True)
+            negated = not negated
         clause.op_class = "is_not_null" if negated else "is_null"
         clause.columns, clause.bare, clause.wrappers = _column_side(left)
         return clause
@@ -397,6 +401,7 @@ def _classify(node: exp.Expression, source: str, dialect: str | None) -> Clause:
         else:
             clause.columns, clause.bare, clause.wrappers = right_cols, right_bare, right_wrap
         other = right if left_cols else left
+        clause.column_left = bool(left_cols)
         clause.constants, clause.constant_types, clause.has_parameter, clause.has_subplan = _constants(other)
         return clause
     # anything else: a user-defined or special operator, a bare boolean column, a function
