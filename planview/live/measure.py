@@ -31,20 +31,15 @@ from ..errors import ProbeError
 from ..probe import Budget
 from ..probe.clause_sql import UnsafeClause, quote_ident, render_clause
 from ..probe.postgresql import (
-    COLUMN_SQL,
-    TABLE_SQL,
-    _attributes,
     _compare,
     _message,
-    _qualifiers,
     _read_only,
-    _relation,
     _Session,
-    looks_secret,
     printable,
     scans_by_table,
     shown,
 )
+from .stats import TableStats, table_stats
 
 ROW_BUDGET = 1_000_000
 """Past this many rows (as last counted) a table is measured through a sample."""
@@ -57,11 +52,6 @@ statistics count as out of date: PostgreSQL's own default for auto-analyze
 FAR = 10.0
 """How far a measured figure must be from the statistics' to confirm a cause (rule of thumb:
 the diagnosis' own threshold for an origin is ten times off)."""
-
-TARGET_SQL = """SELECT COALESCE(NULLIF(a.attstattarget::pg_catalog.int4, -1),
-                pg_catalog.current_setting('default_statistics_target')::pg_catalog.int4)
-FROM pg_catalog.pg_attribute a
-WHERE a.attrelid = %s::pg_catalog.oid AND a.attname = %s::pg_catalog.name"""
 
 _RESTRICTION_SOURCES = ("filter", "index_cond", "recheck_cond", "tid_cond")
 
@@ -125,16 +115,16 @@ def _nothing(finding, says: str) -> dict:
 
 
 class _Table:
-    """One relation's facts and the FROM clause that reads it (whole, or a sample)."""
+    """What the optimizer had for one relation (`planview.live.stats`), and the FROM clause
+    that reads it (whole, or a sample)."""
 
-    def __init__(self, session: _Session, relation, row_budget: int):
-        self.relation = relation
-        facts = session.one(TABLE_SQL, (relation.oid,))
-        last_analyze, last_auto, modified, live = facts if facts else (None, None, None, None)
-        analyzed = max([t for t in (last_analyze, last_auto) if t is not None], default=None)
-        self.modified = int(modified) if modified is not None else None
-        self.live = int(live) if live is not None else None
-        self.analyzed = analyzed
+    def __init__(self, stats: TableStats, row_budget: int):
+        self.stats = stats
+        self.relation = relation = stats.relation
+        self.modified = int(stats.modified_since_analyze) if stats.modified_since_analyze is not None else None
+        self.live = int(stats.live_rows) if stats.live_rows is not None else None
+        self.analyzed = max([t for t in (stats.last_analyze, stats.last_autoanalyze) if t is not None],
+                            default=None)
         rows = max(relation.reltuples, float(self.live or 0))
         self.sampled = rows > row_budget
         self.percent = min(100.0, max(0.0001, 100.0 * row_budget / rows)) if self.sampled else 100.0
@@ -142,8 +132,12 @@ class _Table:
         self.from_sql = relation.from_sql + sample
         self.scale = 100.0 / self.percent
 
+    def column(self, name: str):
+        return self.stats.columns.get(name)
+
     def fields(self) -> dict:
         out = {"reltuples": self.relation.reltuples, "relpages": self.relation.relpages,
+               "current_pages": self.stats.current_pages,
                "n_live_tup": self.live, "n_mod_since_analyze": self.modified,
                "modified_share": stale_share(self.modified, self.relation.reltuples),
                "last_analyzed": str(self.analyzed) if self.analyzed else None}
@@ -158,16 +152,16 @@ def _measure(session: _Session, plan, finding, scans, row_budget) -> dict:
     table_name = evidence.get("table")
     if not table_name:
         return _nothing(finding, "not measured: no single table for this origin")
-    relation = _relation(session, node, table_name, scans)
-    table = _Table(session, relation, row_budget)
-    qualifiers = _qualifiers(relation, node.alias if node.relation else None)
-    clauses, refused = _rendered(evidence, qualifiers)
+    scan = node if node.relation else scans.get(table_name)
+    name = scan.relation if scan is not None else table_name.split(".")[-1]
+    alias = (scan.alias if scan is not None and scan.alias else None) or name
+    # the qualifiers the clauses may use, all written as the alias the FROM clause gives
+    clauses, refused = _rendered(evidence, {name: alias, alias: alias})
     columns = [c for c in evidence.get("columns") or [] if isinstance(c, str)]
-    attributes = _attributes(session, relation, [*columns, *(n for _, r in clauses for _, n in r.columns)])
-    hidden = [c for c in attributes if not attributes[c][1]]
-    if hidden:
-        return _nothing(finding, f"not measured: this role may not SELECT {relation.label}."
-                                 f"{printable(hidden[0], 63)}")
+    names = sorted({*columns, *(n for _, r in clauses for _, n in r.columns)})
+    table = _Table(table_stats(session, node, names, scans=scans, table=table_name), row_budget)
+    relation = table.relation
+    attributes = table.stats.columns
     fields = table.fields()
     counts = _counts(session, table, clauses)
     fields.update(counts)
@@ -184,7 +178,10 @@ def _measure(session: _Session, plan, finding, scans, row_budget) -> dict:
         _range(session, table, column_clause, attributes, fields, says)
     elif cause == "stale_statistics":
         _stale(session, table, column_clause, attributes, fields, says, node)
-    if cause == "correlation" or (len(columns) >= 2 and cause not in ("skew", "range_gap")):
+    joined = evidence.get("join_clauses") or []
+    if cause == "correlation" and len(joined) >= 2 and len(evidence.get("tables") or []) == 2:
+        _join(session, evidence, scans, node, row_budget, fields, says)
+    elif cause == "correlation" or (len(columns) >= 2 and cause not in ("skew", "range_gap")):
         _group(session, table, columns, attributes, fields, says)
     if not says:
         says.append(_count_words(table, fields, node))
@@ -238,15 +235,18 @@ def _is_equality(clause: dict) -> bool:
 
 
 def _column_stats(session: _Session, table: _Table, column: str) -> dict | None:
-    relation = table.relation
-    row = session.one(COLUMN_SQL, (relation.schema, relation.name, column))
-    target = session.one(TARGET_SQL, (relation.oid, column))
-    if row is None:
+    """A column's statistics as the planner had them, or None when it has none (never analyzed)."""
+    stats = table.column(column)
+    if stats is None or not stats.analyzed:
         return None
-    null_frac, n_distinct, mcv, mcf, bounds = row
-    return {"null_frac": null_frac or 0.0, "n_distinct": n_distinct, "mcv": list(mcv or []),
-            "mcf": [float(f) for f in mcf or []], "bounds": list(bounds or []),
-            "target": int(target[0]) if target and target[0] is not None else None}
+    return {"null_frac": stats.null_frac or 0.0, "n_distinct": stats.n_distinct,
+            "mcv": list(stats.most_common_vals or []), "mcf": list(stats.most_common_freqs or []),
+            "bounds": list(stats.histogram_bounds or []), "target": stats.stats_target}
+
+
+def _secret(attributes, column: str) -> bool:
+    found = attributes.get(column)
+    return True if found is None else bool(found.secret)
 
 
 def _value(session, table: _Table, found, attributes, fields, says, cause, node) -> str:
@@ -254,7 +254,7 @@ def _value(session, table: _Table, found, attributes, fields, says, cause, node)
     stale statistics when it is unknown to them and the table changed a lot since."""
     clause, rendered = found
     column = rendered.columns[0][1]
-    secret = looks_secret(column, attributes.get(column, ("", True))[0])
+    secret = _secret(attributes, column)
     stats = _column_stats(session, table, column)
     label = f"{table.relation.label}.{printable(column, 63)}"
     if stats is None:
@@ -311,7 +311,7 @@ def _range(session, table: _Table, found, attributes, fields, says) -> None:
     col = quote_ident(column)
     low, high = session.one(f"SELECT pg_catalog.min({col})::pg_catalog.text, "
                             f"pg_catalog.max({col})::pg_catalog.text FROM {table.from_sql}")
-    secret = looks_secret(column, attributes.get(column, ("", True))[0])
+    secret = _secret(attributes, column)
     share = _histogram_share(stats.get("bounds") or [], *_range_ends(_clause, rendered.literals))
     reltuples = table.relation.reltuples
     matching = fields.get("rows_matching")
@@ -394,7 +394,7 @@ def _stale(session, table: _Table, found, attributes, fields, says, node) -> Non
         bounds = stats.get("bounds") or []
         col = quote_ident(column)
         top = session.one(f"SELECT pg_catalog.max({col})::pg_catalog.text FROM {table.from_sql}")[0]
-        secret = looks_secret(column, attributes.get(column, ("", True))[0])
+        secret = _secret(attributes, column)
         fields.update({"column": column, "histogram_upper_bound": None if secret or not bounds else bounds[-1],
                        "max": None if secret else top})
         if bounds and top is not None and not secret:
@@ -443,6 +443,60 @@ def _group(session, table: _Table, columns, attributes, fields, says) -> None:
             said += (f"; an MCV list holds at most {target:,} of the {group:,.0f} combinations and "
                      "PostgreSQL would estimate the rest as independent, so the fix leaves it out "
                      "and relies on the functional dependency")
+    says.append(said)
+
+
+def _join(session, evidence, scans, node, row_budget, fields, says) -> None:
+    """Two tables joined on several columns: the share of the rows the first join condition
+    pairs that the others keep, against the share the planner gives them (about 1 / the larger
+    distinct count of their columns, eqjoinsel without most-common values)."""
+    from ..probe.postgresql import _relation
+
+    tables = [str(t) for t in evidence["tables"]][:2]
+    relations = [_relation(session, node, t, scans) for t in tables]
+    if relations[0].alias == relations[1].alias:
+        return
+    qualifiers = {}
+    for table, relation in zip(tables, relations):
+        scan = scans.get(table)
+        for name in (relation.alias, relation.name, scan.alias if scan is not None else None):
+            if name:
+                qualifiers[name] = relation.alias
+    rendered = []
+    for text in evidence["join_clauses"][:8]:
+        try:
+            rendered.append(render_clause(str(text), qualifiers=qualifiers))
+        except UnsafeClause as exc:
+            says.append(f"the join condition {printable(str(text))} is not measured: {exc}")
+            return
+    biggest = max(max(r.reltuples, 0.0) for r in relations)
+    if biggest > row_budget:
+        says.append("the tables are past the row budget, so the join is not measured")
+        return
+    first, rest = rendered[0].sql, " AND ".join(f"({r.sql})" for r in rendered[1:])
+    paired, kept = session.one(
+        f"SELECT pg_catalog.count(*), pg_catalog.count(*) FILTER (WHERE {rest}) "
+        f"FROM {relations[0].from_sql} JOIN {relations[1].from_sql} ON ({first})")
+    distinct = []
+    for clause in rendered[1:]:
+        for qualifier, column in clause.columns:
+            relation = next(r for r in relations if r.alias == qualifier)
+            row = session.one(f"SELECT pg_catalog.count(DISTINCT {quote_ident(column)}) FROM {relation.from_sql}")
+            distinct.append(float(row[0] or 0))
+    planned = 1.0 / max(max(distinct, default=1.0), 1.0)
+    share = kept / paired if paired else None
+    fields.update({"join_rows_first_condition": paired, "join_rows_all_conditions": kept,
+                   "kept_share": share, "independent_share": planned,
+                   "join_tables": [r.label for r in relations]})
+    if share is None:
+        says.append("the first join condition pairs no rows")
+        return
+    said = (f"of the {paired:,} pairs the join condition {printable(evidence['join_clauses'][0])} makes, the "
+            f"other conditions keep {kept:,} ({share:.3g}); independent columns would keep about "
+            f"{planned:.3g}")
+    if share >= FAR * planned:
+        said += ": the join columns are correlated across the tables"
+        fields["confirms"] = "correlation"
     says.append(said)
 
 
