@@ -105,6 +105,31 @@ def parse_condition(text: str, source: str, dialect: str | None,
     return [Clause(**vars(c)) for c in _parse_cached(text, source, dialect, subquery_mark)]
 
 
+_QUOTED = re.compile(r"'(?:[^']|'')*'|\"(?:[^\"]|\"\")*\"")
+"""A string literal or a quoted name, as the engines print them (a quote inside doubled)."""
+
+
+def _prepare(text: str, subquery_mark: str | None = None) -> str:
+    """The condition with its parameters and sub-plan references made placeholders sqlglot
+    reads, outside quotes only: a literal such as ``'SCRAM-SHA-256$4096:zz'`` stays as written.
+
+    >>> _prepare("(a = $1) AND (b = 'x$4096 SubPlan 2')")
+    "(a = __pv_param()) AND (b = 'x$4096 SubPlan 2')"
+    """
+    out, at = [], 0
+    for quoted in (*_QUOTED.finditer(text), None):
+        plain = text[at:quoted.start() if quoted else len(text)]
+        for pattern, replacement in _PREP:
+            plain = pattern.sub(replacement, plain)
+        if subquery_mark:
+            plain = re.sub(subquery_mark, f"{_SUBPLAN}()", plain)
+        out.append(plain)
+        if quoted:
+            out.append(quoted.group())
+            at = quoted.end()
+    return "".join(out)
+
+
 def _too_long(text: str, source: str) -> Clause:
     return Clause(text=f"{text[:200]}... ({len(text):,} characters)", source=source,
                   op_class="unparsed",
@@ -114,11 +139,7 @@ def _too_long(text: str, source: str) -> Clause:
 @lru_cache(maxsize=4096)
 def _parse_cached(text: str, source: str, dialect: str | None,
                   subquery_mark: str | None = None) -> tuple[Clause, ...]:
-    prepared = text
-    for pattern, replacement in _PREP:
-        prepared = pattern.sub(replacement, prepared)
-    if subquery_mark:
-        prepared = re.sub(subquery_mark, f"{_SUBPLAN}()", prepared)
+    prepared = _prepare(text, subquery_mark)
     try:
         tree = sqlglot.parse_one(prepared, read=dialect)
     except Exception as exc:  # sqlglot raises several types; none may escape

@@ -1531,13 +1531,15 @@ DEFAULT_UNK_SEL = 0.005
 # clauselist_selectivity(baserestrictinfo)), when not parameterised by an outer row
 # (set_baserel_size_estimates in costsize.c; cost_seqscan, cost_index and
 # cost_bitmap_heap_scan take baserel->rows), with the condition keys that print those clauses
-# (a bitmap heap scan's Recheck Cond repeats its index conditions; its index scans below carry
-# no other).
+# (a bitmap heap scan's Recheck Cond repeats its index conditions). A bitmap index scan prints
+# clamp_row_est(tuples x clauselist_selectivity(its index conditions)) (create_bitmap_subplan in
+# createplan.c, with the selectivity genericcostestimate works out in selfuncs.c).
 RESTRICTION_SCANS = {
     "Seq Scan": ("filter",),
     "Index Scan": ("index_cond", "filter"),
     "Index Only Scan": ("index_cond", "filter"),
     "Bitmap Heap Scan": ("recheck_cond", "filter"),
+    "Bitmap Index Scan": ("index_cond",),
 }
 
 _CHANGE_PROCESS = ("Run it first on a copy or a test system; your change process and a DBA decide "

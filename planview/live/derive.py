@@ -18,6 +18,7 @@ Estimation Examples") and the source it describes:
   last bounds replaced by the current extremes when a b-tree index leads with the column
   (``get_actual_variable_range``), and kept off 0 and 1 by a hundredth of a bucket otherwise;
 - ``IS NULL`` / ``IS NOT NULL`` (``nulltestsel``): ``null_frac`` or its complement;
+- a boolean column alone (``boolvarsel``: ``column = true``) and ``NOT`` it (1 minus that);
 - ``column = ANY (constants)`` and ``column <> ALL (constants)``, which IN and NOT IN lists
   become (``scalararraysel``): each value as one constant, the shares added as disjoint;
 - several clauses (``clauselist_selectivity_ext`` in ``clausesel.c``): the product of their
@@ -74,6 +75,7 @@ _OPS = {"EQ": "=", "NEQ": "<>", "LT": "<", "LTE": "<=", "GT": ">", "GTE": ">="}
 _FLIP = {"<": ">", "<=": ">=", ">": "<", ">=": "<=", "=": "=", "<>": "<>"}
 _EPOCH = _dt.date(2000, 1, 1).toordinal()  # PostgreSQL's dates and timestamps count from 2000-01-01
 _USECS_PER_DAY = 86_400_000_000
+_ZONE = re.compile(r"([+-])(\d{2}):?(\d{2})?(?::(\d{2}))?$")
 
 
 class NotDerivable(ValueError):
@@ -166,9 +168,13 @@ def _float4(x: float) -> float:
 def _time_usecs(text: str, type_name: str) -> int:
     """Microseconds since 2000-01-01 (UTC for timestamptz), from the ISO text PostgreSQL prints."""
     text = text.strip()
-    if type_name == "date" or (len(text) == 10 and text[4] == "-"):
+    if len(text) == 10 and text[4] == "-":  # a date, whatever the column (a constant may be a timestamp)
         day = _dt.date.fromisoformat(text)
         return (day.toordinal() - _EPOCH) * _USECS_PER_DAY
+    zone = _ZONE.search(text)  # PostgreSQL writes +00 or +05:30; Python 3.11 wants +00:00
+    if zone:
+        text = text[:zone.start()] + zone.group(1) + zone.group(2) + ":" + (zone.group(3) or "00") \
+            + (":" + zone.group(4) if zone.group(4) else "")
     moment = _dt.datetime.fromisoformat(text)
     offset = moment.utcoffset() if moment.tzinfo else None
     naive = moment.replace(tzinfo=None)
@@ -197,6 +203,11 @@ def read_value(text: str, type_name: str, const_type: str | None = None) -> Valu
         if math.isnan(number):
             raise ValueError("a NaN")
         return Value(number, number, text, type_name)
+    if type_name == "bool":
+        lowered = text.strip().lower()
+        if lowered not in ("t", "true", "f", "false"):
+            raise ValueError("a boolean that is neither true nor false")
+        return Value(lowered in ("t", "true"), None, text, type_name)
     if type_name in STRING_TYPES:
         data = text.encode("utf-8")
         key = data.rstrip(b" ") if type_name == "bpchar" else data
@@ -299,8 +310,9 @@ class Restriction:
     text: str
     column: str
     op: str
-    """``=``, ``<>``, ``<``, ``<=``, ``>``, ``>=``, ``in`` (= ANY), ``not_in`` (<> ALL), ``is_null`` or
-    ``is_not_null``, with the column on the left."""
+    """``=``, ``<>``, ``<``, ``<=``, ``>``, ``>=``, ``in`` (= ANY), ``not_in`` (<> ALL), ``is_null``,
+    ``is_not_null``, ``bool_true`` (a boolean column alone) or ``bool_false`` (NOT it), with the
+    column on the left."""
     constant: str | None = None
     const_type: str | None = None
     """The constant's cast as printed (sqlglot's name for it: ``name``, ``date``, ``float``...)."""
@@ -318,6 +330,14 @@ class Selectivity:
     default: bool = False
 
 
+def _cross_zone(r: Restriction, column: ColumnStats | None) -> bool:
+    """A date or timestamp compared with a timestamptz (or the other way round) is converted in
+    the session's time zone, which planview does not know: the result is approximate."""
+    if column is None or column.type_name not in TIME_TYPES or r.const_type not in TIME_TYPES:
+        return False
+    return (column.type_name == "timestamptz") != (r.const_type == "timestamptz")
+
+
 def _shown_value(column: ColumnStats, text: str) -> str:
     return "(a value withheld)" if column.secret else shown(text)
 
@@ -333,7 +353,7 @@ def eq_selectivity(r: Restriction, column: ColumnStats | None, tuples: float) ->
     negate = r.op == "<>"
     nullfrac = (column.null_frac or 0.0) if column is not None and column.analyzed else 0.0
     steps: list[str] = []
-    approximate = False
+    approximate = _cross_zone(r, column)
     if column is not None and column.unique_index and tuples >= 1.0:
         selec = 1.0 / tuples
         steps.append(f"{r.text}: the unique index {printable(column.unique_index, 63)} allows one row, "
@@ -404,7 +424,7 @@ def ineq_selectivity(r: Restriction, column: ColumnStats | None, tuples: float, 
         return Selectivity(DEFAULT_INEQ_SEL, [f"{r.text}: the column has no statistics, so the planner's "
                                               f"default DEFAULT_INEQ_SEL = 1/3."], default=True)
     isgt, iseq = r.op in (">", ">="), r.op in ("<=", ">=")
-    approximate = column.type_name in STRING_TYPES and not column.collation_is_c
+    approximate = (column.type_name in STRING_TYPES and not column.collation_is_c) or _cross_zone(r, column)
     if column.type_name == "bpchar":
         approximate = True
     try:
@@ -566,6 +586,20 @@ def histogram_selectivity(r: Restriction, column: ColumnStats, const: Value, bou
     return selec, steps, approximate
 
 
+def bool_selectivity(r: Restriction, column: ColumnStats | None, tuples: float) -> Selectivity:
+    """A boolean column alone is ``column = true`` (boolvarsel, 0.5 without statistics);
+    ``NOT column`` is 1 minus that (clause_selectivity_ext), nulls included."""
+    if column is not None and column.analyzed:
+        found = eq_selectivity(Restriction(r.text, r.column, "=", "t"), column, tuples)
+        value, steps = found.value, list(found.steps)
+    else:
+        value, steps = 0.5, [f"{r.text}: the column has no statistics, so the planner takes half the rows."]
+    if r.op == "bool_false":
+        steps.append(f"NOT takes the rest, nulls included: 1 - {_g(value)} = {_g(1.0 - value)}.")
+        value = 1.0 - value
+    return Selectivity(clamp_probability(value), steps)
+
+
 def clause_selectivity(r: Restriction, column: ColumnStats | None, tuples: float, *,
                        version: int = 160000) -> Selectivity:
     if r.op in ("is_null", "is_not_null"):
@@ -574,6 +608,8 @@ def clause_selectivity(r: Restriction, column: ColumnStats | None, tuples: float
         return eq_selectivity(r, column, tuples)
     if r.op in ("in", "not_in"):
         return array_selectivity(r, column, tuples)
+    if r.op in ("bool_true", "bool_false"):
+        return bool_selectivity(r, column, tuples)
     return ineq_selectivity(r, column, tuples, version=version)
 
 
@@ -693,12 +729,28 @@ def join_rows(outer_rows: float, inner_rows: float, selectivity: float) -> float
 # ---- reading a node's clauses -----------------------------------------------------------------
 
 
-def restrictions_of(node) -> list[Restriction]:
-    """The node's printed clauses as column-op-constant restrictions, or NotDerivable."""
+MAX_BITMAP_DEPTH = 64
+
+
+def table_node(nodes, node):
+    """The node that names the table `node` reads: itself, or for an index scan feeding a bitmap
+    (which names only its index) the heap scan it feeds, up through the bitmaps combining it."""
+    current, steps = node, 0
+    while not current.relation and current.parent is not None and steps < MAX_BITMAP_DEPTH:
+        current, steps = nodes[current.parent], steps + 1
+        if current.relation and current.operator not in RESTRICTION_SCANS:
+            return None
+    return current if current.relation else None
+
+
+def restrictions_of(node, table=None) -> list[Restriction]:
+    """The node's printed clauses as column-op-constant restrictions, or NotDerivable. `table`
+    is the node naming the table (`table_node`), when `node` names only an index."""
     kinds = RESTRICTION_SCANS.get(node.operator)
     if kinds is None:
         raise NotDerivable("not a scan whose estimate is the table's restriction estimate")
-    if not node.relation:
+    table = table if table is not None else node
+    if not table.relation:
         raise NotDerivable("the scan names no table")
     found: list[Restriction] = []
     for condition in node.conditions:
@@ -706,7 +758,7 @@ def restrictions_of(node) -> list[Restriction]:
             raise NotDerivable(f"its {printable(condition.key or condition.kind, 40)} is not a restriction "
                                "planview works out")
         for clause in parse_condition(condition.text, condition.kind, DIALECT):
-            found.append(_restriction(clause, node))
+            found.append(_restriction(clause, table))
     return found
 
 
@@ -729,6 +781,11 @@ def _restriction(clause, node) -> Restriction:
     wrapper = set(clause.wrappers)
     if clause.op_class in ("is_null", "is_not_null"):
         return Restriction(text, column, clause.op_class)
+    if clause.op_class == "boolean_column" and not wrapper:  # "flag" or "NOT flag"
+        negations = rendered.sql.count("(NOT ")
+        if negations > 1 or (negations and not rendered.sql.startswith("(NOT ")):
+            raise NotDerivable(f"{text} is not a plain boolean column")
+        return Restriction(text, column, "bool_false" if negations else "bool_true")
     if len(wrapper) > 1:
         raise NotDerivable(f"{text} wraps its column in more than one cast")
     if _QUANTIFIED.search(rendered.sql):  # x op ANY/ALL (array), however the classifier read it
@@ -853,6 +910,12 @@ def _check_types(restrictions: list[Restriction], columns: dict[str, ColumnStats
                                "planner has no statistics of what it compares")
         if r.op in ("is_null", "is_not_null"):
             continue
+        if (r.op in ("bool_true", "bool_false")) != (column.type_name == "bool") and \
+                (r.op in ("bool_true", "bool_false") or r.op not in ("=", "<>", "in", "not_in")):
+            raise NotDerivable(f"{r.text}: a boolean test on a {printable(column.type_shown, 40)} column, "
+                               "or a comparison planview does not work out on a boolean")
+        if column.type_name == "bool" or r.op in ("bool_true", "bool_false"):
+            continue
         if column.type_name not in NUMBER_TYPES | STRING_TYPES | TIME_TYPES:
             raise NotDerivable(f"{r.text}: values of type {printable(column.type_shown, 40)} are not "
                                "compared by planview")
@@ -878,12 +941,15 @@ def derive_plan(plan, conn, *, budget: Budget, skipped: dict | None = None) -> d
         try:
             if node.est_rows is None:
                 raise NotDerivable("the plan printed no estimate")
-            restrictions = restrictions_of(node)
+            table = table_node(plan.nodes, node)
+            if table is None:
+                raise NotDerivable("the scan names no table")
+            restrictions = restrictions_of(node, table)
         except NotDerivable as exc:
             skipped[node.id] = str(exc)
             continue
-        key = (node.schema, node.relation)
-        entry = wanted.setdefault(key, {"node": node, "columns": set(), "endpoints": set(), "nodes": []})
+        key = (table.schema, table.relation)
+        entry = wanted.setdefault(key, {"node": table, "columns": set(), "endpoints": set(), "nodes": []})
         entry["columns"].update(r.column for r in restrictions)
         entry["endpoints"].update(r.column for r in restrictions if r.op in ("<", "<=", ">", ">="))
         entry["nodes"].append((node, restrictions))
@@ -921,6 +987,17 @@ def derive_node(node, restrictions: list[Restriction], stats: TableStats) -> dic
         restrictions, stats.columns, reltuples=stats.reltuples, relpages=stats.relpages,
         current_pages=stats.current_pages, version=stats.server_version, has_subclass=stats.has_subclass,
         printed=node.est_rows, parallel_divisor=divisor, extended=stats.extended)
+    notes = []
+    if node.index and node.index in stats.partial_indexes:
+        derivation["approximate"] = True
+        notes.append(f"The index {printable(node.index, 63)} has a predicate: the scan does not print the "
+                     "clauses it implies, which the planner still counted, so this derivation may miss some.")
+    modified = stats.modified_since_analyze
+    if modified and stats.reltuples > 0 and modified >= 0.1 * stats.reltuples:
+        notes.append(f"{modified:,} rows have changed since the last ANALYZE: the planner still uses the "
+                     "statistics of then (refreshing them is ANALYZE, which reads a sample and takes a "
+                     "SHARE UPDATE EXCLUSIVE lock; your change process decides).")
+    derivation["steps"][-1:-1] = notes
     derivation["table"] = stats.label
     derivation["statistics"] = stats.as_dict()
     return derivation

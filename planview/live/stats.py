@@ -81,7 +81,8 @@ WHERE s.schemaname = %s::pg_catalog.name AND s.tablename = %s::pg_catalog.name
 
 INDEXES_SQL = """SELECT i.indkey[0]::pg_catalog.int4, i.indisunique, i.indnkeyatts::pg_catalog.int4,
        am.amname::pg_catalog.text, (i.indpred IS NULL AND i.indexprs IS NULL), i.indisvalid,
-       i.indcollation[0]::pg_catalog.int8, opc.opcdefault, ic.relname::pg_catalog.text
+       i.indcollation[0]::pg_catalog.int8, opc.opcdefault, ic.relname::pg_catalog.text,
+       i.indpred IS NOT NULL
 FROM pg_catalog.pg_index i
 JOIN pg_catalog.pg_class ic ON ic.oid = i.indexrelid
 JOIN pg_catalog.pg_am am ON am.oid = ic.relam
@@ -207,6 +208,8 @@ class TableStats:
     columns: dict[str, ColumnStats] = field(default_factory=dict)
     extended: list[ExtendedStats] = field(default_factory=list)
     expressions: list[dict[str, Any]] = field(default_factory=list)
+    partial_indexes: set[str] = field(default_factory=set)
+    """Indexes with a predicate: a scan of one does not print the clauses its predicate implies."""
 
     @property
     def reltuples(self) -> float:
@@ -239,6 +242,7 @@ class TableStats:
             "columns": {printable(k, 63): c.as_dict() for k, c in self.columns.items()},
             "extended": [x.as_dict() for x in self.extended],
             "expressions": list(self.expressions),
+            "partial_indexes": sorted(printable(n, 63) for n in self.partial_indexes),
         }
 
 
@@ -262,6 +266,9 @@ def table_stats(session: _Session, node, columns, *, endpoints=(), scans: dict |
         if not node.relation:
             raise ProbeError("this node names no table")
         table = f"{node.schema}.{node.relation}" if node.schema else node.relation
+    # the statistics' values as text planview reads exactly: ISO dates, shortest exact floats
+    session.cur.execute("SET LOCAL datestyle = 'ISO, YMD'")
+    session.cur.execute("SET LOCAL extra_float_digits = 3")
     relation = _relation(session, node, table, scans if scans is not None else {})
     version, block_size, default_target = session.one(SERVER_SQL)
     size, relkind, has_subclass = session.one(SIZE_SQL, (relation.oid,))
@@ -277,7 +284,8 @@ def table_stats(session: _Session, node, columns, *, endpoints=(), scans: dict |
     if names:
         _columns(session, stats, names)
         _column_statistics(session, stats, [n for n in names if n in stats.columns])
-        _indexes(session, stats)
+    _indexes(session, stats)
+    if names:
         for name in sorted(set(endpoints)):
             column = stats.columns.get(name)
             if column is not None and column.leading_btree:
@@ -335,8 +343,10 @@ def _column_statistics(session: _Session, stats: TableStats, names: list[str]) -
 
 def _indexes(session: _Session, stats: TableStats) -> None:
     by_attnum = {c.attnum: c for c in stats.columns.values()}
-    for attnum, unique, key_columns, am, plain, valid, collation, default_opclass, name in \
+    for attnum, unique, key_columns, am, plain, valid, collation, default_opclass, name, partial in \
             session.run(INDEXES_SQL, (stats.relation.oid,)).fetchall()[:500]:
+        if partial:
+            stats.partial_indexes.add(name)
         column = by_attnum.get(int(attnum or 0))
         if column is None or not valid or not plain:
             continue
