@@ -195,18 +195,20 @@ def write_check(sql: str) -> str | None:
 
     The live session's classification (planview/live/safety.py) decides where it is present;
     the minimal sqlglot classification below stands in where it is not."""
+    from ..engines.postgresql import SQL_DIALECT
+
     try:
         from .safety import classify
     except ImportError:
         classify = None
     if classify is not None:
-        verdict = classify(sql, "postgres")
+        verdict = classify(sql, SQL_DIALECT)
         return None if verdict.allowed and not verdict.writes else (verdict.reason or "it writes")
     import sqlglot
     from sqlglot import exp
 
     try:
-        trees = [t for t in sqlglot.parse(sql, read="postgres") if t is not None]
+        trees = [t for t in sqlglot.parse(sql, read=SQL_DIALECT) if t is not None]
     except Exception:
         return "the statement could not be parsed, so planview cannot vouch that it only reads"
     if len(trees) != 1:
