@@ -170,6 +170,8 @@ def finding_record(finding) -> dict[str, Any]:
             "added": words.finding_error(finding.own_q_error, finding.direction),
             "in_all": words.finding_error(finding.q_error, finding.direction),
             "also": [words.cause(c) for c in finding.also],
+            "measured": (finding.measured or {}).get("says"),
+            "proof": words.proof(finding.proof),
         },
     }
 

@@ -155,6 +155,31 @@ def cause(name: str | None) -> str | None:
     return CAUSE_WORDS.get(name, str(name).replace("_", " "))
 
 
+def proof(result: dict | None) -> str | None:
+    """A proven fix in one sentence (``planview.live.proof``).
+
+    >>> proof({"provable": True, "est_before": 5, "est_after": 212, "actual": 200, "plan_changed": False})
+    'with this fix the estimate would be 212 instead of 5; 200 were found (tried in a transaction that was rolled back)'
+    >>> proof({"provable": False, "why": "a rewrite of the query"})
+    'this fix cannot be proven on the server: a rewrite of the query'
+    """
+    if not result:
+        return None
+    if not result.get("provable"):
+        return f"this fix cannot be proven on the server: {result.get('why') or 'no reason given'}"
+    if result.get("est_after") is None:
+        return ("the fix was tried in a transaction that was rolled back, but the new plan has no "
+                "operator matching this one")
+    text = (f"with this fix the estimate would be {rows(round(result['est_after']))} instead of "
+            f"{rows(round(result['est_before']))}" if result.get("est_before") is not None else
+            f"with this fix the estimate would be {rows(round(result['est_after']))}")
+    if result.get("actual") is not None:
+        text += f"; {rows(round(result['actual']))} were found"
+    if result.get("plan_changed"):
+        text += "; the plan's shape changes"
+    return text + " (tried in a transaction that was rolled back)"
+
+
 def vocabulary() -> dict[str, Any]:
     """The words a view needs that are not per node: what the report carries as ``words``."""
     return {

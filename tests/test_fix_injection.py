@@ -120,7 +120,7 @@ def fixes(engine: str, names=QUOTABLE):
                 try:
                     fix = module.suggest_fix(cause, name, columns, table_parts=(name, name), **details)
                     refused = False
-                except UnquotableName as exc:  # the diagnosis writes this instead (diagnose._suggest)
+                except UnquotableName as exc:  # the diagnosis writes this instead (diagnose.fix_for)
                     fix, refused = (refused_fix(exc), ""), True
                 yield name, cause, variant, len(columns), fix, refused
 

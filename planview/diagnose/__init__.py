@@ -37,7 +37,7 @@ RULES = (
 CAUSES = tuple(name for name, _ in RULES) + ("unexplained",)
 """What a finding's cause can be; `not_diagnosed` marks an origin past `MAX_DIAGNOSED`."""
 
-__all__ = ["CAUSES", "RULES", "Candidate", "Context", "diagnose"]
+__all__ = ["CAUSES", "RULES", "Candidate", "Context", "diagnose", "fix_for", "table_parts"]
 
 
 MAX_DIAGNOSED = 500
@@ -138,7 +138,7 @@ def _fill(plan, finding, node, ctx: Context, candidates: list[Candidate], checke
         evidence["table"] = best.table
         evidence["columns"] = evidence.get("columns") or list(best.columns)
         evidence["expressions"] = list(best.expressions)
-        fix = _suggest(plan, best, names)
+        fix = fix_for(plan, best, names)
         finding.fix, finding.caution = fix if fix else (None, None)
         finding.summary = f"{best.cause.replace('_', ' ')}: {best.reason}."
     else:
@@ -172,7 +172,9 @@ def table_parts(plan) -> dict[str, tuple[str | None, str]]:
     return parts
 
 
-def _suggest(plan, candidate: Candidate, names: dict[str, tuple[str | None, str]]):
+def fix_for(plan, candidate: Candidate, names: dict[str, tuple[str | None, str]]):
+    """The engine's fix and caution for a candidate cause (also used when a live measurement
+    changes the cause), a refusal where a name cannot be quoted, or None."""
     details = dict(candidate.details)
     details["table_parts"] = names.get(candidate.table or "")
     if details.get("other_table"):

@@ -1716,7 +1716,11 @@ def suggest_fix(cause: str, table: str | None, columns: list[str], **details) ->
                    + _ANALYZE_CAUTION + " " + _CHANGE_PROCESS)
         return sql, caution
     if cause == "correlation" and len(cols) >= 2:
-        kinds = {"dependencies", "ndistinct", "mcv"}
+        # a live measurement may leave out the MCV list: when the group has more combinations
+        # than the list holds, PostgreSQL estimates the combinations left out as independent
+        # (statext_mcv_clauselist_selectivity) and never applies the functional dependency
+        kinds = set(details.get("statistics_kinds") or ()) & {"dependencies", "ndistinct", "mcv"} \
+            or {"dependencies", "ndistinct", "mcv"}
         name = _made_name([(details.get("table_parts") or (None, table))[-1], *columns], "_stats")
         sql = (f"CREATE STATISTICS IF NOT EXISTS {name} ({', '.join(sorted(kinds))})\n"
                f"    ON {', '.join(cols)} FROM {qt};\nANALYZE {qt};")

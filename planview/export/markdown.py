@@ -142,6 +142,11 @@ def render_markdown(plan) -> str:
             out += ["", "Impact: " + " ".join(x for x in (
                 md_text(ms(impact["ms"])) + "." if impact.get("ms") is not None else "",
                 md_text(impact.get("text") or "")) if x)]
+        said = f.get("text") or {}
+        if said.get("measured"):
+            out += ["", f"Measured on the server: {md_text(said['measured'])}"]
+        if said.get("proof"):
+            out += ["", f"Proof: {md_text(said['proof'])}."]
         if f.get("fix"):
             out += ["", "Fix:", "", md_fence(f["fix"], "sql"), "",
                     f"> **Before you run it:** {md_text(f.get('caution') or GENERIC_CAUTION)}"]
