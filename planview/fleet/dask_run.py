@@ -18,7 +18,7 @@ import os
 from pathlib import Path
 
 from ..errors import PlanviewError
-from .batch import BatchTotals, review_items, rows_frame
+from .batch import BatchTotals, review_items, rows_frame, table_frame
 from .logread import read_task, read_tasks
 
 PARTITION_BYTES = 32 << 20
@@ -26,12 +26,10 @@ PARTITION_BYTES = 32 << 20
 
 
 def _review_partition(items, threshold: float):
-    rows, bad, entries = review_items(items, threshold)
-    queries = [r for r in rows if r["row"] == "query"]
-    stats = {"entries": entries, "queries": len(queries), "nodes": len(rows) - len(queries),
-             "origins": sum(r["origins"] or 0 for r in queries),
-             "worst": max((r["worst_q_error"] for r in queries if r["worst_q_error"] is not None), default=1.0)}
-    return [(rows_frame(rows), bad, stats)]
+    built = review_items(items, threshold)
+    stats = {"entries": built.entries, "queries": built.queries, "nodes": built.nodes,
+             "origins": built.origins, "worst": built.worst_q_error}
+    return [(table_frame(built.table()), built.unreadable, stats)]
 
 
 def entry_bag(path, partition_bytes: int = PARTITION_BYTES):
