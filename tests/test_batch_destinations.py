@@ -230,7 +230,7 @@ def test_a_folder_with_all_three_logs_and_a_plan_file(collected, tmp_path):
     log, _, pair = collected
     folder = tmp_path / "mixed"
     folder.mkdir()
-    for kind, path in log.copies.items():
+    for path in log.copies.values():
         (folder / path.name).write_bytes(path.read_bytes())
     (folder / "plan.json").write_bytes(pair["before"][0].read_bytes())  # a plan, not a jsonlog
     assert log_kind(folder / "plan.json") is None
