@@ -271,7 +271,8 @@ def log_kind(path: str | os.PathLike) -> str | None:
             record = next(csv.reader([head] if "\n" not in head else _lines_with_ends(head)))
         except (csv.Error, StopIteration):
             record = []
-        if len(record) >= _CSV_MIN_FIELDS and record[_CSV_SEVERITY] in _SEVERITIES:
+        if len(record) > _CSV_SEVERITY and record[_CSV_SEVERITY] in _SEVERITIES:  # a long first
+            # record may be cut at 64 KB, but its severity comes before the message
             return "csvlog"
     if any(_HEADER.search(line) for line in head.splitlines()):
         return "stderr"
