@@ -15,6 +15,15 @@ def batch(path, **options):
     return _batch(path, **options)
 
 
+def connect(target, **options):
+    """A live session on a PostgreSQL connection string, a psycopg 3 connection, a DuckDB
+    connection or ``duckdb:///path`` (see `planview.live.connect`). EXPLAIN ANALYZE really
+    runs the statement: use a replica or a copy."""
+    from .live import connect as _connect
+
+    return _connect(target, **options)
+
+
 def compare(before, after, **options):
     """Two plans of the same query compared node by node (see `planview.fleet.compare`)."""
     from .fleet.compare import compare as _compare
@@ -22,5 +31,5 @@ def compare(before, after, **options):
     return _compare(before, after, **options)
 
 __all__ = ["Condition", "Finding", "Plan", "PlanNode", "PlanParseError", "PlanviewError",
-           "ProbeError", "batch", "compare", "load"]
+           "ProbeError", "batch", "compare", "connect", "load"]
 __version__ = "0.1.0"

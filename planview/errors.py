@@ -36,3 +36,8 @@ class PlanParseError(PlanviewError, ValueError):
 
 class ProbeError(PlanviewError):
     """A live-database probe could not run (no connection, refused statement...)."""
+
+
+class LiveError(ProbeError):
+    """A live review could not run: no connection, a refused statement, a timeout. The
+    message is one line, with every password masked."""

@@ -1,6 +1,11 @@
 """IPython integration: ``%load_ext planview`` registers ``%%planview`` (a pasted plan
 becomes a review) and ``%planview PATH`` (a plan file becomes one).
 
+``%%planview --dsn URL|VAR|ENVVAR`` reviews the SQL in the cell on a live database instead
+(`planview.live`): the DSN as written, a notebook variable holding a connection string, a
+connection or a `planview.live.Session`, or an environment variable holding the string (which
+keeps a password out of the notebook and its history). Caution: EXPLAIN ANALYZE really runs the statement; run it on a replica or a copy.
+
 Unreadable input prints the one-line `PlanParseError` message; it never raises into the
 notebook. IPython and the widget libraries are imported only when used, so ``import
 planview`` stays light for the command line.
@@ -37,6 +42,14 @@ def _magics_class():
         @argument("--name", "-n", help="also keep the review in this variable (to read .selected later)")
         @argument("--no-charts", action="store_true", help="the tree and detail only, no plotly charts")
         @argument("--query", "-q", help="the statement's SQL: a variable holding it, or a .sql file")
+        @argument("--dsn", help="review the cell's SQL on a live database: a connection string, a "
+                                "variable holding one (or a connection, or a planview Session), or an "
+                                "environment variable. EXPLAIN ANALYZE really runs it: use a replica or a copy")
+        @argument("--params", help="a variable holding the statement's parameters (with --dsn)")
+        @argument("--allow-writes", action="store_true",
+                  help="with --dsn: run INSERT, UPDATE, DELETE, MERGE too (rolled back)")
+        @argument("--statement-timeout", type=int, default=60_000, help="with --dsn: ms (default 60000)")
+        @argument("--lock-timeout", type=int, default=2_000, help="with --dsn: ms (default 2000)")
         @line_cell_magic
         def planview(self, line: str = "", cell: str | None = None):
             """Review a query plan: %%planview [--engine E] [--format F] [--threshold T] [--name VAR]"""
@@ -71,6 +84,13 @@ def _magics_class():
                               "readable file")
                         return None
             try:
+                if args.dsn:
+                    if cell is None:
+                        print("planview: --dsn reviews the SQL in the cell: put it under %%planview --dsn ...")
+                        return None
+                    source = self._live_plan(args, cell)
+                    if source is None:
+                        return None
                 result = review(source, engine=args.engine, fmt=args.fmt, threshold=args.threshold,
                                 charts=not args.no_charts, errors="raise", query=query)
             except PlanviewError as exc:
@@ -79,6 +99,41 @@ def _magics_class():
             if args.name:
                 self.shell.user_ns[args.name] = result
             return result
+
+        def _live_plan(self, args, sql: str):
+            """The cell's statement reviewed live; a one-line message (no password) if it cannot be."""
+            import os
+
+            from .live import Session, connect
+            from .redact import redact
+
+            target = args.dsn
+            held = self.shell.user_ns.get(target) if target.isidentifier() else None
+            if held is None and target.isidentifier() and os.environ.get(target):
+                held = os.environ[target]
+            if held is None and target.isidentifier():
+                print(f"planview: --dsn {target}: no notebook variable or environment variable of that name")
+                return None
+            target = held if held is not None else target
+            params = None
+            if args.params:
+                if args.params not in self.shell.user_ns:
+                    print(f"planview: --params {args.params!r} is not a notebook variable")
+                    return None
+                params = self.shell.user_ns[args.params]
+            print("planview: caution: EXPLAIN ANALYZE really runs the statement; run it on a replica or a "
+                  "copy (planview rolls it back, read-only unless --allow-writes)")
+            dsn = target if isinstance(target, str) else None
+            try:
+                if isinstance(target, Session):
+                    return target.review(sql, params, threshold=args.threshold)
+                with connect(target, statement_timeout_ms=args.statement_timeout,
+                             lock_timeout_ms=args.lock_timeout, allow_writes=args.allow_writes) as session:
+                    return session.review(sql, params, threshold=args.threshold)
+            except PlanviewError as exc:
+                failure = redact(str(exc), dsn)
+            print(f"planview: {failure}")
+            return None
 
     return PlanviewMagics
 

@@ -46,6 +46,8 @@ class Plan:
 
         diagnose(self)
         self._report: dict[str, Any] | None = None
+        self.live: dict[str, Any] | None = None
+        """Set by a live session's review: the statement and parameters it ran, to plan again."""
 
     # -- views ------------------------------------------------------------------------
     @property

@@ -103,9 +103,30 @@ def slowest_records(plan) -> list[dict[str, Any]]:
 
 
 def _statement_times(plan, statement) -> dict[str, Any]:
+    """The statement's operator time (its root's, with every input) and the time the review
+    shows for it: the execution time the engine printed, else that operator time."""
     times = plan.times
     root = statement.root
-    return {"total_ms": _ms(times.total_ms[root]) if root < len(times.total_ms) else None}
+    total = _ms(times.total_ms[root]) if root < len(times.total_ms) else None
+    execution = _clean(statement.execution_ms)
+    return {"total_ms": total,
+            "time_ms": execution if execution is not None else total,
+            "time_from": "execution" if execution is not None else ("operators" if total is not None else None)}
+
+
+def _sum(values) -> float | None:
+    """The sum of the figures present; None when none is."""
+    present = [v for v in values if v is not None]
+    return _clean(round(sum(present), 4)) if present else None
+
+
+def plan_times(statements: list[dict[str, Any]]) -> dict[str, Any]:
+    """The paste's times, summed over its statements: ``total_ms`` is what the review shows as
+    the time (each statement's execution time, or its operator time where none was printed),
+    ``execution_ms`` and ``planning_ms`` the sums of what the engine printed."""
+    return {"total_ms": _sum(s.get("time_ms") for s in statements),
+            "execution_ms": _sum(s.get("execution_ms") for s in statements),
+            "planning_ms": _sum(s.get("planning_ms") for s in statements)}
 
 
 def node_text(node) -> dict[str, str]:
@@ -152,6 +173,12 @@ def finding_record(finding) -> dict[str, Any]:
 
 
 def build_report(plan) -> dict[str, Any]:
+    statements = [
+        {"root": s.root, "planning_ms": _clean(s.planning_ms),
+         "execution_ms": _clean(s.execution_ms), "query_text": s.query_text,
+         **_statement_times(plan, s)}
+        for s in plan.statements
+    ]
     return {
         "report_version": REPORT_VERSION,
         "engine": plan.engine,
@@ -161,12 +188,8 @@ def build_report(plan) -> dict[str, Any]:
         "threshold": plan.options.threshold,
         "words": words.vocabulary(),
         "notes": list(plan.notes),
-        "statements": [
-            {"root": s.root, "planning_ms": _clean(s.planning_ms),
-             "execution_ms": _clean(s.execution_ms), "query_text": s.query_text,
-             **_statement_times(plan, s)}
-            for s in plan.statements
-        ],
+        "statements": statements,
+        **plan_times(statements),
         "nodes": [node_record(n, plan.times) for n in plan.nodes],
         "findings": [finding_record(f) for f in plan.findings],
         "slowest": slowest_records(plan),

@@ -148,3 +148,37 @@ def without_lone_surrogates(text: str, escapes: bool = False) -> tuple[str, int]
             count += sum(1 for m in _ESCAPES.finditer(text) if len(m.group()) not in (2, 12))
             text = mended
     return text, count
+
+
+PLAN_SUFFIXES = (".txt", ".json", ".xml", ".yaml", ".yml", ".plan")
+"""The file endings a folder's plans have; any other file in a folder is not read as one."""
+
+
+def is_beside_the_plans(path: Path) -> bool:
+    """A file kept beside plans that is not a plan: an expected result (``*.expected.json``),
+    a capture manifest, a README, a hidden file."""
+    name = path.name.lower()
+    return (name.endswith(".expected.json") or name == "manifest.json" or name.startswith("readme")
+            or name.startswith("."))
+
+
+def plan_files(folder: str | os.PathLike) -> tuple[list[Path], list[Path]]:
+    """The plan files under a folder, sorted, and the files skipped as not plans (a manifest,
+    an expected result, a README, a script, anything without a plan file's ending). Hidden
+    folders are not entered."""
+    root = Path(folder)
+    plans: list[Path] = []
+    skipped: list[Path] = []
+    for path in sorted(root.rglob("*")):
+        if any(part.startswith(".") for part in path.relative_to(root).parts[:-1]):
+            continue
+        try:
+            if not path.is_file():
+                continue
+        except OSError:
+            continue
+        if is_beside_the_plans(path) or path.suffix.lower() not in PLAN_SUFFIXES:
+            skipped.append(path)
+        else:
+            plans.append(path)
+    return plans, skipped

@@ -12,10 +12,44 @@ from . import words
 from .inert import visible
 
 
-def _ms(value) -> str:
-    if value is None:
-        return "-"
-    return f"{value:,.1f}" if value >= 100 else f"{value:,.3f}"
+def _statement_heading(number: int, count: int, statement: dict) -> str:
+    """A statement's heading in a paste of several: its number and its time."""
+    said = [f"statement {number} of {count}"]
+    if statement.get("execution_ms") is not None:
+        said.append(f"ran {words.ms(statement['execution_ms'])}")
+    elif statement.get("total_ms") is not None:
+        said.append(f"operators {words.ms(statement['total_ms'])}")
+    if statement.get("planning_ms") is not None:
+        said.append(f"planning {words.ms(statement['planning_ms'])}")
+    return "== " + ", ".join(said)
+
+
+def _times_line(report: dict) -> str | None:
+    """The paste's time: the statements' times summed, each named when there are several."""
+    if report.get("total_ms") is None:
+        return None
+    statements = report["statements"]
+    line = f"time: {words.ms(report['total_ms'])}"
+    if len(statements) > 1:
+        parts = [words.ms(s.get("time_ms")) for s in statements]
+        line += f", the sum of {len(statements)} statements ({' + '.join(parts)})"
+    if report.get("planning_ms") is not None:
+        line += f"; planning {words.ms(report['planning_ms'])}"
+    if any(s.get("time_from") == "operators" for s in statements):
+        line += "; where no execution time was printed, the operators' time"
+    return line
+
+
+def _query_lines(statement: dict, width: int, label: str = "query") -> list[str]:
+    query = (statement.get("query_text") or "").strip()
+    if not query:
+        return []
+    shown = query.splitlines()
+    lines = [visible(f"{label}: {shown[0][:width - 8]}")]
+    lines += [visible(f"       {line[:width - 8]}") for line in shown[1:12]]
+    if len(shown) > 12:
+        lines.append(visible(f"       ... ({words.plural(len(shown) - 12, 'more line')})"))
+    return lines
 
 
 def _mark(node: dict, by_id: dict) -> str:
@@ -42,19 +76,25 @@ def render(plan, width: int | None = None, color: bool = False) -> str:
         f"at q-error >= {report['threshold']:g}"),
     ]
     lines += [visible(f"note: {note}") for note in report["notes"]]
-    for number, statement in enumerate(report["statements"], 1):
-        query = (statement.get("query_text") or "").strip()
-        if query:
-            shown = query.splitlines()
-            lines.append(visible(f"query{f' {number}' if len(report['statements']) > 1 else ''}: {shown[0][:width - 8]}"))
-            lines += [visible(f"       {line[:width - 8]}") for line in shown[1:12]]
-            if len(shown) > 12:
-                lines.append(visible(f"       ... ({words.plural(len(shown) - 12, 'more line')})"))
-    times_head = f" {'total ms':>10} {'self ms':>10}" if timed else ""
+    statements = report["statements"]
+    several = len(statements) > 1
+    said_times = _times_line(report)
+    if said_times:
+        lines.append(said_times)
+    if not several:
+        for statement in statements:
+            lines += _query_lines(statement, width)
+    times_head = f" {'total time':>11} {'self time':>11}" if timed else ""
     header = (f"{'id':>5}  {'operator':<{label_width}} {'est total':>11} {'actual':>11} {'starts':>8}"
               f"{times_head} {'error':>20}  mark")
     lines += [header, "-" * min(width, len(header) + 20)]
+    shown_statement = None
     for node in nodes:
+        if several and node["statement"] != shown_statement and 0 <= node["statement"] < len(statements):
+            shown_statement = node["statement"]
+            statement = statements[shown_statement]
+            lines.append(_statement_heading(shown_statement + 1, len(statements), statement))
+            lines += _query_lines(statement, width)
         prefix = "  " * node["depth"]
         rel = node["parent_relationship"]
         if rel in ("InitPlan", "SubPlan") and node["subplan_name"]:
@@ -68,7 +108,7 @@ def render(plan, width: int | None = None, color: bool = False) -> str:
         text = node["text"]
         row = visible(f"{text['id']:>5}  {label:<{label_width}} {text['est']:>11} "
                       f"{text['actual']:>11} {text['starts']:>8}"
-                      + (f" {_ms(node.get('total_ms')):>10} {_ms(node.get('self_ms')):>10}" if timed else "")
+                      + (f" {words.ms(node.get('total_ms')):>11} {words.ms(node.get('self_ms')):>11}" if timed else "")
                       + f" {text['error']:>20}  "
                       f"{_mark(node, by_id)}").rstrip()
         if color and node["origin"]:
@@ -79,8 +119,8 @@ def render(plan, width: int | None = None, color: bool = False) -> str:
         below += ["", "Slowest operators (own time, in all starts; share of all operators' own time):"]
         for item in report["slowest"]:
             share = f"{item['share'] * 100:.1f}%" if item.get("share") is not None else "-"
-            below.append(f"{item['rank']}. #{item['node']} {item['label']}: {_ms(item['self_ms'])} ms own, "
-                         f"{share}; {_ms(item['total_ms'])} ms with its inputs"
+            below.append(f"{item['rank']}. #{item['node']} {item['label']}: {words.ms(item['self_ms'])} own, "
+                         f"{share}; {words.ms(item['total_ms'])} with its inputs"
                          + (" (an origin)" if item.get("origin") else ""))
     if report["findings"]:
         below += ["", "Origins (where an error was introduced), most impact first:"]
@@ -89,7 +129,8 @@ def render(plan, width: int | None = None, color: bool = False) -> str:
         node = by_id[finding["node"]]
         text = finding["text"]
         below.append(f"{text['rank']} at {node['text']['id']} {node['label']}: the estimate is {text['added']} here "
-                     f"({text['in_all']} in all)")
+                     f"({text['in_all']} in all)"
+                     + (f", in statement {node['statement'] + 1}" if several else ""))
         if finding["cause"]:
             confidence = finding["confidence"]
             below.append(f"   cause: {text['cause']}"
@@ -100,8 +141,9 @@ def render(plan, width: int | None = None, color: bool = False) -> str:
         impact = finding.get("impact") or {}
         if isinstance(impact, dict) and impact.get("origin_ms") is not None:
             share = impact.get("origin_share")
-            below.append(f"   time under it: {_ms(impact['origin_ms'])} ms"
-                         + (f" ({share * 100:.0f}% of the query)" if share is not None else ""))
+            below.append(f"   time under it: {words.ms(impact['origin_ms'])}"
+                         + (f" ({share * 100:.0f}% of {'its statement' if several else 'the query'})"
+                            if share is not None else ""))
         if finding["fix"]:
             below.append("   fix:")
             below += [f"     {line}" for line in finding["fix"].splitlines()]

@@ -207,3 +207,53 @@ def test_past_the_diagnosis_cap_origins_keep_rank_and_numbers():
     assert capped[1][:2] == full[1][:2] and capped[1][2] == "not_diagnosed"
     assert plan.findings[1].evidence["lines"] and plan.findings[1].caution
     assert any("diagnosed" in note for note in plan.notes)
+
+
+def test_a_dollar_in_a_literal_is_kept_and_a_parameter_still_read():
+    """PostgreSQL prints a query parameter as $n outside quotes (the manual, "PREPARE"); inside
+    a string literal a $ is a character of the value: a SCRAM verifier begins
+    'SCRAM-SHA-256$4096:' (RFC 5803). The real range_gap capture (PostgreSQL 16), its origin's
+    condition replaced: the evidence holds the literals exactly as the plan wrote them."""
+    import json
+
+    from plan_files import with_payloads
+
+    literal_low, literal_high = "SCRAM-SHA-256$4096:aa", "SCRAM-SHA-256$4096:zz"
+    condition = (f"((invoice_no >= '{literal_low}'::text) AND (invoice_no <= '{literal_high}'::text) "
+                 "AND (invoice_no > $1))")
+    doc = with_payloads(path("16", "range_gap", "json"), {"Index Cond": condition})
+    plan = planview.load(json.dumps(doc))
+    assert plan.findings
+    evidence = plan.findings[0].evidence
+    said = json.dumps(evidence, ensure_ascii=False)
+    assert "__pv_" not in said and "$param:" not in said
+    constants = [c for clause in evidence["clauses"] for c in clause["constants"]]
+    assert literal_low in constants and literal_high in constants
+    assert any(clause["has_parameter"] for clause in evidence["clauses"])
+    assert f"'{literal_low}'" in plan.to_markdown().replace("\\", "")
+
+
+def test_an_alias_names_a_table_of_its_own_statement_only():
+    """A paste of two real PostgreSQL 16 captures, the first's scan of owners aliased ``p``
+    (an alias is the statement's own: the manual, "Table and Column Aliases"); in the second,
+    join_correlated, ``p`` is pets. The second statement's join origin names pets, as its raw
+    plan says, never the first statement's owners."""
+    import json
+
+    from plan_files import with_payloads
+
+    first = with_payloads(path("16", "correlated", "json"), {"Alias": "p"})
+    second = json.loads(path("16", "join_correlated", "json").read_text(encoding="utf-8"))
+    scans, todo = {}, [second[0]["Plan"]]
+    while todo:  # the second statement's own aliases, read from its raw JSON
+        node = todo.pop()
+        if "Alias" in node:
+            scans[node["Alias"]] = node["Relation Name"]
+        todo += node.get("Plans", [])
+    assert scans["p"] == "pets"
+    plan = planview.load(json.dumps(first) + "\n" + json.dumps(second))
+    assert len(plan.statements) == 2
+    join = next(f for f in plan.findings if plan.nodes[f.node].statement == 1 and plan.nodes[f.node].relation is None)
+    assert join.cause == "correlation"
+    assert join.evidence["table"].split(".")[-1] == "pets"
+    assert "owners" not in join.fix and "pets" in join.fix

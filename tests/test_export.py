@@ -273,3 +273,79 @@ def test_every_cause_has_words_in_python_and_in_the_page():
     for cause in (*CAUSES, "not_diagnosed"):
         assert cause in CAUSE_WORDS, cause
         assert re.search(rf'\n  {cause}: "{re.escape(CAUSE_WORDS[cause])}",', script), cause
+
+
+# -- a paste of several statements in the ticket, one time format ---------------------------
+
+def _raw_json_statements(path: Path) -> list[dict]:
+    """A raw PostgreSQL JSON paste's statements (documents one after another), by json alone."""
+    text = path.read_text(encoding="utf-8")
+    decoder, at, found = json.JSONDecoder(), 0, []
+    while True:
+        while at < len(text) and text[at].isspace():
+            at += 1
+        if at >= len(text):
+            return found
+        doc, at = decoder.raw_decode(text, at)
+        found += doc
+
+
+def _operators(plan_node: dict) -> int:
+    stack, count = [plan_node], 0
+    while stack:
+        node = stack.pop()
+        count += 1
+        stack += node.get("Plans") or []
+    return count
+
+
+def test_markdown_shows_a_multi_statement_paste_statement_by_statement():
+    """plans/postgresql/pg16/multi.json: two statements (plans/README.md); the ticket's time is
+    the two printed Execution Times summed, and each statement has its heading with its own."""
+    from planview import words
+
+    raw = _raw_json_statements(PG16 / "multi.json")
+    assert len(raw) == 2
+    text = planview.load(PG16 / "multi.json").to_markdown()
+    execution = [s["Execution Time"] for s in raw]
+    planning = [s["Planning Time"] for s in raw]
+    assert f"- time: {words.ms(sum(execution))}, the sum of 2 statements" in text
+    assert f"- planning time: {words.ms(sum(planning))}" in text
+    for number, statement in enumerate(raw, 1):
+        heading = (f"#### Statement {number} of 2: {words.plural(_operators(statement['Plan']), 'operator')}, "
+                   f"ran {words.ms(statement['Execution Time'])}, planning {words.ms(statement['Planning Time'])}")
+        assert heading in text
+    # the fixture's two origins (multi.expected.json): one in each statement
+    statements = text.split("### Statements", 1)[1].split("\n### ", 1)[0]
+    first, second = statements.split("#### Statement 2 of 2", 1)
+    assert "owners" in first and "invoices" not in first and "invoices" in second
+
+
+@pytest.mark.parametrize("name", ["multi.json", "stale.json", "nested_loop_inherited.json"])
+def test_every_time_in_the_ticket_is_said_in_the_one_format(name):
+    from planview import words
+
+    text = planview.load(PG16 / name).to_markdown()
+    found = re.findall(r"(?<![\w.,])(\d[\d,]*(?:\.\d+)?) (ms|s)\b", text)
+    assert found
+    for number, unit in found:
+        value = float(number.replace(",", "")) * (1000 if unit == "s" else 1)
+        assert words.ms(value) == f"{number} {unit}", (number, unit)
+
+
+def test_static_tree_heads_each_statement_of_a_paste_with_its_time():
+    from planview import words
+
+    raw = _raw_json_statements(PG16 / "multi.json")
+    page = render_static_tree(planview.load(PG16 / "multi.json"))
+    execution = [s["Execution Time"] for s in raw]
+    assert f"2 statements, {words.ms(sum(execution))} in all" in page
+    headings = re.findall(r'<tr class="statement"><th colspan="6">(.*?)</th></tr>', page)
+    assert headings == [f"statement {i} of 2 · ran {words.ms(t)}" for i, t in enumerate(execution, 1)]
+
+
+def test_the_ticket_has_no_empty_evidence_field():
+    """multi.json's correlated origin has no expression (its clauses are bare columns): the
+    ticket lists no "expressions:" with nothing after it."""
+    text = planview.load(PG16 / "multi.json").to_markdown()
+    assert not re.search(r"^- [\w ]+:\s*$", text, re.M)

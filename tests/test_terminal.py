@@ -8,8 +8,10 @@ import subprocess
 import sys
 from pathlib import Path
 
+import pytest
+
 import planview
-from planview import engines
+from planview import engines, words
 from planview.textreport import render
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -74,3 +76,67 @@ def test_help_is_plain_text_with_exit_codes_and_valid_values():
         assert name in flat
     for fmt in ("json", "text", "xml", "yaml"):
         assert fmt in flat
+
+
+# -- a paste of several statements, and one time format ---------------------------------------
+
+MULTI = ROOT / "plans" / "postgresql" / "pg16" / "multi.json"  # two statements (plans/README.md)
+
+
+def _raw_statements(path: Path) -> list[dict]:
+    """The statements of a raw PostgreSQL JSON paste (several documents one after another),
+    read with json alone."""
+    import json
+
+    text = path.read_text(encoding="utf-8")
+    decoder, at, found = json.JSONDecoder(), 0, []
+    while True:
+        while at < len(text) and text[at].isspace():
+            at += 1
+        if at >= len(text):
+            return found
+        doc, at = decoder.raw_decode(text, at)
+        found += doc
+
+
+def test_a_paste_of_several_statements_is_shown_statement_by_statement():
+    raw = _raw_statements(MULTI)
+    assert len(raw) == 2
+    plan = planview.load(MULTI)
+    report = plan.report()
+    execution = [s["Execution Time"] for s in raw]
+    planning = [s["Planning Time"] for s in raw]
+    # the JSON report sums what the engine printed for each statement
+    assert report["execution_ms"] == pytest.approx(sum(execution), abs=1e-6)
+    assert report["total_ms"] == pytest.approx(sum(execution), abs=1e-6)
+    assert report["planning_ms"] == pytest.approx(sum(planning), abs=1e-6)
+    text = render(plan, width=160)
+    lines = text.splitlines()
+    assert f"time: {words.ms(sum(execution))}, the sum of 2 statements " \
+           f"({words.ms(execution[0])} + {words.ms(execution[1])})" in text
+    first = lines.index(f"== statement 1 of 2, ran {words.ms(execution[0])}, planning {words.ms(planning[0])}")
+    second = lines.index(f"== statement 2 of 2, ran {words.ms(execution[1])}, planning {words.ms(planning[1])}")
+    # each statement's root sits right under its heading: the raw plans' top operators
+    assert raw[0]["Plan"]["Node Type"] in lines[first + 1] and raw[1]["Plan"]["Node Type"] in lines[second + 1]
+    # the origins name their statement: the first statement's scan of owners, the second's of invoices
+    # (the case's fixture, plans/postgresql/pg16/multi.expected.json)
+    origin_lines = [line for line in lines if re.match(r"origin \d+ at #", line)]
+    assert any("owners" in line and line.endswith("in statement 1") for line in origin_lines)
+    assert any("invoices" in line and line.endswith("in statement 2") for line in origin_lines)
+
+
+def test_every_time_cell_is_said_in_the_one_format():
+    """The root's time with its inputs is PostgreSQL's Actual Total Time of the top operator
+    (per loop, one loop here; the manual, "Using EXPLAIN"), printed as words.ms says."""
+    raw = _raw_statements(DEEP)[0]["Plan"]
+    assert raw["Actual Loops"] == 1
+    text = render(planview.load(DEEP), width=200)
+    root_row = next(line for line in text.splitlines() if re.match(r"\s*#0\s", line))
+    assert f" {words.ms(raw['Actual Total Time'])} " in root_row
+    table = [line for line in text.splitlines() if re.match(r"\s*#\d+\s", line)]
+    for line in table:  # two time cells per row, each a number with its unit
+        assert len(re.findall(r"\d(?:[\d,.]*) (?:ms|s)\b", line)) == 2, line
+    slowest = [line for line in text.splitlines() if re.match(r"\d+\. #\d+ ", line)]
+    assert slowest
+    for line in slowest:  # "19.2 ms own, 76.0%; 25.0 ms with its inputs": each time once, with its unit
+        assert re.search(r": \d[\d,.]* (?:ms|s) own, [\d.]+%; \d[\d,.]* (?:ms|s) with its inputs", line), line

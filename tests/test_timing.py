@@ -271,7 +271,7 @@ def test_every_view_carries_the_times():
         n["self_ms"] for n in report["nodes"] if n["self_ms"] is not None)
     assert sum(item["share"] for item in report["slowest"]) <= 1.0 + 1e-9
     text = plan.to_text(width=160)
-    assert "self ms" in text and "Slowest operators" in text
+    assert "self time" in text and "Slowest operators" in text
     markdown = plan.to_markdown()
     assert "### Slowest operators" in markdown
     origin = report["findings"][0]

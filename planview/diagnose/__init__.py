@@ -59,7 +59,7 @@ def diagnose(plan, rules=RULES, max_diagnosed: int = MAX_DIAGNOSED) -> None:
         finding.impact = impact.of(plan.nodes[finding.node])
     plan.findings.sort(key=lambda f: (-(f.impact.get("ms") or 0.0), -(f.impact.get("rows") or 0.0),
                                       -f.own_q_error))
-    relation_of = relation_map(plan)
+    relation_maps = relation_map(plan)
     names = table_parts(plan)
     for rank, finding in enumerate(plan.findings, 1):
         finding.rank = rank
@@ -67,7 +67,7 @@ def diagnose(plan, rules=RULES, max_diagnosed: int = MAX_DIAGNOSED) -> None:
         if rank > max_diagnosed:
             _fill_undiagnosed(plan, finding, node, max_diagnosed)
             continue
-        ctx = build_context(plan, node, relation_of)
+        ctx = build_context(plan, node, relation_maps)
         candidates: list[Candidate] = []
         checked: list[str] = []
         for name, rule in rules:
@@ -177,6 +177,11 @@ def _suggest(plan, candidate: Candidate, names: dict[str, tuple[str | None, str]
     details["table_parts"] = names.get(candidate.table or "")
     if details.get("other_table"):
         details["other_table_parts"] = names.get(details["other_table"])
+    if details.get("tables"):
+        details["tables_parts"] = [names.get(t) or (None, t) for t in details["tables"]]
+    if details.get("columns_by_table"):
+        details["columns_by_table_parts"] = [(names.get(t) or (None, t), cols)
+                                             for t, cols in details["columns_by_table"].items()]
     try:
         return plan.engine_spec.suggest_fix(candidate.cause, candidate.table, candidate.columns,
                        expressions=candidate.expressions, **details)

@@ -64,6 +64,8 @@ class Clause:
     parse_error: str | None = None
     column_side: str | None = None
     """The SQL of the side holding the column(s), table qualifiers removed (``lower(code)``)."""
+    column_left: bool = True
+    """A comparison's column stands on the left (``x < 5``, not ``5 > x``)."""
 
     @property
     def is_join(self) -> bool:
@@ -103,6 +105,31 @@ def parse_condition(text: str, source: str, dialect: str | None,
     return [Clause(**vars(c)) for c in _parse_cached(text, source, dialect, subquery_mark)]
 
 
+_QUOTED = re.compile(r"'(?:[^']|'')*'|\"(?:[^\"]|\"\")*\"")
+"""A string literal or a quoted name, as the engines print them (a quote inside doubled)."""
+
+
+def _prepare(text: str, subquery_mark: str | None = None) -> str:
+    """The condition with its parameters and sub-plan references made placeholders sqlglot
+    reads, outside quotes only: a literal such as ``'SCRAM-SHA-256$4096:zz'`` stays as written.
+
+    >>> _prepare("(a = $1) AND (b = 'x$4096 SubPlan 2')")
+    "(a = __pv_param()) AND (b = 'x$4096 SubPlan 2')"
+    """
+    out, at = [], 0
+    for quoted in (*_QUOTED.finditer(text), None):
+        plain = text[at:quoted.start() if quoted else len(text)]
+        for pattern, replacement in _PREP:
+            plain = pattern.sub(replacement, plain)
+        if subquery_mark:
+            plain = re.sub(subquery_mark, f"{_SUBPLAN}()", plain)
+        out.append(plain)
+        if quoted:
+            out.append(quoted.group())
+            at = quoted.end()
+    return "".join(out)
+
+
 def _too_long(text: str, source: str) -> Clause:
     return Clause(text=f"{text[:200]}... ({len(text):,} characters)", source=source,
                   op_class="unparsed",
@@ -112,11 +139,7 @@ def _too_long(text: str, source: str) -> Clause:
 @lru_cache(maxsize=4096)
 def _parse_cached(text: str, source: str, dialect: str | None,
                   subquery_mark: str | None = None) -> tuple[Clause, ...]:
-    prepared = text
-    for pattern, replacement in _PREP:
-        prepared = pattern.sub(replacement, prepared)
-    if subquery_mark:
-        prepared = re.sub(subquery_mark, f"{_SUBPLAN}()", prepared)
+    prepared = _prepare(text, subquery_mark)
     try:
         tree = sqlglot.parse_one(prepared, read=dialect)
     except Exception as exc:  # sqlglot raises several types; none may escape
@@ -349,6 +372,8 @@ def _classify(node: exp.Expression, source: str, dialect: str | None) -> Clause:
     right = getattr(core, "expression", None)
     clause.operator = type(core).__name__
     if isinstance(core, exp.Is):
+        if core.args.get("negate"):  # sqlglot reads "x IS NOT NULL" as Is(negate=True)
+            negated = not negated
         clause.op_class = "is_not_null" if negated else "is_null"
         clause.columns, clause.bare, clause.wrappers = _column_side(left)
         return clause
@@ -397,6 +422,7 @@ def _classify(node: exp.Expression, source: str, dialect: str | None) -> Clause:
         else:
             clause.columns, clause.bare, clause.wrappers = right_cols, right_bare, right_wrap
         other = right if left_cols else left
+        clause.column_left = bool(left_cols)
         clause.constants, clause.constant_types, clause.has_parameter, clause.has_subplan = _constants(other)
         return clause
     # anything else: a user-defined or special operator, a bare boolean column, a function

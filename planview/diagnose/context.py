@@ -157,24 +157,28 @@ class Context:
         return (best[0], best[1]) if best else None
 
 
-def relation_map(plan) -> dict[str | None, str]:
-    """Alias (and bare relation name) to schema-qualified relation, from the plan's scans."""
-    mapping: dict[str | None, str] = {}
+def relation_map(plan) -> dict[int, dict[str | None, str]]:
+    """Per statement, alias (and bare relation name) to schema-qualified relation, from the
+    statement's scans: an alias belongs to its own statement, so ``o`` of one statement in a
+    paste never names the table ``o`` stands for in another. One pass over the nodes."""
+    maps: dict[int, dict[str | None, str]] = {}
     for node in plan.nodes:
         qualified = relation_name(node)
         if qualified:
+            mapping = maps.setdefault(node.statement, {})
             mapping.setdefault(node.alias or node.relation, qualified)
             mapping.setdefault(node.relation, qualified)
-    return mapping
+    return maps
 
 
-def build_context(plan, node, relation_of: Mapping[str | None, str] | None = None) -> Context:
-    """What the rules see of one origin. `relation_of` is the plan's `relation_map`, made
-    once per plan by the caller (made here when not given)."""
+def build_context(plan, node, relation_maps: Mapping[int, Mapping[str | None, str]] | None = None) -> Context:
+    """What the rules see of one origin. `relation_maps` is the plan's `relation_map`, made
+    once per plan by the caller (made here when not given); the origin sees its statement's."""
     nodes = plan.nodes
     engine = plan.engine_spec
-    if relation_of is None:
-        relation_of = relation_map(plan)
+    if relation_maps is None:
+        relation_maps = relation_map(plan)
+    relation_of: Mapping[str | None, str] = relation_maps.get(node.statement, {})
     # a join or grouping node: unqualified names belong to the one relation below, if one
     own_relation = relation_name(node) or plan.index.sole_relation_below(node.id)
     if own_relation:

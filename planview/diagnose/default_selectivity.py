@@ -11,6 +11,7 @@ True
 
 from __future__ import annotations
 
+from ..index import relation_name
 from .context import Candidate, Context, fmt_rows, fmt_sel
 
 NO_STATS_CLASSES = ("like_leading_wildcard", "not_like_leading_wildcard", "other")
@@ -78,16 +79,24 @@ def rule(ctx: Context) -> Candidate | None:
         score = min(0.95, score + 0.2) if score else 0.55
     table = None
     columns: list[str] = []
+    by_table: dict[str, set[str]] = {}
     for clause in opaque + special + [c for c, _, _ in non_constant]:
         table = table or ctx.table_of(clause) or ctx.relation_of.get(None)
         columns += [c.name for c in clause.columns]
+        for column in clause.columns:
+            owner = ctx.relation_of.get(column.qualifier)
+            if owner:
+                by_table.setdefault(owner, set()).add(column.name)
     return Candidate(cause="default_selectivity", score=score,
                      reason="the optimizer had no statistics for the clause"
                      + (" (its estimate equals a built-in default)" if match or grouping_default else ""),
                      lines=lines, fields=fields, table=table or ctx.relation_of.get(None),
                      columns=sorted(set(columns)), expressions=[e for e in expressions if e],
                      details={"aggregate": bool(aggregates), "non_constant": bool(non_constant),
-                              "subplan_value": any(c.has_subplan for c, _, _ in non_constant)})
+                              "subplan_value": any(c.has_subplan for c, _, _ in non_constant),
+                              # a clause over two tables (a join's): each table with its own columns
+                              "columns_by_table": {t: sorted(c) for t, c in sorted(by_table.items())}
+                              if len(by_table) > 1 else None})
 
 
 def _non_constant(ctx: Context, clauses) -> list:
@@ -139,4 +148,7 @@ def _unestimated_join_condition(ctx: Context) -> Candidate | None:
                "This output format prints no condition, so the condition is not named here; "
                "the same plan in a format that prints conditions names it."],
         fields={"estimated_share": estimated, "actual_share": actual},
-        table=ctx.relation_of.get(None), columns=[])
+        table=ctx.relation_of.get(None), columns=[],
+        # the condition is not printed, so its columns are unknown; the tables the join reads are not
+        details={"tables": [name for child in ctx.node.children
+                            if (name := relation_name(ctx.plan.nodes[child])) is not None]})

@@ -7,6 +7,7 @@ of everything below it, is the time that rode on the wrong number.
 
 from __future__ import annotations
 
+from .. import words
 from .context import fmt_rows
 
 
@@ -90,9 +91,9 @@ def _impact(plan, origin, decision, walker, query_ms) -> dict:
     else:
         text = f"the error stays at {origin.label} (#{origin.id})"
     if ms is not None:
-        text += f": {ms:,.1f} ms"
+        text += f": {words.ms(ms)}"
         if query_ms:
-            text += f", {min(100.0, 100 * ms / query_ms):.0f}% of the {query_ms:,.1f} ms query"
+            text += f", {min(100.0, 100 * ms / query_ms):.0f}% of the {words.ms(query_ms)} statement"
     rows = abs((origin.actual_total or 0) - (origin.est_total or 0))
     return {"ms": round(ms, 3) if ms is not None else None,
             "share": round(min(1.0, ms / query_ms), 4) if ms is not None and query_ms else None,

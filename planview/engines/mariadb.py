@@ -756,27 +756,61 @@ def quote_ident(name: str) -> str:
 def suggest_fix(cause: str, table: str | None, columns: list[str] | tuple[str, ...] = (),
                 **details: Any) -> tuple[str, str] | None:
     """Engine-independent statistics (histograms) in MariaDB's own statements; every name
-    quoted by `quote_ident`."""
-    parts = details.get("table_parts")
-    target = quote_ident(parts[-1] if parts else _bare(table)) if (parts or table) else "the_table"
-    cols = [quote_ident(c) for c in columns if c] or ["the_column"]
-    listed = ", ".join(cols)
-    analyze = f"ANALYZE TABLE {target} PERSISTENT FOR COLUMNS ({listed}) INDEXES ();"
-    caution = (f"ANALYZE TABLE ... PERSISTENT reads the whole of {target} (a full scan, no "
+    quoted by `quote_ident`. Each table gets its own columns (a join's condition spans two);
+    where the output printed no condition (the tabular ANALYZE) the columns are unknown, and
+    the statement collects every column's statistics of the tables the plan names. With no
+    table known at all there is no statement to give."""
+    targets = _targets(table, columns, details)
+    if not targets:
+        return None
+    analyze = "\n".join(
+        f"ANALYZE TABLE {target} PERSISTENT FOR COLUMNS ({listed}) INDEXES ();" if listed
+        else f"ANALYZE TABLE {target} PERSISTENT FOR ALL;"
+        for target, listed in targets)
+    names = " and ".join(target for target, _ in targets)
+    unknown = any(not listed for _, listed in targets)
+    caution = (f"ANALYZE TABLE ... PERSISTENT reads the whole of {names} (a full scan, no "
                "sampling in 10.6 to 11.x), sorts each column to build its histogram, and holds a "
                "metadata lock on the table while it runs; the statistics go to mysql.column_stats "
-               "and change the plans of every query on the table. optimizer_use_condition_selectivity "
-               "must be at least 4 (the default) for histograms to be used. Whether and when to run "
-               "it is for your change process and a DBA to decide.")
-    fix = _fix_for(cause, target, listed, analyze)
+               "and change the plans of every query on the table. "
+               + ("PERSISTENT FOR ALL does this for every column and index of the table: name the "
+                  "condition's columns instead where you know them. " if unknown else "")
+               + "optimizer_use_condition_selectivity must be at least 4 (the default) for "
+               "histograms to be used. Whether and when to run it is for your change process and "
+               "a DBA to decide.")
+    listed_all = ", ".join(listed for _, listed in targets if listed)
+    fix = _fix_for(cause, listed_all, analyze)
     if fix is None:
         return None
-    note = (f"-- {target} is the name in the plan: MariaDB shows a table's alias when the query "
-            "gives one; put the table's own name there.\n")
+    if len(targets) == 1:
+        note = (f"-- {names} is the name in the plan: MariaDB shows a table's alias when the query "
+                "gives one; put the table's own name there.\n")
+    else:
+        note = (f"-- {', '.join(t for t, _ in targets)} are the names in the plan: MariaDB shows a "
+                "table's alias when the query gives one; put each table's own name there.\n")
+    if unknown:
+        note += ("-- this output format prints no condition, so its columns are not known here; the "
+                 "JSON output of the same ANALYZE FORMAT=JSON statement names them.\n")
     return note + fix, caution
 
 
-def _fix_for(cause: str, target: str, listed: str, analyze: str) -> str | None:
+def _targets(table: str | None, columns, details: dict[str, Any]) -> list[tuple[str, str]]:
+    """(quoted table, its quoted columns or "") for each table the statement is about."""
+    parts = details.get("table_parts")
+    if parts or table:
+        cols = ", ".join(quote_ident(c) for c in columns if c)
+        return [(quote_ident(parts[-1] if parts else _bare(table)), cols)]
+    by_table = details.get("columns_by_table_parts") or []
+    if by_table:
+        return [(quote_ident(p[-1]), ", ".join(quote_ident(c) for c in cols if c)) for p, cols in by_table]
+    tables = details.get("tables_parts") or []
+    seen: dict[str, str] = {}
+    for p in tables:
+        seen.setdefault(quote_ident(p[-1]), "")
+    return list(seen.items())
+
+
+def _fix_for(cause: str, listed: str, analyze: str) -> str | None:
     if cause in ("skew", "range_gap", "stale_statistics"):
         size = 255 if cause != "stale_statistics" else None
         lines = ["SET SESSION histogram_type = JSON_HB;  -- 10.8 and later; DOUBLE_PREC_HB before"]
@@ -790,7 +824,8 @@ def _fix_for(cause: str, target: str, listed: str, analyze: str) -> str | None:
                f"{analyze}\n"
                "-- MariaDB has no multi-column statistics: histograms sharpen each column, but "
                "the optimizer still multiplies their selectivities. An index on "
-               f"({listed}) lets it count the combination from the index instead.")
+               + (f"({listed})" if listed else "the correlated columns")
+               + " lets it count the combination from the index instead.")
         return sql
     if cause == "default_selectivity":
         sql = (f"{analyze}\n"

@@ -1522,6 +1522,25 @@ DEFAULT_SELECTIVITIES = {
     "DEFAULT_NOT_UNK_SEL": 0.995,
 }
 DEFAULT_SELECTIVITIES["DEFAULT_NUM_DISTINCT"] = 200.0  # groups, not a selectivity
+# selfuncs.h: nulltestsel's guess for IS NULL without statistics (IS NOT NULL is
+# DEFAULT_NOT_UNK_SEL above). Kept apart from the table the diagnosis matches estimates
+# against, where it would tie with DEFAULT_EQ_SEL.
+DEFAULT_UNK_SEL = 0.005
+
+# Scans whose printed rows are the table's restriction estimate, clamp_row_est(tuples x
+# clauselist_selectivity(baserestrictinfo)), when not parameterised by an outer row
+# (set_baserel_size_estimates in costsize.c; cost_seqscan, cost_index and
+# cost_bitmap_heap_scan take baserel->rows), with the condition keys that print those clauses
+# (a bitmap heap scan's Recheck Cond repeats its index conditions). A bitmap index scan prints
+# clamp_row_est(tuples x clauselist_selectivity(its index conditions)) (create_bitmap_subplan in
+# createplan.c, with the selectivity genericcostestimate works out in selfuncs.c).
+RESTRICTION_SCANS = {
+    "Seq Scan": ("filter",),
+    "Index Scan": ("index_cond", "filter"),
+    "Index Only Scan": ("index_cond", "filter"),
+    "Bitmap Heap Scan": ("recheck_cond", "filter"),
+    "Bitmap Index Scan": ("index_cond",),
+}
 
 _CHANGE_PROCESS = ("Run it first on a copy or a test system; your change process and a DBA decide "
                    "whether and when it runs in production.")

@@ -98,8 +98,8 @@ def evidence_items(evidence: Any) -> tuple[list[str], list[tuple[str, str]]]:
         if isinstance(evidence.get("lines"), list) else []
     pairs: list[tuple[str, str]] = []
     for key, value in evidence.items():
-        if key == "lines" or value is None:
-            continue
+        if key == "lines" or value is None or (isinstance(value, (str, list, tuple)) and not value):
+            continue  # an empty field says nothing
         if isinstance(value, (list, tuple)):
             if any(isinstance(x, (dict, list, tuple)) for x in value):
                 continue

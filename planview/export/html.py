@@ -181,7 +181,11 @@ def render_static_tree(plan) -> str:
     facts = [f"{report['engine']}" + (f" {report['engine_version']}" if report["engine_version"] else ""),
              f"{report['format']} format", _words.plural(len(nodes), "operator"),
              f"{_words.plural(len(findings), 'origin')} at {factor(report['threshold'])} or worse"]
-    if statement.get("execution_ms") is not None:
+    statements = report["statements"]
+    if len(statements) > 1 and report.get("total_ms") is not None:
+        facts.append(f"{len(statements)} statements, {ms(report['total_ms'])} in all ("
+                     + " + ".join(ms(s.get("time_ms")) for s in statements) + ")")
+    elif statement.get("execution_ms") is not None:
         facts.append(f"ran {ms(statement['execution_ms'])}")
     out.append(f"<p><strong>Plan review</strong> · {esc(' · '.join(facts))}</p>")
     for n in report["notes"]:
@@ -194,7 +198,15 @@ def render_static_tree(plan) -> str:
                "<th class=\"n\">actual</th><th class=\"n\">starts</th><th>error</th><th></th>"
                "</tr></thead><tbody>")
     findings_by_node = {f["node"]: f for f in findings}
+    current = None
     for node in shown:
+        if len(statements) > 1 and node.get("statement") != current and 0 <= node.get("statement", -1) < len(statements):
+            current = node["statement"]
+            said = statements[current]
+            time = (f"ran {ms(said['execution_ms'])}" if said.get("execution_ms") is not None
+                    else f"operators {ms(said['total_ms'])}" if said.get("total_ms") is not None else "")
+            out.append(f'<tr class="statement"><th colspan="6">statement {current + 1} of {len(statements)}'
+                       + (f" · {esc(time)}" if time else "") + "</th></tr>")
         state = node_state(node)
         ratio = node["log10_ratio"] if node.get("judged") else None
         if ratio is None:

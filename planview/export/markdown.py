@@ -66,10 +66,18 @@ def render_markdown(plan) -> str:
     facts = [f"engine: {md_text(engine)} ({md_text(report['format'])})",
              _words.plural(len(nodes), "operator"),
              f"origins at {md_text(factor(report['threshold']))} or worse: {len(findings)}"]
-    if statement.get("execution_ms") is not None:
-        facts.append(f"execution time: {md_text(ms(statement['execution_ms']))}")
-    if statement.get("planning_ms") is not None:
-        facts.append(f"planning time: {md_text(ms(statement['planning_ms']))}")
+    statements = report["statements"]
+    several = len(statements) > 1
+    if report.get("total_ms") is not None:
+        said = f"time: {md_text(ms(report['total_ms']))}"
+        if several:
+            said += (f", the sum of {len(statements)} statements ("
+                     + " + ".join(md_text(ms(s.get("time_ms"))) for s in statements) + ")")
+        if any(s.get("time_from") == "operators" for s in statements):
+            said += "; where no execution time was printed, the operators' time"
+        facts.append(said)
+    if report.get("planning_ms") is not None:
+        facts.append(f"planning time: {md_text(ms(report['planning_ms']))}")
     judged = [n for n in nodes if n.get("judged")]
     worst = max(judged, key=lambda n: n.get("q_error") or 1.0, default=None)
     if worst and worst.get("q_error"):
@@ -79,7 +87,9 @@ def render_markdown(plan) -> str:
     out += [f"- note: {md_text(note)}" for note in report["notes"]]
     if not report["has_actuals"]:
         out.append("- estimates only: the plan has no actual rows, so nothing could be judged")
-    if statement.get("query_text"):
+    if several:
+        out += _statements(report, lang)
+    elif statement.get("query_text"):
         out += ["", "Query:", "", md_fence(statement["query_text"], lang)]
     out += _slowest(report)
     if not findings:
@@ -107,7 +117,8 @@ def render_markdown(plan) -> str:
         node = by_id.get(f["node"], {})
         cause = cause_words(f.get("cause"))
         out += ["", f"#### {f['rank']}. \\#{f['node']} {md_code(node.get('label') or '')}"
-                + (f": {md_text(cause)}" if cause else ""), ""]
+                + (f": {md_text(cause)}" if cause else "")
+                + (f" (statement {node['statement'] + 1})" if several and "statement" in node else ""), ""]
         out.append(f"Estimated {md_text(_rows(node.get('est_total')))} rows, got "
                    f"{md_text(_rows(node.get('actual_total')))} over {md_text(_rows(node.get('starts')))} "
                    f"start(s): {md_text(factor(f['own_q_error']))} too "
@@ -125,7 +136,8 @@ def render_markdown(plan) -> str:
         if isinstance(impact, dict) and impact.get("origin_ms") is not None:
             share = impact.get("origin_share")
             out += ["", f"Time under it (with its inputs, in all starts): {md_text(ms(impact['origin_ms']))}"
-                    + (f", {share * 100:.0f}% of the query." if share is not None else ".")]
+                    + (f", {share * 100:.0f}% of {'its statement' if several else 'the query'}."
+                       if share is not None else ".")]
         if isinstance(impact, dict) and (impact.get("text") or impact.get("ms") is not None):
             out += ["", "Impact: " + " ".join(x for x in (
                 md_text(ms(impact["ms"])) + "." if impact.get("ms") is not None else "",
@@ -141,6 +153,36 @@ def render_markdown(plan) -> str:
         for text in dict.fromkeys(cautions):
             out.append(f"- {md_text(text)}")
     return "\n".join(out) + "\n"
+
+
+def _statements(report, lang: str) -> list[str]:
+    """A paste of several statements, statement by statement: a heading with its time, its
+    query where the paste holds one, and the origins found in it."""
+    statements = report["statements"]
+    origins: dict[int, list[str]] = {}
+    by_id = {n["id"]: n for n in report["nodes"]}
+    for f in report["findings"]:
+        node = by_id.get(f["node"], {})
+        origins.setdefault(node.get("statement", 0), []).append(
+            f"origin {f['rank']} at \\#{f['node']} {md_code(node.get('label') or '')}")
+    operators: dict[int, int] = {}
+    for node in report["nodes"]:
+        operators[node.get("statement", 0)] = operators.get(node.get("statement", 0), 0) + 1
+    out = ["", "### Statements"]
+    for number, statement in enumerate(statements):
+        said = [_words.plural(operators.get(number, 0), "operator")]
+        if statement.get("execution_ms") is not None:
+            said.append(f"ran {md_text(ms(statement['execution_ms']))}")
+        elif statement.get("total_ms") is not None:
+            said.append(f"operators' time {md_text(ms(statement['total_ms']))}")
+        if statement.get("planning_ms") is not None:
+            said.append(f"planning {md_text(ms(statement['planning_ms']))}")
+        out += ["", f"#### Statement {number + 1} of {len(statements)}: {', '.join(said)}"]
+        if statement.get("query_text"):
+            out += ["", md_fence(statement["query_text"], lang)]
+        found = origins.get(number) or []
+        out += ["", ("Origins: " + "; ".join(found) + ".") if found else "No origin in this statement."]
+    return out
 
 
 def _slowest(report) -> list[str]:

@@ -158,9 +158,14 @@ def _transaction_status(conn) -> int:
 
 
 @contextmanager
-def _read_only(conn, budget: Budget):
+def _read_only(conn, budget: Budget, *, writable: bool = False, pin_settings: bool = True):
     """A read-only transaction of the probe's own, or a read-only savepoint inside the caller's;
-    rolled back whatever happens, the connection left as it was found."""
+    rolled back whatever happens, the connection left as it was found.
+
+    `writable` leaves out READ ONLY (a live review whose caller allowed writes: still rolled
+    back). `pin_settings=False` keeps the caller's ``search_path`` and string settings, for a
+    statement of the user's own rather than SQL planview wrote. A `ProbeError` raised inside
+    keeps its class (a `LiveError` stays one)."""
     status = _transaction_status(conn)
     if status == _INERROR:
         raise ProbeError("the connection's transaction has failed: roll it back first, or pass "
@@ -170,6 +175,7 @@ def _read_only(conn, budget: Budget):
     nested = status == _INTRANS
     previous_autocommit = getattr(conn, "autocommit", None)
     failure = None
+    failure_type: type[ProbeError] = ProbeError
     cur = None
     try:
         if not nested and previous_autocommit is False:
@@ -177,20 +183,23 @@ def _read_only(conn, budget: Budget):
         cur = conn.cursor()
         if nested:
             cur.execute(f"SAVEPOINT {SAVEPOINT}")
-            cur.execute("SET LOCAL transaction_read_only = on")
+            if not writable:
+                cur.execute("SET LOCAL transaction_read_only = on")
         else:
-            cur.execute("BEGIN TRANSACTION READ ONLY")
-        cur.execute("SET LOCAL standard_conforming_strings = on")
+            cur.execute("BEGIN" if writable else "BEGIN TRANSACTION READ ONLY")
+        if pin_settings:
+            cur.execute("SET LOCAL standard_conforming_strings = on")
         cur.execute(f"SET LOCAL lock_timeout = {min(budget.statement_ms, LOCK_TIMEOUT_MS)}")
         timeout_ms = budget.next_statement_ms()
         cur.execute(f"SET LOCAL statement_timeout = {int(timeout_ms)}")
         cur.execute("SELECT pg_catalog.current_schemas(false)::pg_catalog.text[]")
         session = _Session(cur, budget, list(cur.fetchone()[0] or []))
         session.timeout_ms = timeout_ms
-        cur.execute("SET LOCAL search_path = pg_catalog, pg_temp")
+        if pin_settings:
+            cur.execute("SET LOCAL search_path = pg_catalog, pg_temp")
         yield session
     except ProbeError as exc:
-        failure = str(exc)
+        failure, failure_type = str(exc), type(exc)
     except Exception as exc:  # a driver or server error: one clean line
         failure = f"probe failed: {_message(exc)}"
     finally:
@@ -200,9 +209,10 @@ def _read_only(conn, budget: Budget):
                 conn.autocommit = False
             except Exception:
                 pass
-    failure = failure or ended
     if failure:
-        raise ProbeError(failure)
+        raise failure_type(failure)
+    if ended:
+        raise ProbeError(ended)
 
 
 def _end(conn, cur, nested: bool) -> str | None:
