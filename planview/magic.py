@@ -151,6 +151,19 @@ def plan_mimebundle(plan) -> dict:
     return data
 
 
+def comparison_mimebundle(comparison) -> dict:
+    """A `Comparison` shown as a cell's value: its table over the two plans' own reviews,
+    with the static table for front ends without widgets."""
+    data = {"text/plain": comparison.headline(), "text/html": comparison._repr_html_()}
+    try:
+        from .widget.compare_view import ComparisonWidget
+    except ImportError:
+        return data
+    bundle = ComparisonWidget(comparison)._repr_mimebundle_()
+    data.update(bundle[0] if isinstance(bundle, tuple) else bundle)
+    return data
+
+
 def load_ipython_extension(ipython) -> None:
     """``%load_ext planview``: the magics, and a `Plan` as a cell's value becomes its review.
 
@@ -159,3 +172,6 @@ def load_ipython_extension(ipython) -> None:
 
     ipython.register_magics(_magics_class())
     ipython.display_formatter.mimebundle_formatter.for_type(Plan, plan_mimebundle)
+    from .fleet.compare import Comparison
+
+    ipython.display_formatter.mimebundle_formatter.for_type(Comparison, comparison_mimebundle)

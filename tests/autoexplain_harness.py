@@ -108,6 +108,7 @@ class CapturedLog:
     templates: list[int] = field(default_factory=list)        # which of the 4 statement shapes
     engine_shapes: list[tuple] = field(default_factory=list)  # from EXPLAIN (FORMAT JSON)
     sql: list[str] = field(default_factory=list)
+    copies: dict[str, Path] = field(default_factory=dict)  # log kind -> the captured part of it
 
 
 class AutoExplainServer(PgServer):
@@ -117,8 +118,43 @@ class AutoExplainServer(PgServer):
         super()._append_conf(text + "".join(f"{k} = {v}\n" for k, v in AUTO_EXPLAIN_CONF.items()))
 
 
+class CollectorServer(AutoExplainServer):
+    """An AutoExplainServer whose logging collector writes every message three ways at once:
+    a stderr-style log, a csvlog and a jsonlog (``log_destination = 'stderr,csvlog,jsonlog'``,
+    PostgreSQL 15+ for jsonlog). `logfile` is moved to the collector's stderr file once started,
+    so `capture` reads it as it reads the plain server's."""
+
+    COLLECTOR_CONF = {
+        "logging_collector": "on",
+        "log_destination": "'stderr,csvlog,jsonlog'",
+        "log_directory": "'pvlog'",
+        "log_filename": "'server.log'",
+        "log_rotation_age": "0",
+        "log_rotation_size": "0",
+    }
+
+    def _append_conf(self, text: str) -> None:
+        super()._append_conf(text + "".join(f"{k} = {v}\n" for k, v in self.COLLECTOR_CONF.items()))
+
+    def start(self):
+        super().start()
+        folder = self.datadir / "pvlog"
+        self.destinations = {"stderr": folder / "server.log", "csvlog": folder / "server.csv",
+                             "jsonlog": folder / "server.json"}
+        self.logfile = self.destinations["stderr"]
+        return self
+
+
 def _wait_for_log(server: PgServer) -> None:
-    time.sleep(0.3)
+    """Until the server's log files stop growing (the collector writes them a moment later)."""
+    files = list(getattr(server, "destinations", {"stderr": server.logfile}).values())
+    last = None
+    for _ in range(50):
+        time.sleep(0.2)
+        sizes = [f.stat().st_size if f.exists() else -1 for f in files]
+        if sizes == last:
+            return
+        last = sizes
 
 
 def capture(server: PgServer, out: Path) -> CapturedLog:
@@ -147,7 +183,8 @@ def capture(server: PgServer, out: Path) -> CapturedLog:
                 conn.execute("RESET ALL")
                 conn.execute("SET auto_explain.log_min_duration = -1")
     _wait_for_log(server)
-    start = server.logfile.stat().st_size
+    logs = getattr(server, "destinations", {"stderr": server.logfile})
+    starts = {kind: f.stat().st_size for kind, f in logs.items()}
     for round_no, prefix in enumerate(PREFIXES):
         with server.connect(autocommit=True) as conn:
             conn.execute("SET auto_explain.log_min_duration = -1")
@@ -186,7 +223,10 @@ def capture(server: PgServer, out: Path) -> CapturedLog:
         conn.execute("ALTER SYSTEM RESET log_statement")
         conn.execute("SELECT pg_reload_conf()")
     _wait_for_log(server)
-    with open(server.logfile, "rb") as src:
-        src.seek(start)
-        out.write_bytes(src.read())
+    for kind, path in logs.items():
+        target = out if kind == "stderr" else out.with_suffix({"csvlog": ".csv", "jsonlog": ".json"}[kind])
+        with open(path, "rb") as src:
+            src.seek(starts[kind])
+            target.write_bytes(src.read())
+        captured.copies[kind] = target
     return captured

@@ -283,3 +283,98 @@ def render_static_tree(plan) -> str:
 
 
 __all__ = ["LARGE_PLAN", "compact_report", "pack_source", "render_html", "render_static_tree", "widget_css", "widget_module"]
+
+
+# -- two plans compared ----------------------------------------------------------------------------
+
+_COMPARE_BOOT = """
+const planviewModels = {};
+for (const side of ["before", "after"]) {
+  const data = JSON.parse(document.getElementById(`planview-data-${side}`).textContent);
+  planviewModels[side] = localModel({ report: data.report, selected: null, chart_mode: "svg", can_save: false });
+  render({ model: planviewModels[side], el: document.getElementById(`planview-${side}`) });
+}
+const planviewRows = Array.from(document.querySelectorAll("#planview-compare tbody tr"));
+const planviewPick = (row) => {
+  for (const other of planviewRows) other.classList.toggle("pv-picked", other === row);
+  for (const side of ["before", "after"]) {
+    const value = row.dataset[side];
+    planviewModels[side].set("selected", value === "" ? null : Number(value));
+  }
+};
+for (const row of planviewRows) {
+  row.tabIndex = 0;
+  row.addEventListener("click", () => planviewPick(row));
+  row.addEventListener("keydown", (event) => { if (event.key === "Enter") planviewPick(row); });
+}
+"""
+
+_COMPARE_CSS = """
+.pv-compare { font-family: system-ui, sans-serif; font-size: 13px; }
+.pv-compare table { border-collapse: collapse; margin: 8px 0 16px; }
+.pv-compare th, .pv-compare td { border-bottom: 1px solid #ddd; padding: 3px 8px; text-align: left; }
+.pv-compare tbody tr { cursor: pointer; }
+.pv-compare tbody tr:hover, .pv-compare tbody tr.pv-picked { background: #eef3fb; }
+.pv-compare .v-better td:last-child { color: #1a7f37; }
+.pv-compare .v-worse td:last-child { color: #b42318; font-weight: 600; }
+.pv-sides { display: grid; grid-template-columns: 1fr; gap: 18px; }
+.pv-side h3 { font-family: system-ui, sans-serif; font-size: 14px; margin: 6px 0; }
+"""
+
+COMPARE_COLUMNS = (("position", "place"), ("label", "operator"), ("before_rows", "before (est / act)"),
+                   ("before_q", "q-error"), ("after_rows", "after (est / act)"), ("after_q", "q-error"),
+                   ("verdict", "verdict"))
+"""The comparison table's columns: the report's key and the heading (every view lays out these)."""
+
+
+def comparison_table(report: dict[str, Any]) -> str:
+    """The comparison's node table as HTML, every cell escaped; each row names the matched
+    node ids (for the page's script, which selects them in the two reviews)."""
+    e = html.escape
+    head = "".join(f"<th>{e(title)}</th>" for _, title in COMPARE_COLUMNS)
+    body = []
+    for n in report["nodes"]:
+        before = "" if n["before"] is None else str(int(n["before"]))
+        after = "" if n["after"] is None else str(int(n["after"]))
+        cells = "".join(f"<td>{e(visible(str(n[key])))}</td>" for key, _ in COMPARE_COLUMNS)
+        body.append(f"<tr class=\"v-{e(n['verdict'].replace(' ', '-'))}\" data-before=\"{before}\" "
+                    f"data-after=\"{after}\">{cells}</tr>")
+    return f"<table id=\"planview-compare\"><thead><tr>{head}</tr></thead><tbody>{''.join(body)}</tbody></table>"
+
+
+def render_comparison_html(comparison) -> str:
+    """One offline page for two plans compared: the comparison's table, then each plan's own
+    review (the same ES module and data as a single review's page, rendered twice); picking a
+    row selects its two nodes. Falls back to the table and the static trees with no script."""
+    report = comparison.report()
+    plans = {"before": comparison.before_plan, "after": comparison.after_plan}
+    module = widget_module()
+    if "</script" in module.lower() or "<!--" in module:
+        raise RuntimeError("review.js must not contain '</script' or '<!--'")
+    script = module + "\n" + _COMPARE_BOOT
+    digest = base64.b64encode(hashlib.sha256(script.encode("utf-8")).digest()).decode("ascii")
+    policy = (f"default-src 'none'; script-src 'sha256-{digest}'; style-src 'unsafe-inline'; "
+              "img-src data:; form-action 'none'; base-uri 'none'")
+    e = html.escape
+    sides = []
+    data = []
+    for side, plan in plans.items():
+        name = report[side]
+        sides.append(f"<section class=\"pv-side\"><h3>{e(side)}: {e(visible(name))}</h3>"
+                     f"<div id=\"planview-{side}\"></div><noscript>{render_static_tree(plan)}</noscript></section>")
+        data.append(f"<script type=\"application/json\" id=\"planview-data-{side}\">"
+                    f"{_json_for_script({'report': compact_report(plan.report())})}</script>")
+    return "".join([
+        "<!DOCTYPE html>\n<html lang=\"en\"><head><meta charset=\"utf-8\">",
+        f"<meta http-equiv=\"Content-Security-Policy\" content=\"{e(policy)}\">",
+        "<meta name=\"viewport\" content=\"width=device-width, initial-scale=1\">",
+        "<meta name=\"generator\" content=\"planview\">",
+        f"<title>{e(visible('planview comparison: ' + report['before'] + ' → ' + report['after']))}</title>",
+        "<style>", widget_css(), _PAGE_CSS, _COMPARE_CSS, "</style></head><body><main>",
+        "<section class=\"pv-compare\"><h2>Plan comparison</h2>",
+        f"<p>{e(visible(report['before']))} → {e(visible(report['after']))}</p>",
+        f"<p>{e(visible(report['headline']))}</p>", comparison_table(report), "</section>",
+        "<div class=\"pv-sides\">", *sides, "</div></main>", *data,
+        "<script type=\"module\">", script, "</script>",
+        "</body></html>\n",
+    ])

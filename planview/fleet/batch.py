@@ -15,6 +15,7 @@ from __future__ import annotations
 
 import hashlib
 import os
+import re
 import sys
 from collections import deque
 from concurrent.futures import ProcessPoolExecutor
@@ -22,7 +23,7 @@ from dataclasses import dataclass, field
 from typing import Any, Iterator
 
 from ..errors import PlanviewError
-from .logread import Entry, Unreadable, fingerprint, read_task, read_tasks
+from .logread import Entry, Unreadable, fingerprint, input_bytes, iter_tasks, read_task
 
 # the table's columns, in order, with their Arrow types (one schema for every chunk)
 COLUMNS: tuple[tuple[str, str], ...] = (
@@ -97,78 +98,131 @@ def shape_of(nodes: list[dict]) -> str:
     return digest.hexdigest()[:16]
 
 
+_QUERY_ONLY = ("query_text", "shape", "nodes", "judged_nodes", "origins", "worst_q_error", "execution_ms")
+_COMMON = ("query_id", "fingerprint", "source", "line", "log_time", "pid", "duration_ms", "engine", "format")
+_NODE_KEYS = (("statement", "statement"), ("node", "id"), ("parent", "parent"), ("depth", "depth"),
+              ("operator", "operator"), ("relation", "relation"), ("schema", "schema"), ("alias", "alias"),
+              ("index_name", "index"), ("est_rows", "est_rows"), ("actual_rows", "actual_rows"),
+              ("starts", "starts"), ("est_total", "est_total"), ("actual_total", "actual_total"),
+              ("q_error", "q_error"), ("actual_total_ms", "actual_total_ms"))
+_FINDING_ONLY = ("own_q_error", "direction", "cause", "confidence", "table", "columns", "fix", "caution",
+                 "impact_ms")
+
+
+class RowColumns:
+    """The batch table being built a column at a time: a list per column, the query row of an
+    entry and then its nodes. A worker fills one and sends back the Arrow table made from it,
+    so no row dictionary is built and only typed columns cross between processes."""
+
+    def __init__(self):
+        self.columns: dict[str, list] = {name: [] for name in COLUMN_NAMES}
+        self.entries = 0
+        self.queries = 0
+        self.nodes = 0
+        self.origins = 0
+        self.worst_q_error = 1.0
+        self.unreadable: list[Unreadable] = []
+
+    def add(self, item, threshold: float = 10.0) -> None:
+        """Review one entry (an Unreadable is only counted) and append its rows."""
+        if isinstance(item, Unreadable):
+            self.unreadable.append(item)
+            return
+        self.entries += 1
+        bad = self._append(item, threshold)
+        if bad is not None:
+            self.unreadable.append(bad)
+
+    def _append(self, entry: Entry, threshold: float) -> Unreadable | None:
+        from ..errors import PlanParseError
+        from ..plan import load
+
+        try:
+            plan = load(entry.text, engine=entry.engine, fmt=entry.fmt, threshold=threshold)
+        except PlanParseError as exc:
+            line = entry.line
+            if getattr(exc, "line", None) and not entry.one_line_record:
+                line = (entry.text_line or entry.line) + exc.line - 1
+            return Unreadable(entry.source, line, str(exc))
+        except Exception as exc:  # one bad entry never stops the batch; the reason is kept
+            return Unreadable(entry.source, entry.line, f"internal error ({type(exc).__name__}: {exc})")
+        report = plan.report()
+        nodes = report["nodes"]
+        statements = report["statements"]
+        findings = {f["node"]: f for f in report["findings"]}
+        query_text = entry.query_text or next((s["query_text"] for s in statements if s.get("query_text")), None)
+        common = (entry.query_id, fingerprint(query_text), entry.source, entry.line, entry.log_time, entry.pid,
+                  entry.duration_ms, report["engine"], report["format"])
+        worst = max((f["own_q_error"] for f in findings.values() if f["own_q_error"] is not None), default=None)
+        query = dict(zip(_COMMON, common), row="query", query_text=query_text, shape=shape_of(nodes),
+                     nodes=len(nodes), judged_nodes=sum(1 for n in nodes if n.get("judged")),
+                     origins=len(findings), worst_q_error=worst,
+                     execution_ms=next((s["execution_ms"] for s in statements
+                                        if s.get("execution_ms") is not None), None))
+        cols = self.columns
+        for name in COLUMN_NAMES:
+            cols[name].append(query.get(name))
+        n = len(nodes)
+        cols["row"].extend(["node"] * n)
+        for name, value in zip(_COMMON, common):
+            cols[name].extend([value] * n)
+        for name in _QUERY_ONLY:
+            cols[name].extend([None] * n)
+        for name, key in _NODE_KEYS:
+            cols[name].extend([node.get(key) for node in nodes])
+        cols["position"].extend(_position_paths(nodes))
+        cols["judged"].extend([bool(node.get("judged")) for node in nodes])
+        cols["origin"].extend([bool(node.get("origin")) for node in nodes])
+        own = {name: [None] * n for name in _FINDING_ONLY}
+        for i, node in enumerate(nodes):
+            found = findings.get(node["id"])
+            if found is None:
+                continue
+            evidence = found.get("evidence") or {}
+            columns = evidence.get("columns")
+            own["own_q_error"][i] = found["own_q_error"]
+            own["direction"][i] = found["direction"]
+            own["cause"][i] = found["cause"]
+            own["confidence"][i] = found["confidence"]
+            own["table"][i] = evidence.get("table")
+            own["columns"][i] = ",".join(columns) if isinstance(columns, list) else None
+            own["fix"][i] = found.get("fix")
+            own["caution"][i] = found.get("caution")
+            own["impact_ms"][i] = (found.get("impact") or {}).get("ms")
+        for name in _FINDING_ONLY:
+            cols[name].extend(own[name])
+        self.queries += 1
+        self.nodes += n
+        self.origins += len(findings)
+        if worst is not None:
+            self.worst_q_error = max(self.worst_q_error, worst)
+        return None
+
+    def table(self):
+        import pyarrow as pa
+
+        schema = arrow_schema()
+        return pa.table([pa.array(self.columns[name], type=schema.field(name).type) for name in COLUMN_NAMES],
+                        schema=schema)
+
+    def rows(self) -> list[dict]:
+        cols = [self.columns[name] for name in COLUMN_NAMES]
+        return [dict(zip(COLUMN_NAMES, values)) for values in zip(*cols)]
+
+
 def review_entry(entry: Entry, threshold: float = 10.0) -> list[dict[str, Any]] | Unreadable:
     """The rows of one entry (the query row first), or why it could not be read."""
-    from ..errors import PlanParseError
-    from ..plan import load
-
-    try:
-        plan = load(entry.text, engine=entry.engine, fmt=entry.fmt, threshold=threshold)
-    except PlanParseError as exc:
-        line = entry.line
-        if getattr(exc, "line", None):
-            line = (entry.text_line or entry.line) + exc.line - 1
-        return Unreadable(entry.source, line, str(exc))
-    except Exception as exc:  # one bad entry never stops the batch; the reason is kept
-        return Unreadable(entry.source, entry.line, f"internal error ({type(exc).__name__}: {exc})")
-    report = plan.report()
-    nodes = report["nodes"]
-    findings = {f["node"]: f for f in report["findings"]}
-    statements = report["statements"]
-    query_text = entry.query_text or next((s["query_text"] for s in statements if s.get("query_text")), None)
-    common = {
-        "query_id": entry.query_id, "fingerprint": fingerprint(query_text), "source": entry.source,
-        "line": entry.line, "log_time": entry.log_time, "pid": entry.pid,
-        "duration_ms": entry.duration_ms, "engine": report["engine"], "format": report["format"],
-    }
-    paths = _position_paths(nodes)
-    judged = [n for n in nodes if n.get("judged")]
-    query = dict(common, row="query", query_text=query_text, shape=shape_of(nodes), nodes=len(nodes),
-                 judged_nodes=len(judged), origins=len(findings),
-                 worst_q_error=max((f["own_q_error"] for f in findings.values()), default=None),
-                 execution_ms=next((s["execution_ms"] for s in statements
-                                    if s.get("execution_ms") is not None), None))
-    rows = [query]
-    for node, path in zip(nodes, paths):
-        found = findings.get(node["id"])
-        evidence = (found or {}).get("evidence") or {}
-        impact = (found or {}).get("impact") or {}
-        columns = evidence.get("columns")
-        rows.append(dict(
-            common, row="node", statement=node["statement"], node=node["id"], parent=node["parent"],
-            position=path, depth=node["depth"], operator=node["operator"], relation=node.get("relation"),
-            schema=node.get("schema"), alias=node.get("alias"), index_name=node.get("index"),
-            est_rows=node.get("est_rows"), actual_rows=node.get("actual_rows"), starts=node.get("starts"),
-            est_total=node.get("est_total"), actual_total=node.get("actual_total"),
-            q_error=node.get("q_error"), judged=bool(node.get("judged")), origin=bool(node.get("origin")),
-            own_q_error=found["own_q_error"] if found else None,
-            direction=found["direction"] if found else None,
-            cause=found["cause"] if found else None,
-            confidence=found["confidence"] if found else None,
-            table=evidence.get("table") if found else None,
-            columns=",".join(columns) if found and isinstance(columns, list) else None,
-            fix=found.get("fix") if found else None, caution=found.get("caution") if found else None,
-            actual_total_ms=node.get("actual_total_ms"), impact_ms=impact.get("ms"),
-        ))
-    return rows
+    built = RowColumns()
+    built.add(entry, threshold)
+    return built.unreadable[0] if built.unreadable else built.rows()
 
 
-def review_items(items, threshold: float = 10.0) -> tuple[list[dict], list[Unreadable], int]:
-    """The rows of a list of entries (unreadables passed through), and how many entries there were."""
-    rows: list[dict] = []
-    bad: list[Unreadable] = []
-    entries = 0
+def review_items(items, threshold: float = 10.0) -> RowColumns:
+    """The rows of a list of entries (unreadables passed through), built as columns."""
+    built = RowColumns()
     for item in items:
-        if isinstance(item, Unreadable):
-            bad.append(item)
-            continue
-        entries += 1
-        result = review_entry(item, threshold)
-        if isinstance(result, Unreadable):
-            bad.append(result)
-        else:
-            rows.extend(result)
-    return rows, bad, entries
+        built.add(item, threshold)
+    return built
 
 
 @dataclass
@@ -191,12 +245,10 @@ class Chunk:
 def review_task(task, threshold: float = 10.0) -> Chunk:
     """Read one task (a log range, a group of plan files) and review it, all in this process:
     only the Arrow table and the counts go back to the process that asked."""
-    rows, bad, entries = review_items(read_task(task), threshold)
-    queries = [r for r in rows if r["row"] == "query"]
-    return Chunk(table=arrow_table(rows), unreadable=bad, entries=entries, queries=len(queries),
-                 nodes=len(rows) - len(queries), origins=sum(r["origins"] or 0 for r in queries),
-                 worst_q_error=max((r["worst_q_error"] for r in queries if r["worst_q_error"] is not None),
-                                   default=1.0), size=task[-1])
+    built = review_items(read_task(task), threshold)
+    return Chunk(table=built.table(), unreadable=built.unreadable, entries=built.entries,
+                 queries=built.queries, nodes=built.nodes, origins=built.origins,
+                 worst_q_error=built.worst_q_error, size=task[-1])
 
 
 def default_workers() -> int:
@@ -206,21 +258,36 @@ def default_workers() -> int:
         return max(1, os.cpu_count() or 1)
 
 
-TASK_BYTES = 1 << 20
-"""A log is cut into ranges of about this size, each read and reviewed by one process."""
+TASK_BYTES_MIN = 256 << 10
+TASK_BYTES_MAX = 4 << 20
+"""A log is cut into ranges, each read and reviewed by one process: about an eighth of the
+input per worker, between these bounds. Large enough that a task's fixed costs (a result
+sent back, an Arrow table built) are small beside its reviews; small enough that the last
+tasks leave no worker idle for long."""
+
+
+def task_size(total_bytes: int, workers: int) -> int:
+    return int(min(TASK_BYTES_MAX, max(TASK_BYTES_MIN, total_bytes // max(1, 8 * workers))))
 
 
 def run_batch(path, *, workers: int | None = None, threshold: float = 10.0, progress: bool | None = None,
-              task_bytes: int = TASK_BYTES) -> Iterator[Chunk]:
-    """Review every entry under `path`; yields a `Chunk` per task, in the log's order. Each
-    process reads its own byte range, and at most ``2 × workers`` tasks are in flight, so memory
-    stays flat however long the log."""
+              task_bytes: int | None = None) -> Iterator[Chunk]:
+    """Review every entry under `path`; yields a `Chunk` per task, in the log's order.
+
+    This process only cuts the input into tasks (byte ranges of a log on line starts, groups
+    of plan files), handing each on as soon as it is cut; each worker reads its own range,
+    reviews it and returns an Arrow table. At most ``2 × workers`` tasks are in flight, so
+    memory stays flat however long the log."""
     if not (isinstance(threshold, (int, float)) and threshold > 1):
         raise PlanviewError(f"threshold must be a q-error above 1, got {threshold!r}")
-    tasks = read_tasks(path, task_bytes)
+    total = input_bytes(path)
     workers = default_workers() if workers is None else max(1, int(workers))
-    workers = min(workers, max(1, len(tasks)))
-    bar = _progress(sum(t[-1] for t in tasks), progress)
+    if task_bytes is None:
+        task_bytes = task_size(total, workers)
+    if total <= task_bytes:
+        workers = 1
+    tasks = iter_tasks(path, task_bytes)
+    bar = _progress(total, progress)
     try:
         if workers == 1:
             for task in tasks:
@@ -283,7 +350,7 @@ def rows_frame(rows: list[dict], unreadable: list[Unreadable] | None = None):
 
 
 def batch(path, *, workers: int | None = None, threshold: float = 10.0, progress: bool | None = False,
-          task_bytes: int = TASK_BYTES):
+          task_bytes: int | None = None):
     """Review every plan under `path` (a server log with auto_explain output, a plan file, or a
     folder of either) into one pandas DataFrame: one row a query (``row == "query"``) and one
     row a node (``row == "node"``). Entries that could not be read are listed, with file and
@@ -323,6 +390,27 @@ def arrow_table(rows: list[dict]):
     schema = arrow_schema()
     return pa.table({name: pa.array([r.get(name) for r in rows], type=schema.field(name).type)
                      for name in COLUMN_NAMES}, schema=schema)
+
+
+CSV_FORMULA_START = ("=", "+", "-", "@", "\t", "\r")
+"""A spreadsheet reads a cell beginning with one of these as a formula (OWASP, "CSV Injection":
+prefix such a cell with a single quote so it is shown as text)."""
+
+
+def csv_safe(frame):
+    """The frame with each text cell that begins with a formula character prefixed by a single
+    quote, for a spreadsheet opening the .csv. Only text columns: numbers stay numbers (a
+    negative number is not a formula), and the Parquet output keeps every value as it is."""
+    frame = frame.copy()
+    pattern = "^(?:" + "|".join(re.escape(c) for c in CSV_FORMULA_START) + ")"
+    for name, kind in COLUMNS:
+        if kind != "string":
+            continue
+        column = frame[name]
+        risky = column.str.contains(pattern, regex=True, na=False)
+        if risky.any():
+            frame[name] = column.where(~risky, "'" + column)
+    return frame
 
 
 ROW_GROUP_ROWS = 65_536
@@ -381,7 +469,8 @@ def write_batch(path, out, *, workers: int | None = None, threshold: float = 10.
                     writer.write_table(pa.concat_tables(waiting))
                     waiting, waiting_rows = [], 0
             else:
-                table_frame(chunk.table).to_csv(out, mode="w" if first else "a", header=first, index=False)
+                csv_safe(table_frame(chunk.table)).to_csv(out, mode="w" if first else "a", header=first,
+                                                          index=False)
             first = False
         if writer is not None and waiting:
             writer.write_table(pa.concat_tables(waiting))

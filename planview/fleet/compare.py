@@ -62,13 +62,15 @@ class Comparison:
     before_origins: int
     after_origins: int
     counts: dict[str, int] = field(default_factory=dict)
+    before_plan: Any = field(default=None, repr=False, compare=False)
+    after_plan: Any = field(default=None, repr=False, compare=False)
 
     def report(self) -> dict[str, Any]:
         """The comparison as JSON-ready data, words and figures decided here for every view."""
         change = None
         if self.before_ms and self.after_ms is not None:
             change = self.after_ms / self.before_ms
-        return {
+        report = {
             "before": self.before_name, "after": self.after_name,
             "shape_changed": self.shape_changed,
             "shape_words": "the plan's shape changed" if self.shape_changed else "the same plan shape",
@@ -84,13 +86,14 @@ class Comparison:
                            if m.after is not None else "–")
                       for m in self.matches],
         }
+        c = report["counts"]
+        report["headline"] = (f"{report['shape_words']}; {report['time_words']}; estimates: "
+                              f"{c.get('better', 0)} better, {c.get('worse', 0)} worse, {c.get('same', 0)} "
+                              f"unchanged; origins {report['before_origins']} → {report['after_origins']}")
+        return report
 
     def headline(self) -> str:
-        r = self.report()
-        c = r["counts"]
-        return (f"{r['shape_words']}; {r['time_words']}; estimates: {c.get('better', 0)} better, "
-                f"{c.get('worse', 0)} worse, {c.get('same', 0)} unchanged; origins "
-                f"{r['before_origins']} → {r['after_origins']}")
+        return self.report()["headline"]
 
     def to_text(self) -> str:
         r = self.report()
@@ -121,27 +124,23 @@ class Comparison:
         return text
 
     def to_html(self, path: str | os.PathLike | None = None) -> str:
-        r = self.report()
-        e = html.escape
-        body = "".join(
-            f"<tr class='v-{e(n['verdict'].replace(' ', '-'))}'><td>{e(n['position'])}</td>"
-            f"<td>{e(visible(n['label']))}</td><td>{e(n['before_rows'])}</td><td>{e(n['before_q'])}</td>"
-            f"<td>{e(n['after_rows'])}</td><td>{e(n['after_q'])}</td><td>{e(n['verdict'])}</td></tr>"
-            for n in r["nodes"])
-        page = ("<!doctype html><html><head><meta charset='utf-8'><title>planview comparison</title>"
-                "<style>body{font:14px system-ui,sans-serif;margin:1.5em}table{border-collapse:collapse}"
-                "td,th{border-bottom:1px solid #ddd;padding:3px 8px;text-align:left}"
-                ".v-better td:last-child{color:#1a7f37}.v-worse td:last-child{color:#b42318;font-weight:600}"
-                "</style></head><body>"
-                f"<h2>Plan comparison</h2><p>{e(visible(r['before']))} → {e(visible(r['after']))}</p>"
-                f"<p>{e(self.headline())}</p><table><thead><tr><th>place</th><th>operator</th>"
-                "<th>before (est / act)</th><th>q-error</th><th>after (est / act)</th><th>q-error</th>"
-                f"<th>verdict</th></tr></thead><tbody>{body}</tbody></table></body></html>")
+        """One offline page: the comparison's table and each plan's own review, the same
+        widget module as a single review's page (`planview.export.html`)."""
+        from ..export.html import render_comparison_html
+
+        page = render_comparison_html(self)
         _write(path, page)
         return page
 
     def _repr_html_(self) -> str:
-        return self.to_html()
+        """The table alone, for a front end without widgets (``%load_ext planview`` shows the
+        comparison widget instead)."""
+        from ..export.html import comparison_table
+
+        r = self.report()
+        return (f"<div class='pv-compare'><p>{html.escape(visible(r['before']))} → "
+                f"{html.escape(visible(r['after']))}: {html.escape(visible(r['headline']))}</p>"
+                f"{comparison_table(r)}</div>")
 
 
 def _write(path, text: str) -> None:
@@ -256,7 +255,8 @@ def compare(before, after, *, threshold: float = 10.0) -> Comparison:
     return Comparison(before_name=name_a, after_name=name_b, matches=matches,
                       shape_changed=shape_of(nodes_a) != shape_of(nodes_b),
                       before_ms=_plan_ms(plan_a), after_ms=_plan_ms(plan_b),
-                      before_origins=len(plan_a.findings), after_origins=len(plan_b.findings), counts=counts)
+                      before_origins=len(plan_a.findings), after_origins=len(plan_b.findings), counts=counts,
+                      before_plan=plan_a, after_plan=plan_b)
 
 
 def _plan_ms(plan) -> float | None:

@@ -18,7 +18,7 @@ import os
 from pathlib import Path
 
 from ..errors import PlanviewError
-from .batch import BatchTotals, review_items, rows_frame
+from .batch import BatchTotals, review_items, rows_frame, table_frame
 from .logread import read_task, read_tasks
 
 PARTITION_BYTES = 32 << 20
@@ -26,12 +26,10 @@ PARTITION_BYTES = 32 << 20
 
 
 def _review_partition(items, threshold: float):
-    rows, bad, entries = review_items(items, threshold)
-    queries = [r for r in rows if r["row"] == "query"]
-    stats = {"entries": entries, "queries": len(queries), "nodes": len(rows) - len(queries),
-             "origins": sum(r["origins"] or 0 for r in queries),
-             "worst": max((r["worst_q_error"] for r in queries if r["worst_q_error"] is not None), default=1.0)}
-    return [(rows_frame(rows), bad, stats)]
+    built = review_items(items, threshold)
+    stats = {"entries": built.entries, "queries": built.queries, "nodes": built.nodes,
+             "origins": built.origins, "worst": built.worst_q_error}
+    return [(table_frame(built.table()), built.unreadable, stats)]
 
 
 def entry_bag(path, partition_bytes: int = PARTITION_BYTES):
@@ -66,24 +64,22 @@ def _client(scheduler: str):
     return Client(scheduler), None
 
 
-def _write_part(part, folder: str, number: int):
-    """One partition's rows as one Parquet file of the shared schema; its unreadables and counts back."""
-    import pyarrow as pa
+def _review_and_write(task, folder: str, number: int, threshold: float):
+    """One task read, reviewed and written as one Parquet file of the shared schema, all on the
+    worker that runs it: only its unreadables and counts come back (no frame crosses the cluster)."""
     import pyarrow.parquet as pq
 
-    from .batch import arrow_schema
-
-    frame, bad, stats = part[0]
-    table = pa.Table.from_pandas(frame, schema=arrow_schema(), preserve_index=False)
-    pq.write_table(table, os.path.join(folder, f"part.{number:05d}.parquet"))
-    return bad, stats
+    built = review_items(read_task(task), threshold)
+    pq.write_table(built.table(), os.path.join(folder, f"part.{number:05d}.parquet"))
+    return built.unreadable, {"entries": built.entries, "queries": built.queries, "nodes": built.nodes,
+                              "origins": built.origins, "worst": built.worst_q_error}
 
 
 def dask_batch(path, out, *, scheduler: str = "local", threshold: float = 10.0,
                partition_bytes: int = PARTITION_BYTES, client=None) -> BatchTotals:
     """Review `path` on a Dask cluster; write the rows to the folder `out`, a Parquet file a
-    partition, each written by the worker that reviewed it (nothing but counts and unreadable
-    entries comes back to this process)."""
+    partition, each read, reviewed and written by one worker in one task (the same per-entry
+    review as `batch_frame`'s bag; nothing but counts and unreadable entries comes back)."""
     import dask
 
     folder = os.fspath(out)
@@ -96,8 +92,8 @@ def dask_batch(path, out, *, scheduler: str = "local", threshold: float = 10.0,
     if client is None:
         client, own = _client(scheduler)
     try:
-        reviewed = entry_bag(path, partition_bytes).map_partitions(_review_partition, threshold).to_delayed()
-        writes = [dask.delayed(_write_part)(part, folder, i) for i, part in enumerate(reviewed)]
+        writes = [dask.delayed(_review_and_write)(task, folder, i, threshold)
+                  for i, task in enumerate(read_tasks(path, partition_bytes))]
         results = dask.compute(*writes)
     finally:
         if own is not None:

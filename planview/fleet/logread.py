@@ -12,11 +12,17 @@ and line, and the stream goes on.
 Continuation lines carry no prefix, so a line that another process wrote into the middle of an
 entry (possible with ``logging_collector = off`` under load) ends that entry early; the entry
 is then reported unreadable rather than guessed at.
+
+A csvlog or a jsonlog (``log_destination = 'csvlog'`` / ``'jsonlog'``) is read the same way, a
+record at a time: the csv module over the file for the one, a JSON object a line for the other;
+the kind of log is told by its first record (`log_kind`).
 """
 
 from __future__ import annotations
 
+import csv
 import hashlib
+import json
 import os
 import re
 from dataclasses import dataclass
@@ -33,7 +39,7 @@ _PID = re.compile(r"\[(\d+)\]|\bpid[=:](\d+)", re.I)
 _TEXT_ROOT = re.compile(r"^\S.*?  \((?:cost=|actual )")
 _HEADER_KEYS = ("Query Text:", "Query Identifier:", "Query Parameters:")
 _PLAN_SUFFIXES = (".txt", ".json", ".xml", ".yaml", ".yml", ".sql", ".plan", ".explain", "")
-_LOG_SUFFIXES = (".log", ".csv")  # a .csv is read only when it holds stderr-style entries
+_LOG_SUFFIXES = (".log", ".csv")  # read only as a server log (stderr-style or csvlog), never as a plan
 _SNIFF_BYTES = 65536
 MAX_ENTRY_BYTES = max_input_bytes("json")
 """An entry longer than this is refused unread (its lines are skipped, not kept)."""
@@ -54,6 +60,7 @@ class Entry:
     pid: int | None = None
     duration_ms: float | None = None
     text_line: int | None = None    # the file's line where `text` begins (default: `line`)
+    one_line_record: bool = False   # a jsonlog record: the whole entry is on its `line`
 
     @property
     def query_id(self) -> str:
@@ -166,6 +173,19 @@ def read_log_lines(lines, source: str, first_line: int = 1) -> Iterator[Entry | 
 
 
 def _finish(pending: _Pending, source: str) -> Entry | Unreadable:
+    """The entry a stderr log's header line and continuation lines hold."""
+    return _entry_from_lines(pending.line, pending.header, pending.ms, pending.lines, source,
+                             pending.too_big)
+
+
+def _entry_from_lines(first_line: int, header: str, duration_ms: float, lines: list[str], source: str,
+                      too_big: bool = False) -> Entry | Unreadable:
+    pending = _Pending(first_line, header, duration_ms)
+    pending.lines, pending.too_big = lines, too_big
+    return _read_pending(pending, source)
+
+
+def _read_pending(pending: _Pending, source: str) -> Entry | Unreadable:
     if pending.too_big:
         return Unreadable(source, pending.line, f"entry over the {MAX_ENTRY_BYTES / 1e6:.0f} MB limit; "
                                                 "skipped unread")
@@ -215,6 +235,192 @@ def _finish(pending: _Pending, source: str) -> Entry | Unreadable:
 
 
 # ---------------------------------------------------------------------------------------
+# csvlog and jsonlog (log_destination = 'csvlog', 'jsonlog')
+# ---------------------------------------------------------------------------------------
+# The server writes each message as one record: csvlog a CSV row whose message field holds
+# the entry's lines unindented (a quoted field may span lines), jsonlog one JSON object a line
+# with the message under "message". The record's own fields give the time and the process,
+# so no log_line_prefix is involved. The field order of csvlog is the PostgreSQL manual's
+# (section "Using CSV-Format Log Output"; PostgreSQL 13 added backend_type, 14 leader_pid and
+# query_id at the end); the jsonlog keys are the manual's table of them (PostgreSQL 15+).
+
+_MESSAGE = re.compile(r"duration: (?P<ms>\d+(?:\.\d+)?) ms\s+plan:[ \t]*(?:\n|$)")
+_CSV_TIME, _CSV_PID, _CSV_SEVERITY, _CSV_MESSAGE, _CSV_QUERY_ID = 0, 3, 11, 13, 25
+_CSV_MIN_FIELDS = 23
+_CSV_START = re.compile(r"^\d{4}-\d\d-\d\d \d\d:\d\d:\d\d(?:\.\d+)?(?: \S+)?,")
+_JSON_START = re.compile(r'^\{"timestamp":"\d{4}-\d\d-\d\d')
+_SEVERITIES = {"LOG", "INFO", "NOTICE", "WARNING", "ERROR", "FATAL", "PANIC", "DEBUG", "DEBUG1",
+               "DEBUG2", "DEBUG3", "DEBUG4", "DEBUG5", "STATEMENT", "DETAIL", "HINT", "CONTEXT"}
+
+
+def log_kind(path: str | os.PathLike) -> str | None:
+    """"stderr", "csvlog" or "jsonlog" when the file is a server log of that kind, else None.
+
+    A csvlog or jsonlog is known by its first record's shape (any log of that kind is read, an
+    entry or none); a stderr log by an auto_explain entry's first line in its first 64 KB."""
+    try:
+        with open(path, "rb") as handle:
+            head = handle.read(_SNIFF_BYTES).decode("utf-8", "replace")
+    except OSError:
+        return None
+    first = head.split("\n", 1)[0]
+    if _JSON_START.match(first):
+        return "jsonlog"
+    if _CSV_START.match(first):
+        try:
+            record = next(csv.reader([head] if "\n" not in head else _lines_with_ends(head)))
+        except (csv.Error, StopIteration):
+            record = []
+        if len(record) > _CSV_SEVERITY and record[_CSV_SEVERITY] in _SEVERITIES:  # a long first
+            # record may be cut at 64 KB, but its severity comes before the message
+            return "csvlog"
+    if any(_HEADER.search(line) for line in head.splitlines()):
+        return "stderr"
+    return None
+
+
+def _lines_with_ends(text: str) -> Iterator[str]:
+    return iter(text.splitlines(keepends=True))
+
+
+def _record_entry(source: str, line: int, message: str, log_time, pid, query_id,
+                  one_line: bool) -> Entry | Unreadable | None:
+    """The entry a csvlog or jsonlog message holds, or None when it is not auto_explain's."""
+    match = _MESSAGE.match(message)
+    if not match:
+        return None
+    if len(message) > MAX_ENTRY_BYTES:
+        return Unreadable(source, line, f"entry over the {MAX_ENTRY_BYTES / 1e6:.0f} MB limit; skipped unread")
+    body = message[match.end():]
+    lines = body.split("\n") if body else []
+    while lines and not lines[-1].strip():
+        lines.pop()
+    entry = _entry_from_lines(line, "", float(match.group("ms")), lines, source)
+    if isinstance(entry, Entry):
+        entry.log_time = log_time or None
+        try:
+            entry.pid = int(pid) if pid not in (None, "") else None
+        except (TypeError, ValueError):
+            entry.pid = None
+        if not entry.query_identifier and query_id not in (None, "", 0, "0"):
+            entry.query_identifier = str(query_id)
+        entry.one_line_record = one_line
+        if one_line:
+            entry.text_line = line
+    return entry
+
+
+def _raw_lines(handle, start: int, end: int | None):
+    """(byte offset, decoded line with its end) of each line from `start` whose start is before
+    `end`; a line longer than the entry limit is cut there (the reader then reports it)."""
+    pos = start
+    while end is None or pos < end:
+        raw = handle.readline(MAX_ENTRY_BYTES + 2)
+        if not raw:
+            return
+        at = pos
+        pos += len(raw)
+        if len(raw) > MAX_ENTRY_BYTES and not raw.endswith(b"\n"):
+            while True:  # the rest of the over-long line, dropped unread
+                more = handle.readline(1 << 20)
+                pos += len(more)
+                if not more or more.endswith(b"\n"):
+                    break
+            yield at, None
+            continue
+        yield at, raw.decode("utf-8", "replace")
+
+
+def read_csvlog(path: str | os.PathLike, *, name: str | None = None, start: int = 0, end: int | None = None,
+                first_line: int = 1) -> Iterator[Entry | Unreadable]:
+    """The auto_explain entries of a csvlog, as a stream: the csv module reads one record at a
+    time from the file. With `start`/`end`, only the records that begin in that byte range
+    (`start` must be a record's first byte: `iter_log_ranges` cuts only where the quotes balance)."""
+    source = name or str(path)
+    try:
+        handle = open(path, "rb")
+    except OSError as exc:
+        yield Unreadable(source, None, f"cannot read: {exc.strerror or exc}")
+        return
+    csv.field_size_limit(max(csv.field_size_limit(), MAX_ENTRY_BYTES + 1))
+    state = {"lines": 0, "fresh": True, "too_long": None}
+
+    def lines():
+        for at, text in _raw_lines(handle, start, None):
+            if end is not None and at >= end and state["fresh"]:
+                return  # a new record would begin past the range: the next range's
+            state["fresh"] = False
+            state["lines"] += 1
+            if text is None:  # an over-long line: dropped, its record reported
+                state["too_long"] = state["too_long"] or first_line + state["lines"] - 1
+                text = "\n"
+            yield text
+
+    with handle:
+        handle.seek(start)
+        reader = csv.reader(lines())
+        while True:
+            line = first_line + state["lines"]
+            state["fresh"] = True
+            try:
+                record = next(reader)
+            except StopIteration:
+                return
+            except csv.Error as exc:
+                state["too_long"] = None
+                yield Unreadable(source, line, f"not a csvlog record ({exc})")
+                continue
+            if state["too_long"] is not None:
+                state["too_long"] = None
+                yield Unreadable(source, line, f"a record over the {MAX_ENTRY_BYTES / 1e6:.0f} MB limit; "
+                                               "skipped unread")
+                continue
+            if len(record) < _CSV_MIN_FIELDS:
+                if _MESSAGE.search(",".join(record)):
+                    yield Unreadable(source, line, f"a csvlog record of {len(record)} fields "
+                                                   f"(cut short?); an entry has at least {_CSV_MIN_FIELDS}")
+                continue
+            item = _record_entry(source, line, record[_CSV_MESSAGE], record[_CSV_TIME], record[_CSV_PID],
+                                 record[_CSV_QUERY_ID] if len(record) > _CSV_QUERY_ID else None, one_line=False)
+            if item is not None:
+                yield item
+
+
+def read_jsonlog(path: str | os.PathLike, *, name: str | None = None, start: int = 0, end: int | None = None,
+                 first_line: int = 1) -> Iterator[Entry | Unreadable]:
+    """The auto_explain entries of a jsonlog (one JSON object a line), as a stream; with
+    `start`/`end`, the lines that begin in that byte range."""
+    source = name or str(path)
+    try:
+        handle = open(path, "rb")
+    except OSError as exc:
+        yield Unreadable(source, None, f"cannot read: {exc.strerror or exc}")
+        return
+    with handle:
+        handle.seek(start)
+        for number, (_at, text) in enumerate(_raw_lines(handle, start, end), first_line):
+            if text is None:
+                yield Unreadable(source, number, f"a record over the {MAX_ENTRY_BYTES / 1e6:.0f} MB limit; "
+                                                 "skipped unread")
+                continue
+            if not text.strip():
+                continue
+            try:
+                record = json.loads(text)
+            except ValueError as exc:
+                if '"message":"duration: ' in text:
+                    yield Unreadable(source, number, f"a jsonlog record that is not whole JSON (cut short?): "
+                                                     f"{exc.msg} (column {exc.colno})")
+                continue
+            if not isinstance(record, dict) or not isinstance(record.get("message"), str):
+                continue
+            item = _record_entry(source, number, record["message"], record.get("timestamp"), record.get("pid"),
+                                 record.get("query_id"), one_line=True)
+            if item is not None:
+                yield item
+
+
+# ---------------------------------------------------------------------------------------
 # a folder, a file, or a mix
 # ---------------------------------------------------------------------------------------
 
@@ -244,8 +450,9 @@ def iter_entries(path: str | os.PathLike) -> Iterator[Entry | Unreadable]:
     for file in iter_files(root):
         name = str(file.relative_to(root)) if root.is_dir() else str(file)
         suffix = file.suffix.lower()
-        if looks_like_log(file):
-            yield from read_log(file, name=name)
+        kind = log_kind(file)
+        if kind is not None:
+            yield from _LOG_READERS[kind](file, name=name)
         elif suffix in _PLAN_SUFFIXES and suffix not in _LOG_SUFFIXES:
             try:
                 size = file.stat().st_size
@@ -275,37 +482,51 @@ def iter_entries(path: str | os.PathLike) -> Iterator[Entry | Unreadable]:
 # the reading cut into tasks: byte ranges of a log, groups of plan files
 # ---------------------------------------------------------------------------------------
 
-def log_ranges(path: str | os.PathLike, partition_bytes: int = 1 << 20) -> list[tuple[int, int, int]]:
-    """(start, end, first line number) of each range, every start on a line start. One pass
-    over the file counting line ends, 1 MB at a time."""
+def iter_log_ranges(path: str | os.PathLike, partition_bytes: int = 1 << 20,
+                    quoted: bool = False) -> Iterator[tuple[int, int, int]]:
+    """(start, end, first line number) of each range, every start on a line start, each
+    handed on as soon as it is found (one pass over the file counting line ends, 1 MB at a
+    time). `quoted` (a csvlog): cut only at a line end outside a quoted field, that is where the
+    count of double quotes so far is even (a quote inside a field is written doubled)."""
     size = os.path.getsize(path)
-    ranges: list[tuple[int, int, int]] = []
-    start, first_line, line_ends, pos = 0, 1, 0, 0
+    start, first_line, line_ends, quotes, pos = 0, 1, 0, 0, 0
     target = partition_bytes
+    cut_any = False
     with open(path, "rb") as handle:
         while True:
             block = handle.read(1 << 20)
             if not block:
                 break
-            offset = 0
+            offset = 0  # line ends and quotes are counted up to here
             while pos + len(block) > target:  # the cut falls in this block, at the next line end
                 cut = block.find(b"\n", max(offset, target - pos))
                 if cut < 0:
                     break  # no line end before the block's end: the next block has it
                 line_ends += block.count(b"\n", offset, cut + 1)
+                if quoted:
+                    quotes += block.count(b'"', offset, cut + 1)
                 offset = cut + 1
-                ranges.append((start, pos + offset, first_line))
+                if quoted and quotes % 2:
+                    target = pos + offset  # inside a quoted field: try the next line end
+                    continue
+                yield (start, pos + offset, first_line)
+                cut_any = True
                 start, first_line = pos + offset, line_ends + 1
                 target = start + partition_bytes
             line_ends += block.count(b"\n", offset)
+            if quoted:
+                quotes += block.count(b'"', offset)
             pos += len(block)
-    if start < size or not ranges:
-        ranges.append((start, size, first_line))
-    return ranges
+    if start < size or not cut_any:
+        yield (start, size, first_line)
+
+
+def log_ranges(path: str | os.PathLike, partition_bytes: int = 1 << 20) -> list[tuple[int, int, int]]:
+    return list(iter_log_ranges(path, partition_bytes))
 
 
 def read_range(path: str, name: str, start: int, end: int, first_line: int) -> list:
-    """The entries whose first line starts in [start, end) of a log."""
+    """The entries whose first line starts in [start, end) of a stderr log."""
     handle = open(path, "rb")
     handle.seek(start)
     state = {"first": first_line}
@@ -334,29 +555,43 @@ def read_range(path: str, name: str, start: int, end: int, first_line: int) -> l
         return list(read_log_lines(stream, name, state["first"]))
 
 
+_LOG_READERS = {"stderr": read_log, "csvlog": read_csvlog, "jsonlog": read_jsonlog}
+
 FILES_PER_TASK = 16
 
 
-def read_tasks(path: str | os.PathLike, partition_bytes: int = 1 << 20) -> list[tuple]:
-    """The reading of `path` cut into tasks a process can do alone: a byte range of a log, or a
-    group of plan files. Each task's last item is its size in bytes (for a progress bar)."""
+def iter_tasks(path: str | os.PathLike, partition_bytes: int = 1 << 20) -> Iterator[tuple]:
+    """The reading of `path` cut into tasks a process can do alone, each handed on as soon as
+    it is cut: a byte range of a log (stderr, csvlog or jsonlog), or a group of plan files.
+    Each task's last item is its size in bytes (for a progress bar)."""
     root = Path(path)
     if not root.exists():
         raise PlanviewError(f"{os.fspath(path)}: no such file or folder")
-    tasks = []
     plain = []
     for file in iter_files(root):
         name = str(file.relative_to(root)) if root.is_dir() else str(file)
-        if looks_like_log(file):
-            for start, end, first in log_ranges(file, partition_bytes):
-                tasks.append(("log", str(file.resolve()), name, start, end, first, end - start))
+        kind = log_kind(file)
+        if kind is not None:
+            for start, end, first in iter_log_ranges(file, partition_bytes, quoted=kind == "csvlog"):
+                yield (kind, str(file.resolve()), name, start, end, first, end - start)
         else:
             plain.append(file)
     base = str(root.resolve()) if root.is_dir() else None
     for i in range(0, len(plain), FILES_PER_TASK):
         group = plain[i:i + FILES_PER_TASK]
-        tasks.append(("files", [str(p.resolve()) for p in group], base, sum(_size(p) for p in group)))
-    return tasks
+        yield ("files", [str(p.resolve()) for p in group], base, sum(_size(p) for p in group))
+
+
+def read_tasks(path: str | os.PathLike, partition_bytes: int = 1 << 20) -> list[tuple]:
+    return list(iter_tasks(path, partition_bytes))
+
+
+def input_bytes(path: str | os.PathLike) -> int:
+    """The bytes under `path` (for a progress bar and the task size), from the file sizes only."""
+    root = Path(path)
+    if not root.exists():
+        raise PlanviewError(f"{os.fspath(path)}: no such file or folder")
+    return sum(_size(file) for file in iter_files(root))
 
 
 def _size(path: Path) -> int:
@@ -367,10 +602,13 @@ def _size(path: Path) -> int:
 
 
 def read_task(task) -> list:
-    """The entries (and unreadables) of one task from `read_tasks`."""
-    if task[0] == "log":
+    """The entries (and unreadables) of one task from `iter_tasks`."""
+    kind = task[0]
+    if kind in _LOG_READERS:
         _, path, name, start, end, first, _size = task
-        return read_range(path, name, start, end, first)
+        if kind == "stderr":
+            return read_range(path, name, start, end, first)
+        return list(_LOG_READERS[kind](path, name=name, start=start, end=end, first_line=first))
     _, paths, base, _size = task
     out = []
     for p in paths:
