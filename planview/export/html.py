@@ -60,7 +60,8 @@ def compact_report(report: dict[str, Any]) -> dict[str, Any]:
     module unpacks them), so a 5,000-operator page stays small. Every value kept is the
     report's own."""
     nodes = report["nodes"]
-    columns = [key for key in (nodes[0] if nodes else {}) if not all(_is_empty(n.get(key)) for n in nodes)]
+    keys = dict.fromkeys(key for node in nodes for key in node)  # a key only some nodes have (derivation) too
+    columns = [key for key in keys if not all(_is_empty(n.get(key)) for n in nodes)]
     rows = [[None if _is_empty(v := node.get(key)) else v for key in columns] for node in nodes]
     packed = {k: v for k, v in report.items() if k != "nodes"}
     packed["nodes_packed"] = {"columns": columns, "rows": rows}

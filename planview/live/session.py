@@ -181,9 +181,13 @@ class Session:
 
     def prove(self, finding: Finding | int, plan=None) -> dict:
         """Try the finding's fix in a transaction that is rolled back and plan the statement
-        again with plain EXPLAIN (never ANALYZE): the estimate with the fix. The fix takes
-        locks while it runs (ANALYZE and CREATE STATISTICS: SHARE UPDATE EXCLUSIVE; ANALYZE
-        reads a sample); nothing is kept. `plan` defaults to the last review's."""
+        again with plain EXPLAIN (never ANALYZE): the estimate with the fix. The fix runs on a
+        temporary copy of the table made inside that transaction (a rolled-back ANALYZE would
+        still leave pg_class's row and page counts and the table's analyze counters changed), so
+        the user's table is only read, with the lock a SELECT takes; the copy costs I/O and
+        temporary space the size of the table. Run for real, the fix takes SHARE UPDATE
+        EXCLUSIVE (ANALYZE, CREATE STATISTICS) and ANALYZE reads a sample. Nothing is kept.
+        `plan` defaults to the last review's."""
         plan = plan if plan is not None else self.last_plan
         if plan is None or getattr(plan, "live", None) is None:
             raise LiveError("prove() needs a plan from this session's review(sql)")

@@ -979,6 +979,11 @@ class Review {
         el("dt", {}, c.key || c.kind || "condition"), el("dd", {}, el("code", {}, c.text))])));
     }
     if (finding) parts.push(...this.evidenceParts(finding, node));
+    const derivation = node.derivation && typeof node.derivation === "object" ? node.derivation : null;
+    if (derivation && Array.isArray(derivation.steps) && derivation.steps.length) {
+      parts.push(el("h4", {}, "The estimate worked out from the statistics"));
+      parts.push(el("ol", { class: "pv-derivation" }, derivation.steps.map((step) => el("li", {}, String(step)))));
+    }
     if ((node.derived || []).length) {
       parts.push(el("h4", {}, "How the numbers were read"));
       parts.push(el("ul", { class: "pv-derived" }, node.derived.map((d) => el("li", {}, d))));
@@ -1064,6 +1069,9 @@ class Review {
     if (impact.text && (impact.node !== finding.node || impact.origin_ms === null || impact.origin_ms === undefined)) {
       parts.push(el("p", { class: "pv-impact" }, el("strong", {}, "Where the error ends up: "), impact.text));
     }
+    // a live session's measurement and proof (planview/live), in the report's words
+    const said = finding.text || {};
+    if (said.measured) parts.push(el("p", { class: "pv-measured" }, el("strong", {}, "Measured on the database: "), said.measured));
     if (finding.fix) {
       parts.push(el("h4", {}, "Suggested fix"));
       const code = el("pre", { class: "pv-fix" }, el("code", {}, textBlock(finding.fix)));
@@ -1073,6 +1081,7 @@ class Review {
         () => { copied.textContent = "copied"; },
         () => { copied.textContent = "select the text and copy it by hand"; }));
       parts.push(el("div", { class: "pv-fix-box" }, code, el("div", { class: "pv-fix-actions" }, copy, copied)));
+      if (said.proof) parts.push(el("p", { class: "pv-proof" }, el("strong", {}, "Tried and rolled back: "), said.proof));
       parts.push(el("div", { class: "pv-caution", role: "note" }, el("strong", {}, "Before you run it: "),
         finding.caution || GENERIC_CAUTION));
     } else if (finding.caution) {
