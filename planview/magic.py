@@ -127,9 +127,15 @@ def _magics_class():
             try:
                 if isinstance(target, Session):
                     return target.review(sql, params, threshold=args.threshold)
-                with connect(target, statement_timeout_ms=args.statement_timeout,
-                             lock_timeout_ms=args.lock_timeout, allow_writes=args.allow_writes) as session:
+                # the session stays open with its plan, for the review's "try the fix" button;
+                # it closes when the plan is gone (or session.close())
+                session = connect(target, statement_timeout_ms=args.statement_timeout,
+                                  lock_timeout_ms=args.lock_timeout, allow_writes=args.allow_writes)
+                try:
                     return session.review(sql, params, threshold=args.threshold)
+                except BaseException:
+                    session.close()
+                    raise
             except PlanviewError as exc:
                 failure = redact(str(exc), dsn)
             print(f"planview: {failure}")

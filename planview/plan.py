@@ -36,6 +36,8 @@ class Plan:
         self.statements: list[Statement] = parsed.statements
         self.options = options
         self.source = source
+        self.live_session = None
+        """The live Session that reviewed this plan (planview/live), if any: prove() goes through it."""
         self.engine_spec = engines.engine_of(engine_module)
         """The engine's tables, defaults, dialect and fixes, which the diagnosis is handed."""
         self.findings: list[Finding] = check(parsed, engine_module, options)

@@ -115,3 +115,32 @@ def test_the_page_shows_what_was_measured_worked_out_and_proven(scenario_db, bef
         assert not errors
     with scenario_db.connect(autocommit=True) as conn:
         assert checksums(conn) == before
+
+
+@pytest.mark.pg
+def test_the_widgets_try_button_proves_through_the_session(scenario_db, before, monkeypatch):
+    """The notebook's "Try it (rolled back)" button: the front end sends {kind: prove, node},
+    the kernel proves through the session that reviewed the plan and sends the new report."""
+    from planview.widget import PlanWidget
+
+    session, plan = _reviewed(scenario_db, "stale_value")
+    try:
+        finding = _planted_finding(plan, scenario_db, "stale_value")
+        widget = PlanWidget(plan)
+        assert widget.tree.can_prove is True
+        sent = []
+        monkeypatch.setattr(widget.tree, "send", lambda content, *a, **k: sent.append(content))
+        widget._on_front_message(widget.tree, {"kind": "prove", "node": finding.node}, [])
+        assert sent == [{"kind": "proved", "node": finding.node}]
+        record = next(f for f in widget.tree.report["findings"] if f["node"] == finding.node)
+        actual = plan.nodes[finding.node].actual_total
+        assert 1 / 3 <= max(record["proof"]["est_after"], 1) / max(actual, 1) <= 3
+        quiet = next(n.id for n in plan.nodes if not n.origin)
+        widget._on_front_message(widget.tree, {"kind": "prove", "node": quiet}, [])
+        assert sent[-1]["kind"] == "prove-failed" and "not an origin" in sent[-1]["message"]
+    finally:
+        session.close()
+    with scenario_db.connect(autocommit=True) as conn:
+        assert checksums(conn) == before
+    # a plan read from a file has no session: no button
+    assert PlanWidget(planview.load(scenario_db.explain_case("stale_value", "json"))).tree.can_prove is False

@@ -152,6 +152,7 @@ class Session:
             self._evidence(plan, derive=derive, measure=measure)
         plan._report = None
         self.last_plan = plan
+        plan.live_session = self  # the notebook widget's "try the fix" button proves through it
         return plan
 
     def _evidence(self, plan, *, derive: bool, measure: bool) -> None:

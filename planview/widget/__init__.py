@@ -34,6 +34,8 @@ class PlanTree(anywidget.AnyWidget):
     chart_mode = traitlets.Unicode("none").tag(sync=True)
     """``svg``: the ES module draws its charts under the tree (as in the exported page)."""
     can_save = traitlets.Bool(True).tag(sync=True)
+    can_prove = traitlets.Bool(False).tag(sync=True)
+    """A live session reviewed the plan: each fix gets a button that tries it, rolled back."""
 
 
 class PlanWidget(ipywidgets.VBox):
@@ -49,7 +51,8 @@ class PlanWidget(ipywidgets.VBox):
         self._node_ids = {n["id"] for n in report["nodes"]}
         top = min(report["findings"], key=lambda f: f["rank"])["node"] if report["findings"] else None
         self.tree = PlanTree(report=compact_report(report), selected=top,
-                             chart_mode="svg" if charts and report["nodes"] else "none")
+                             chart_mode="svg" if charts and report["nodes"] else "none",
+                             can_prove=getattr(plan, "live_session", None) is not None)
         super().__init__(children=[self.tree], **kwargs)
         self.add_class("planview-review")
         traitlets.link((self.tree, "selected"), (self, "selected"))
@@ -102,6 +105,9 @@ class PlanWidget(ipywidgets.VBox):
     def _on_front_message(self, _widget, content, _buffers):
         if not isinstance(content, dict):
             return
+        if content.get("kind") == "prove":
+            self._prove(content.get("node"))
+            return
         if content.get("kind") != "save":
             return
         try:
@@ -110,6 +116,30 @@ class PlanWidget(ipywidgets.VBox):
             self.tree.send({"kind": "save-failed", "message": str(exc)})
             return
         self.tree.send({"kind": "saved", "paths": [p.name for p in paths]})
+
+    def prove(self, node: int) -> dict[str, Any]:
+        """Try the fix of the origin at `node` through the live session that reviewed the plan
+        (in a transaction that is rolled back, planview.live.Session.prove), and show the proof."""
+        session = getattr(self.plan, "live_session", None)
+        if session is None:
+            raise PlanviewError("no live session reviewed this plan: review it with planview.connect(...).review(sql)")
+        finding = next((f for f in self.plan.findings if f.node == node), None)
+        if finding is None:
+            raise PlanviewError(f"node #{node} is not an origin of this plan")
+        proof = session.prove(finding, self.plan)
+        self.tree.report = compact_report(self.plan.report())
+        return proof
+
+    def _prove(self, node) -> None:
+        if not isinstance(node, int) or isinstance(node, bool):
+            self.tree.send({"kind": "prove-failed", "node": None, "message": "no node given"})
+            return
+        try:
+            self.prove(node)
+        except PlanviewError as exc:
+            self.tree.send({"kind": "prove-failed", "node": node, "message": str(exc)})
+            return
+        self.tree.send({"kind": "proved", "node": node})
 
     def __repr__(self) -> str:
         return f"<PlanWidget {self.plan!r}, selected={self.selected!r}>"

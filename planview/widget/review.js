@@ -1080,7 +1080,21 @@ class Review {
       copy.addEventListener("click", () => copyText(finding.fix).then(
         () => { copied.textContent = "copied"; },
         () => { copied.textContent = "select the text and copy it by hand"; }));
-      parts.push(el("div", { class: "pv-fix-box" }, code, el("div", { class: "pv-fix-actions" }, copy, copied)));
+      const actions = [copy, copied];
+      if (this.model.get("can_prove") && !finding.proof) {
+        // a live session reviewed the plan: the kernel tries the fix in a transaction it rolls back
+        const prove = el("button", { type: "button", class: "pv-prove",
+          title: "Run this fix on a copy of the table inside a transaction, plan the statement again with plain EXPLAIN, and roll back. It reads the table; nothing is kept." },
+        "Try it (rolled back)");
+        this.proveStatus = el("span", { class: "pv-prove-status", "aria-live": "polite" });
+        prove.addEventListener("click", () => {
+          prove.disabled = true;
+          this.proveStatus.textContent = "trying the fix in a transaction that will be rolled back…";
+          this.model.send({ kind: "prove", node: finding.node });
+        });
+        actions.push(prove, this.proveStatus);
+      }
+      parts.push(el("div", { class: "pv-fix-box" }, code, el("div", { class: "pv-fix-actions" }, ...actions)));
       if (said.proof) parts.push(el("p", { class: "pv-proof" }, el("strong", {}, "Tried and rolled back: "), said.proof));
       parts.push(el("div", { class: "pv-caution", role: "note" }, el("strong", {}, "Before you run it: "),
         finding.caution || GENERIC_CAUTION));
@@ -1133,7 +1147,12 @@ class Review {
   }
 
   onMessage(msg) {
-    if (!msg || typeof msg !== "object" || !this.saveStatus) return;
+    if (!msg || typeof msg !== "object") return;
+    if (msg.kind === "prove-failed" && this.proveStatus) {
+      this.proveStatus.textContent = visible(`not proven: ${msg.message || "unknown error"}`);
+      return;
+    }
+    if (!this.saveStatus) return;
     if (msg.kind === "saved") this.saveStatus.textContent = visible(`saved ${(msg.paths || []).join(" and ")}`);
     else if (msg.kind === "save-failed") this.saveStatus.textContent = visible(`could not save: ${msg.message || "unknown error"}`);
   }
