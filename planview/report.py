@@ -71,6 +71,7 @@ def node_record(node, times=None) -> dict[str, Any]:
     }
     if node.derivation is not None:
         record["derivation"] = node.derivation
+        record["text"]["derivation"] = words.derivation(node.derivation)
     if times is not None:
         i = node.id
         record["total_ms"] = _ms(times.total_ms[i])

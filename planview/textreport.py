@@ -144,6 +144,8 @@ def render(plan, width: int | None = None, color: bool = False) -> str:
             below.append(f"   time under it: {words.ms(impact['origin_ms'])}"
                          + (f" ({share * 100:.0f}% of {'its statement' if several else 'the query'})"
                             if share is not None else ""))
+        if node["text"].get("derivation"):
+            below.append(f"   {node['text']['derivation']}")
         if text.get("measured"):
             below.append(f"   measured: {text['measured']}")
         if text.get("proof"):

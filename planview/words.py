@@ -180,6 +180,24 @@ def proof(result: dict | None) -> str | None:
     return text + " (tried in a transaction that was rolled back)"
 
 
+def derivation(result: dict | None) -> str | None:
+    """A re-derived estimate in one sentence (``planview.live.derive``).
+
+    >>> derivation({"rows": 1007, "printed": 1007, "equal": True, "approximate": False})
+    'worked out from the statistics: 1,007 rows per start, as the plan printed'
+    >>> derivation({"rows": 15, "printed": 30, "equal": False, "approximate": True})
+    'worked out from the statistics: about 15 rows per start, where the plan printed 30'
+    """
+    if not result or result.get("rows") is None:
+        return None
+    about = "about " if result.get("approximate") else ""
+    said = f"worked out from the statistics: {about}{rows(result['rows'])} rows per start"
+    if result.get("equal"):
+        return said + ", as the plan printed"
+    printed = result.get("printed")
+    return said + (f", where the plan printed {rows(printed)}" if printed is not None else "")
+
+
 def vocabulary() -> dict[str, Any]:
     """The words a view needs that are not per node: what the report carries as ``words``."""
     return {

@@ -62,6 +62,15 @@ def test_a_session_measures_works_out_and_proves(scenario_db, before, case):
         assert record["measured"] == finding.measured and record["proof"]["est_after"] == proof["est_after"]
         assert record["text"]["proof"].startswith("with this fix the estimate would be")
         assert any("derivation" in n for n in report["nodes"])
+        # the planted origin is a scan with simple clauses: its estimate is worked out too, and
+        # the terminal and the ticket say it under the origin
+        from planview import words
+        from planview.export.markdown import md_text
+
+        worked = plan.nodes[finding.node].derivation
+        assert worked is not None, plan.notes
+        assert words.derivation(worked) in plan.to_text(width=200)
+        assert md_text(str(worked["steps"][0])) in plan.to_markdown()
     finally:
         session.close()
     with scenario_db.connect(autocommit=True) as conn:

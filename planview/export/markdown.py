@@ -143,6 +143,10 @@ def render_markdown(plan) -> str:
                 md_text(ms(impact["ms"])) + "." if impact.get("ms") is not None else "",
                 md_text(impact.get("text") or "")) if x)]
         said = f.get("text") or {}
+        worked = nodes[f["node"]].get("derivation") if 0 <= f["node"] < len(nodes) else None
+        if worked and nodes[f["node"]]["text"].get("derivation"):
+            out += ["", f"{md_text(nodes[f['node']]['text']['derivation']).capitalize()}:", ""]
+            out += [f"{i}. {md_text(step)}" for i, step in enumerate(worked.get("steps") or [], 1)]
         if said.get("measured"):
             out += ["", f"Measured on the server: {md_text(said['measured'])}"]
         if said.get("proof"):
