@@ -41,3 +41,17 @@ def with_payloads(plan_path: Path, payloads: dict[str, str]) -> list:
                 node[key] = value
         todo.extend(node.get("Plans", []))
     return data
+
+
+def raw_json_statements(path) -> list[dict]:
+    """The statements of a raw PostgreSQL JSON paste (several documents one after another),
+    read with json alone (the independent reading the tests compare planview with)."""
+    text = Path(path).read_text(encoding="utf-8")
+    decoder, at, found = json.JSONDecoder(), 0, []
+    while True:
+        while at < len(text) and text[at].isspace():
+            at += 1
+        if at >= len(text):
+            return found
+        doc, at = decoder.raw_decode(text, at)
+        found += doc

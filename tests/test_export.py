@@ -15,7 +15,7 @@ import re
 from pathlib import Path
 
 import pytest
-from plan_files import is_capture, with_payloads
+from plan_files import is_capture, raw_json_statements, with_payloads
 
 import planview
 from planview.cli import main as cli_main
@@ -277,19 +277,6 @@ def test_every_cause_has_words_in_python_and_in_the_page():
 
 # -- a paste of several statements in the ticket, one time format ---------------------------
 
-def _raw_json_statements(path: Path) -> list[dict]:
-    """A raw PostgreSQL JSON paste's statements (documents one after another), by json alone."""
-    text = path.read_text(encoding="utf-8")
-    decoder, at, found = json.JSONDecoder(), 0, []
-    while True:
-        while at < len(text) and text[at].isspace():
-            at += 1
-        if at >= len(text):
-            return found
-        doc, at = decoder.raw_decode(text, at)
-        found += doc
-
-
 def _operators(plan_node: dict) -> int:
     stack, count = [plan_node], 0
     while stack:
@@ -304,7 +291,7 @@ def test_markdown_shows_a_multi_statement_paste_statement_by_statement():
     the two printed Execution Times summed, and each statement has its heading with its own."""
     from planview import words
 
-    raw = _raw_json_statements(PG16 / "multi.json")
+    raw = raw_json_statements(PG16 / "multi.json")
     assert len(raw) == 2
     text = planview.load(PG16 / "multi.json").to_markdown()
     execution = [s["Execution Time"] for s in raw]
@@ -336,7 +323,7 @@ def test_every_time_in_the_ticket_is_said_in_the_one_format(name):
 def test_static_tree_heads_each_statement_of_a_paste_with_its_time():
     from planview import words
 
-    raw = _raw_json_statements(PG16 / "multi.json")
+    raw = raw_json_statements(PG16 / "multi.json")
     page = render_static_tree(planview.load(PG16 / "multi.json"))
     execution = [s["Execution Time"] for s in raw]
     assert f"2 statements, {words.ms(sum(execution))} in all" in page

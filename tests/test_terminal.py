@@ -9,6 +9,7 @@ import sys
 from pathlib import Path
 
 import pytest
+from plan_files import raw_json_statements
 
 import planview
 from planview import engines, words
@@ -83,24 +84,8 @@ def test_help_is_plain_text_with_exit_codes_and_valid_values():
 MULTI = ROOT / "plans" / "postgresql" / "pg16" / "multi.json"  # two statements (plans/README.md)
 
 
-def _raw_statements(path: Path) -> list[dict]:
-    """The statements of a raw PostgreSQL JSON paste (several documents one after another),
-    read with json alone."""
-    import json
-
-    text = path.read_text(encoding="utf-8")
-    decoder, at, found = json.JSONDecoder(), 0, []
-    while True:
-        while at < len(text) and text[at].isspace():
-            at += 1
-        if at >= len(text):
-            return found
-        doc, at = decoder.raw_decode(text, at)
-        found += doc
-
-
 def test_a_paste_of_several_statements_is_shown_statement_by_statement():
-    raw = _raw_statements(MULTI)
+    raw = raw_json_statements(MULTI)
     assert len(raw) == 2
     plan = planview.load(MULTI)
     report = plan.report()
@@ -128,7 +113,7 @@ def test_a_paste_of_several_statements_is_shown_statement_by_statement():
 def test_every_time_cell_is_said_in_the_one_format():
     """The root's time with its inputs is PostgreSQL's Actual Total Time of the top operator
     (per loop, one loop here; the manual, "Using EXPLAIN"), printed as words.ms says."""
-    raw = _raw_statements(DEEP)[0]["Plan"]
+    raw = raw_json_statements(DEEP)[0]["Plan"]
     assert raw["Actual Loops"] == 1
     text = render(planview.load(DEEP), width=200)
     root_row = next(line for line in text.splitlines() if re.match(r"\s*#0\s", line))

@@ -107,18 +107,25 @@ if (planviewModel.get("selected") !== null) planviewAddress();  // the origin it
 """
 
 
+def _page_script(boot: str) -> tuple[str, str]:
+    """The page's one script (the ES module and its boot code) and the Content-Security-Policy
+    that lets only that script run, by its hash."""
+    module = widget_module()
+    if "</script" in module.lower() or "<!--" in module:
+        raise RuntimeError("review.js must not contain '</script' or '<!--'")
+    script = module + "\n" + boot
+    digest = base64.b64encode(hashlib.sha256(script.encode("utf-8")).digest()).decode("ascii")
+    policy = (f"default-src 'none'; script-src 'sha256-{digest}'; style-src 'unsafe-inline'; "
+              "img-src data:; form-action 'none'; base-uri 'none'")
+    return script, policy
+
+
 def render_html(plan) -> str:
     """One offline page: the tree, the detail panel and the charts, with no network at all."""
     from .markdown import render_markdown
 
     report = plan.report()
-    module = widget_module()
-    if "</script" in module.lower() or "<!--" in module:
-        raise RuntimeError("review.js must not contain '</script' or '<!--'")
-    script = module + "\n" + _BOOT
-    digest = base64.b64encode(hashlib.sha256(script.encode("utf-8")).digest()).decode("ascii")
-    policy = (f"default-src 'none'; script-src 'sha256-{digest}'; style-src 'unsafe-inline'; "
-              "img-src data:; form-action 'none'; base-uri 'none'")
+    script, policy = _page_script(_BOOT)
     title = _page_title(report)
     ticket = render_markdown(plan)
     return "".join([
@@ -349,13 +356,7 @@ def render_comparison_html(comparison) -> str:
     row selects its two nodes. Falls back to the table and the static trees with no script."""
     report = comparison.report()
     plans = {"before": comparison.before_plan, "after": comparison.after_plan}
-    module = widget_module()
-    if "</script" in module.lower() or "<!--" in module:
-        raise RuntimeError("review.js must not contain '</script' or '<!--'")
-    script = module + "\n" + _COMPARE_BOOT
-    digest = base64.b64encode(hashlib.sha256(script.encode("utf-8")).digest()).decode("ascii")
-    policy = (f"default-src 'none'; script-src 'sha256-{digest}'; style-src 'unsafe-inline'; "
-              "img-src data:; form-action 'none'; base-uri 'none'")
+    script, policy = _page_script(_COMPARE_BOOT)
     e = html.escape
     sides = []
     data = []
