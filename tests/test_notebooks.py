@@ -49,7 +49,11 @@ def test_walkthrough_runs_and_shows_reviews(tmp_path):
     static = outputs(nb, "text/html")
     assert any("Plan review" in h for h in static)  # the fallback for viewers with no widgets
     assert "planview: " in streams and "Traceback" not in streams  # the bad-input cell: one line
-    assert "selected: None" in streams
+    # the review opens on the origin of rank 1 (the view keeps the report's ranking); no click
+    # happened, so that is what the kernel sees
+    multi = planview.load(REPO / "plans" / "postgresql" / "pg16" / "multi.json")
+    top = min(multi.findings, key=lambda f: f.rank)
+    assert f"selected: {top.node} {multi.nodes[top.node].label}" in streams
     stale = planview.load(REPO / "plans" / "postgresql" / "pg16" / "stale.json")
     assert (folder / "stale-review.html").read_text() == stale.to_html()
 
