@@ -367,3 +367,22 @@ def test_the_static_tree_has_an_own_time_column():
         assert f'<td class="n">{words.ms(node["self_ms"])}</td>' in page
     # plain EXPLAIN prints no time: no column of dashes
     assert "own time" not in render_static_tree(planview.load(PG16 / "estimates_only.json"))
+
+
+def test_the_tickets_headline_names_the_top_origin_not_the_largest_carried_error():
+    """Source: plans/tpch/pg15/q03.par.txt (TPC-H Q3 on PostgreSQL 15, plans/README.md). Its
+    largest error sits on a node that only carries it (an inherited error, q-error about ×33
+    above the origin); the headline must name the origin of rank 1 instead. Which node is the
+    largest is read from the raw numbers of the report, the origin from the fixture file."""
+    path = REPO / "plans" / "tpch" / "pg15" / "q03.par.txt"
+    expected = json.loads(path.with_name(path.name.replace(".txt", ".expected.json")).read_text())
+    plan = planview.load(path)
+    report = plan.report()
+    largest = max((n for n in report["nodes"] if n["judged"] and n["q_error"]), key=lambda n: n["q_error"])
+    assert not largest["origin"]
+    origins = {o["at"]["id"] for o in expected["origins"]}
+    top = min(report["findings"], key=lambda f: f["rank"])
+    assert top["node"] in origins
+    headline = plan.to_markdown().splitlines()[0]
+    assert f"the first at \\#{top['node']} " in headline
+    assert f"\\#{largest['id']} " not in headline

@@ -62,7 +62,14 @@ def render_markdown(plan) -> str:
     statement = (report["statements"] or [{}])[0]
     engine = report["engine"] + (f" {report['engine_version']}" if report["engine_version"] else "")
     lang = getattr(plan, "sql_dialect", None) and "sql" or "sql"
-    out = [f"## Query plan review: {len(findings)} estimate origin{'s' if len(findings) != 1 else ''}", ""]
+    top = min(findings, key=lambda f: f["rank"]) if findings else None
+    headline = f"## Query plan review: {_words.plural(len(findings), 'estimate origin')}"
+    if top is not None:  # the headline names the top origin, never a node that only carries an error
+        where = by_id.get(top["node"], {})
+        headline += (f", the first at \\#{top['node']} {md_code(where.get('label') or '')}: "
+                     f"{md_text(top['text']['added'])}"
+                     + (f" ({md_text(top['text']['cause'])})" if top["text"].get("cause") else ""))
+    out = [headline, ""]
     facts = [f"engine: {md_text(engine)} ({md_text(report['format'])})",
              _words.plural(len(nodes), "operator"),
              f"origins at {md_text(factor(report['threshold']))} or worse: {len(findings)}"]
@@ -80,7 +87,7 @@ def render_markdown(plan) -> str:
         facts.append(f"planning time: {md_text(ms(report['planning_ms']))}")
     judged = [n for n in nodes if n.get("judged")]
     worst = max(judged, key=lambda n: n.get("q_error") or 1.0, default=None)
-    if worst and worst.get("q_error"):
+    if worst and worst.get("q_error") and top is None:  # with origins, the headline names the first
         facts.append(f"largest error: {md_text(factor(worst['q_error']))} at "
                      f"\\#{worst['id']} {md_code(worst['label'])}")
     out += [f"- {fact}" for fact in facts]
