@@ -18,6 +18,7 @@ from ..engines.duckdb import NAME, SQL_DIALECT
 from ..errors import LiveError
 from ..probe import Budget
 from ..probe.postgresql import _message
+from . import backend
 from .safety import RefusedStatement, Verdict, check_functions
 
 ENGINE = NAME
@@ -67,7 +68,7 @@ def path_of(dsn: str) -> str:
     return rest or ":memory:"
 
 
-class Backend:
+class Backend(backend.Backend):
     """One DuckDB connection of a session."""
 
     engine = ENGINE
@@ -75,9 +76,7 @@ class Backend:
     live_evidence = LIVE_EVIDENCE
 
     def __init__(self, conn, *, owns: bool = False):
-        self.conn = conn
-        self.owns = owns
-        self.dsn = None
+        super().__init__(conn, owns=owns)
 
     @classmethod
     def open(cls, dsn: str, *, allow_writes: bool) -> Backend:
@@ -175,9 +174,3 @@ class Backend:
                     return None
         return f"could not roll the review's transaction back: {failure}"
 
-    def close(self) -> None:
-        if self.owns:
-            try:
-                self.conn.close()
-            except Exception:
-                pass

@@ -20,6 +20,7 @@ from ..probe import Budget
 from ..probe.postgresql import _message, _read_only
 from ..probe.postgresql import connect as _connect
 from ..redact import redact
+from . import backend
 from .safety import RefusedStatement, Verdict, check_functions
 
 ENGINE = NAME
@@ -56,7 +57,7 @@ def is_connection(obj: Any) -> bool:
                                                                        "transaction_status")
 
 
-class Backend:
+class Backend(backend.Backend):
     """One PostgreSQL connection of a session."""
 
     engine = ENGINE
@@ -64,9 +65,7 @@ class Backend:
     live_evidence = LIVE_EVIDENCE
 
     def __init__(self, conn, *, dsn: str | None = None):
-        self.conn = conn
-        self.dsn = dsn
-        self.owns = dsn is not None
+        super().__init__(conn, owns=dsn is not None, dsn=dsn)
 
     @classmethod
     def open(cls, dsn: str, budget: Budget) -> Backend:
@@ -139,9 +138,3 @@ class Backend:
             return LiveError, f"the review failed: {line}"
         return LiveError, f"the statement failed: {line}"
 
-    def close(self) -> None:
-        if self.owns:
-            try:
-                self.conn.close()
-            except Exception:
-                pass

@@ -46,6 +46,7 @@ from ..probe.postgresql import (
     _INTRANS,
     _message,
     _relation,
+    _Session,
     _transaction_status,
     printable,
     scans_by_table,
@@ -289,26 +290,9 @@ def _attach(plan, finding, result: dict) -> dict:
     return result
 
 
-class _Session:
-    def __init__(self, cur, budget):
-        self.cur, self.budget, self.schemas = cur, budget, []
-        self.timeout_ms = None
-
-    def run(self, sql, params=None):
-        limit = self.budget.next_statement_ms()
-        if limit != self.timeout_ms:
-            self.cur.execute(f"SET LOCAL statement_timeout = {int(limit)}")
-            self.timeout_ms = limit
-        self.cur.execute(sql, params)
-        return self.cur
-
-    def one(self, sql, params=None):
-        return self.run(sql, params).fetchone()
-
-
 def _run(cur, plan, finding, action, sql, params, budget, user_path) -> dict:
-    session = _Session(cur, budget)
-    session.schemas = [s.strip().strip('"') for s in user_path.split(",") if s.strip() and s.strip() != "$user"]
+    session = _Session(cur, budget, [s.strip().strip('"') for s in user_path.split(",")
+                                     if s.strip() and s.strip() != "$user"])
     node = plan.nodes[finding.node]
     relation = _relation(session, node, action["table"], scans_by_table(plan))
     for kind, statement in action["statements"]:
