@@ -122,13 +122,21 @@ def looks_like_log(path: str | os.PathLike) -> bool:
     return any(_HEADER.search(line) for line in head.splitlines())
 
 
+def _opened(path, source: str):
+    """The log opened for reading, or None after yielding the one Unreadable that says why
+    (``handle = yield from _opened(path, source)`` in a reading generator)."""
+    try:
+        return open(path, "rb")
+    except OSError as exc:
+        yield Unreadable(source, None, f"cannot read: {exc.strerror or exc}")
+        return None
+
+
 def read_log(path: str | os.PathLike, *, name: str | None = None) -> Iterator[Entry | Unreadable]:
     """The entries of one server log, in order, as a stream (one entry in memory at a time)."""
     source = name or str(path)
-    try:
-        handle = open(path, "rb")
-    except OSError as exc:
-        yield Unreadable(source, None, f"cannot read: {exc.strerror or exc}")
+    handle = yield from _opened(path, source)
+    if handle is None:
         return
     with handle:
         yield from read_log_lines(_decoded(handle), source)
@@ -337,10 +345,8 @@ def read_csvlog(path: str | os.PathLike, *, name: str | None = None, start: int 
     time from the file. With `start`/`end`, only the records that begin in that byte range
     (`start` must be a record's first byte: `iter_log_ranges` cuts only where the quotes balance)."""
     source = name or str(path)
-    try:
-        handle = open(path, "rb")
-    except OSError as exc:
-        yield Unreadable(source, None, f"cannot read: {exc.strerror or exc}")
+    handle = yield from _opened(path, source)
+    if handle is None:
         return
     csv.field_size_limit(max(csv.field_size_limit(), MAX_ENTRY_BYTES + 1))
     state = {"lines": 0, "fresh": True, "too_long": None}
@@ -391,10 +397,8 @@ def read_jsonlog(path: str | os.PathLike, *, name: str | None = None, start: int
     """The auto_explain entries of a jsonlog (one JSON object a line), as a stream; with
     `start`/`end`, the lines that begin in that byte range."""
     source = name or str(path)
-    try:
-        handle = open(path, "rb")
-    except OSError as exc:
-        yield Unreadable(source, None, f"cannot read: {exc.strerror or exc}")
+    handle = yield from _opened(path, source)
+    if handle is None:
         return
     with handle:
         handle.seek(start)
