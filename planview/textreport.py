@@ -14,13 +14,7 @@ from .inert import visible
 
 def _statement_heading(number: int, count: int, statement: dict) -> str:
     """A statement's heading in a paste of several: its number and its time."""
-    said = [f"statement {number} of {count}"]
-    if statement.get("execution_ms") is not None:
-        said.append(f"ran {words.ms(statement['execution_ms'])}")
-    elif statement.get("total_ms") is not None:
-        said.append(f"operators {words.ms(statement['total_ms'])}")
-    if statement.get("planning_ms") is not None:
-        said.append(f"planning {words.ms(statement['planning_ms'])}")
+    said = [f"statement {number} of {count}", *words.statement_times(statement)]
     return "== " + ", ".join(said)
 
 

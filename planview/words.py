@@ -155,6 +155,25 @@ def cause(name: str | None) -> str | None:
     return CAUSE_WORDS.get(name, str(name).replace("_", " "))
 
 
+def statement_times(statement: dict, *, planning: bool = True) -> list[str]:
+    """A statement's times as every view heads it in a paste of several: its printed execution
+    time (its operators' time where none was printed), then its planning time.
+
+    >>> statement_times({"execution_ms": 0.177, "planning_ms": 0.106})
+    ['ran 0.177 ms', 'planning 0.106 ms']
+    >>> statement_times({"execution_ms": None, "total_ms": 1200.0, "planning_ms": 0.1}, planning=False)
+    ["operators' time 1.20 s"]
+    """
+    said = []
+    if statement.get("execution_ms") is not None:
+        said.append(f"ran {ms(statement['execution_ms'])}")
+    elif statement.get("total_ms") is not None:
+        said.append(f"operators' time {ms(statement['total_ms'])}")
+    if planning and statement.get("planning_ms") is not None:
+        said.append(f"planning {ms(statement['planning_ms'])}")
+    return said
+
+
 def proof(result: dict | None) -> str | None:
     """A proven fix in one sentence (``planview.live.proof``).
 

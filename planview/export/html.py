@@ -230,8 +230,7 @@ def render_static_tree(plan) -> str:
         if len(statements) > 1 and node.get("statement") != current and 0 <= node.get("statement", -1) < len(statements):
             current = node["statement"]
             said = statements[current]
-            time = (f"ran {ms(said['execution_ms'])}" if said.get("execution_ms") is not None
-                    else f"operators {ms(said['total_ms'])}" if said.get("total_ms") is not None else "")
+            time = ", ".join(_words.statement_times(said, planning=False))
             out.append(f'<tr class="statement"><th colspan="{7 if timed else 6}">statement {current + 1} of {len(statements)}'
                        + (f" · {esc(time)}" if time else "") + "</th></tr>")
         state = node_state(node)

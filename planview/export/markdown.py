@@ -186,13 +186,8 @@ def _statements(report, lang: str) -> list[str]:
         operators[node.get("statement", 0)] = operators.get(node.get("statement", 0), 0) + 1
     out = ["", "### Statements"]
     for number, statement in enumerate(statements):
-        said = [_words.plural(operators.get(number, 0), "operator")]
-        if statement.get("execution_ms") is not None:
-            said.append(f"ran {md_text(ms(statement['execution_ms']))}")
-        elif statement.get("total_ms") is not None:
-            said.append(f"operators' time {md_text(ms(statement['total_ms']))}")
-        if statement.get("planning_ms") is not None:
-            said.append(f"planning {md_text(ms(statement['planning_ms']))}")
+        said = [_words.plural(operators.get(number, 0), "operator"),
+                *(md_text(x) for x in _words.statement_times(statement))]
         out += ["", f"#### Statement {number + 1} of {len(statements)}: {', '.join(said)}"]
         if statement.get("query_text"):
             out += ["", md_fence(statement["query_text"], lang)]
